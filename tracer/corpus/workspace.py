@@ -1,0 +1,247 @@
+"""The workspace: one folder per corpus, read through :class:`Workspace`.
+
+Layout (the store is written whole into a new generation folder and made
+current by one atomic rename of the ``CURRENT`` pointer, so an interrupted
+ingest leaves the previous corpus in place)::
+
+    WORKSPACE/
+      CURRENT                 name of the current store folder, e.g. "store-0002"
+      store-0002/
+        corpus.sqlite         documents: index, id, source, time, title, text, tokens, token start
+        tokens.u32            every token as a full-vocabulary id (little-endian uint32)
+        doc_offsets.i64       token start of each document, then the total (n_docs + 1 values)
+        vocab.tsv             id, word, count; rows sorted by count, most frequent first
+        postings_ptr.i64      word id -> start in postings_pos (n_words + 1 values)
+        postings_pos.i64      token positions grouped by word, ascending within a word
+        manifest.json         tokenizer settings, inputs and their hashes, versions, corpus hash
+      rejects.jsonl           records that ingest skipped, with file, line and reason
+      models/                 trained embeddings (see tracer.embed)
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import os
+import sqlite3
+from functools import cached_property
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from ..errors import WordNotInVocabulary, WorkspaceError, WorkspaceNotFound
+from .tokenize import Tokenizer, TokenizerSettings
+
+TOKENS_FILE = "tokens.u32"
+OFFSETS_FILE = "doc_offsets.i64"
+VOCAB_FILE = "vocab.tsv"
+POSTINGS_PTR_FILE = "postings_ptr.i64"
+POSTINGS_POS_FILE = "postings_pos.i64"
+MANIFEST_FILE = "manifest.json"
+DB_FILE = "corpus.sqlite"
+CURRENT_FILE = "CURRENT"
+REJECTS_FILE = "rejects.jsonl"
+
+DOCUMENT_COLUMNS = ("doc_index", "doc_id", "source", "time", "year", "time_value", "title",
+                    "n_tokens", "token_start")
+
+
+def write_atomic(path: Path, data: bytes | str) -> None:
+    """Write a file through a temporary name and a rename, so readers never see half of it."""
+    path = Path(path)
+    tmp = path.with_name(path.name + ".tmp")
+    mode = "wb" if isinstance(data, bytes) else "w"
+    with open(tmp, mode, **({} if isinstance(data, bytes) else {"encoding": "utf-8"})) as f:
+        f.write(data)
+        f.flush()
+        os.fsync(f.fileno())
+    os.replace(tmp, path)
+
+
+@dataclasses.dataclass(frozen=True)
+class Vocabulary:
+    """The full vocabulary of a workspace.
+
+    Attributes
+    ----------
+    words : list of str, length n_words
+        Word of each id (ids are given in order of first appearance, so they stay
+        stable when documents are appended).
+    counts : numpy.ndarray of int64, shape (n_words,)
+        Corpus frequency of each id.
+    """
+
+    words: list[str]
+    counts: np.ndarray
+
+    @cached_property
+    def index(self) -> dict[str, int]:
+        return {w: i for i, w in enumerate(self.words)}
+
+    def __len__(self) -> int:
+        return len(self.words)
+
+    def id_of(self, word: str) -> int:
+        try:
+            return self.index[word]
+        except KeyError:
+            raise WordNotInVocabulary(f"the word {word!r} does not occur in the corpus") from None
+
+
+class Workspace:
+    """Read access to an ingested corpus.
+
+    Open with ``Workspace(path)``; raises :class:`WorkspaceNotFound` if no corpus
+    was ingested there. Writing is done by :func:`tracer.corpus.ingest.ingest`.
+    """
+
+    def __init__(self, path: str | os.PathLike):
+        self.path = Path(path)
+        current = self.path / CURRENT_FILE
+        if not current.is_file():
+            raise WorkspaceNotFound(
+                f"no corpus in workspace {self.path}; run  tracer ingest FILE -w {self.path}  first"
+            )
+        self.store = self.path / current.read_text(encoding="utf-8").strip()
+        try:
+            self.manifest = json.loads((self.store / MANIFEST_FILE).read_text(encoding="utf-8"))
+        except (OSError, json.JSONDecodeError) as e:
+            raise WorkspaceError(f"workspace {self.path} is damaged: cannot read its manifest ({e})") from None
+
+    # ---- settings -------------------------------------------------------------------------
+    @property
+    def tokenizer_settings(self) -> TokenizerSettings:
+        return TokenizerSettings.from_dict(self.manifest["tokenizer"])
+
+    @cached_property
+    def tokenizer(self) -> Tokenizer:
+        return Tokenizer(self.tokenizer_settings)
+
+    @property
+    def corpus_hash(self) -> str:
+        return self.manifest["corpus_hash"]
+
+    @property
+    def models_dir(self) -> Path:
+        return self.path / "models"
+
+    # ---- arrays ---------------------------------------------------------------------------
+    @cached_property
+    def tokens(self) -> np.ndarray:
+        """All tokens as full-vocabulary ids, shape (n_tokens,), uint32, memory-mapped."""
+        path = self.store / TOKENS_FILE
+        if path.stat().st_size == 0:
+            return np.zeros(0, dtype=np.uint32)
+        return np.memmap(path, dtype="<u4", mode="r")
+
+    @cached_property
+    def doc_offsets(self) -> np.ndarray:
+        """Token start of each document and the total, shape (n_docs + 1,), int64."""
+        return np.fromfile(self.store / OFFSETS_FILE, dtype="<i8")
+
+    @property
+    def n_documents(self) -> int:
+        return len(self.doc_offsets) - 1
+
+    @property
+    def n_tokens(self) -> int:
+        return int(self.doc_offsets[-1])
+
+    @cached_property
+    def vocab(self) -> Vocabulary:
+        words: list[str] = []
+        counts: list[int] = []
+        ids: list[int] = []
+        with open(self.store / VOCAB_FILE, encoding="utf-8") as f:
+            next(f)  # header
+            for line in f:
+                i, w, c = line.rstrip("\n").split("\t")
+                ids.append(int(i))
+                words.append(w)
+                counts.append(int(c))
+        order = np.argsort(np.asarray(ids, dtype=np.int64), kind="stable")
+        return Vocabulary([words[k] for k in order], np.asarray(counts, dtype=np.int64)[order])
+
+    @cached_property
+    def _postings(self) -> tuple[np.ndarray, np.ndarray]:
+        ptr = np.fromfile(self.store / POSTINGS_PTR_FILE, dtype="<i8")
+        pos_path = self.store / POSTINGS_POS_FILE
+        pos = (np.memmap(pos_path, dtype="<i8", mode="r") if pos_path.stat().st_size
+               else np.zeros(0, dtype=np.int64))
+        return ptr, pos
+
+    def positions(self, word: str) -> np.ndarray:
+        """Sorted token positions of ``word`` in the whole corpus, int64."""
+        ptr, pos = self._postings
+        i = self.vocab.id_of(word)
+        return np.asarray(pos[ptr[i]:ptr[i + 1]])
+
+    def doc_of_position(self, positions: np.ndarray) -> np.ndarray:
+        """Document index holding each token position."""
+        return np.searchsorted(self.doc_offsets, positions, side="right") - 1
+
+    # ---- documents ------------------------------------------------------------------------
+    def _connect(self) -> sqlite3.Connection:
+        return sqlite3.connect(f"file:{self.store / DB_FILE}?mode=ro", uri=True)
+
+    @cached_property
+    def documents(self) -> pd.DataFrame:
+        """One row per document (no text), in document-index order.
+
+        Columns: doc_index, doc_id, source, time (ISO text or None), year (int or
+        NA), time_value (decimal year or NaN), title, n_tokens, token_start.
+        """
+        with self._connect() as con:
+            df = pd.read_sql_query(
+                f"SELECT {', '.join(DOCUMENT_COLUMNS)} FROM documents ORDER BY doc_index", con
+            )
+        df["year"] = df["year"].astype("Int64")
+        df["time_value"] = df["time_value"].astype(float)
+        return df
+
+    def texts(self, doc_indices) -> dict[int, str]:
+        """Stored text of the given documents, by document index."""
+        idx = [int(i) for i in doc_indices]
+        out: dict[int, str] = {}
+        with self._connect() as con:
+            for k in range(0, len(idx), 500):
+                chunk = idx[k:k + 500]
+                marks = ",".join("?" * len(chunk))
+                for i, t in con.execute(f"SELECT doc_index, text FROM documents WHERE doc_index IN ({marks})", chunk):
+                    out[i] = t
+        return out
+
+    def document_tokens(self, doc_index: int) -> np.ndarray:
+        a, b = self.doc_offsets[doc_index], self.doc_offsets[doc_index + 1]
+        return np.asarray(self.tokens[a:b])
+
+    def summary(self) -> dict:
+        """Counts a person wants first: documents, tokens, vocabulary, sources, time span."""
+        docs = self.documents
+        years = docs["year"].dropna()
+        return {
+            "workspace": str(self.path),
+            "documents": self.n_documents,
+            "tokens": self.n_tokens,
+            "vocabulary": len(self.vocab),
+            "words_at_min_count_5": int((self.vocab.counts >= 5).sum()),
+            "sources": int(docs["source"].nunique()),
+            "first_year": int(years.min()) if len(years) else None,
+            "last_year": int(years.max()) if len(years) else None,
+            "documents_without_time": int(docs["year"].isna().sum()),
+            "inputs": len(self.manifest["inputs"]),
+            "corpus_hash": self.corpus_hash,
+        }
+
+    def sources_table(self) -> pd.DataFrame:
+        docs = self.documents
+        g = docs.groupby("source", sort=True)
+        out = pd.DataFrame({
+            "documents": g.size(),
+            "tokens": g["n_tokens"].sum(),
+            "first_year": g["year"].min(),
+            "last_year": g["year"].max(),
+        }).reset_index()
+        out["token_share"] = out["tokens"] / max(1, int(docs["n_tokens"].sum()))
+        return out
