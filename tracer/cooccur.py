@@ -479,3 +479,46 @@ def count_matrix(tokens: np.ndarray, doc_offsets: np.ndarray, doc_weights: np.nd
                     parts.append(m)
                     bar.update()
     return to_csr(_symmetrize(*sum_upper(parts, n), n), n)
+
+
+@dataclasses.dataclass(frozen=True)
+class Counts:
+    """The co-occurrence counts of one slice (or any document weights).
+
+    Attributes
+    ----------
+    matrix : scipy.sparse.csr_array of float64, shape (n, n)
+        Symmetric weighted window counts.
+    vocab : ModelVocab
+        Its rows and columns.
+    settings : CountSettings
+    slice_name : str
+    """
+
+    matrix: sp.csr_array
+    vocab: ModelVocab
+    settings: CountSettings
+    slice_name: str
+
+    @cached_property
+    def row_sums(self) -> np.ndarray:
+        return np.asarray(self.matrix.sum(axis=1)).ravel()
+
+
+def count_slice(ws, weights: np.ndarray, settings: CountSettings, *, slice_name: str = "custom",
+                vocab: ModelVocab | None = None, workers: int | None = None,
+                progress: bool = False) -> Counts:
+    """Count a workspace under document weights (a slice's, a resample's, a reweighting's).
+
+    The vocabulary is built from the documents of nonzero weight unless given,
+    so resamples of one slice can share the slice's vocabulary.
+    """
+    words = ws.vocab.words
+    if vocab is None:
+        try:
+            vocab = build_vocab(ws.tokens, ws.doc_offsets, weights, words, settings)
+        except SliceError as e:
+            raise SliceError(f"slice {slice_name}: {e}") from None
+    matrix = count_matrix(ws.tokens, ws.doc_offsets, weights, vocab, len(words), settings,
+                          workers=workers, progress=progress)
+    return Counts(matrix, vocab, settings, slice_name)

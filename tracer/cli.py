@@ -1,0 +1,359 @@
+"""The ``tracer`` command: parse options, call the library, print. No analysis here."""
+
+from __future__ import annotations
+
+import functools
+import logging
+import sys
+import traceback
+from pathlib import Path
+
+import click
+
+from . import __version__
+from .errors import TracerError
+
+# ---- shared options ---------------------------------------------------------------------------
+
+
+def _progress(ctx: click.Context) -> bool:
+    obj = ctx.find_root().obj or {}
+    return not obj.get("quiet") and sys.stderr.isatty()
+
+
+def _say(ctx: click.Context, text: str) -> None:
+    """A status line on stderr (not with --quiet), so stdout stays a clean result."""
+    if not (ctx.find_root().obj or {}).get("quiet"):
+        click.echo(text, err=True)
+
+
+def workspace_option(required: bool = True):
+    return click.option("-w", "--workspace", type=click.Path(file_okay=False, path_type=Path),
+                        required=required, help="Workspace folder (one per corpus).")
+
+
+def output_options(f):
+    """--format and -o/--out, the same on every command that prints a table."""
+    f = click.option("-o", "--out", type=click.Path(dir_okay=False, path_type=Path), default=None,
+                     help="Write the result to this file instead of standard output.")(f)
+    f = click.option("--format", "fmt", type=click.Choice(["table", "csv", "json"]), default="table",
+                     show_default=True, help="Output format.")(f)
+    return f
+
+
+def count_options(f):
+    """Counting settings shared by every command that counts or trains."""
+    f = click.option("--max-vocab", type=click.IntRange(min=1), default=None,
+                     help="Keep at most this many words (the most frequent).")(f)
+    f = click.option("--weighting", type=click.Choice(["uniform", "harmonic", "linear"]), default="uniform",
+                     show_default=True, help="Weight of a pair by distance: 1, 1/d, or word2vec-style linear.")(f)
+    f = click.option("--min-count", type=click.IntRange(min=1), default=5, show_default=True,
+                     help="Words rarer than this in the slice are removed before windowing.")(f)
+    f = click.option("--window", type=click.IntRange(min=1), default=5, show_default=True,
+                     help="Tokens each side.")(f)
+    return f
+
+
+def slice_options(f):
+    f = click.option("--slice", "picks", multiple=True,
+                     help="One slice: all, source=NAME, time=1960..1979 (repeatable).")(f)
+    f = click.option("--by", multiple=True,
+                     help="Slices by source, year or time:Ny, e.g. time:10y (repeatable).")(f)
+    return f
+
+
+def _count_settings(window, min_count, weighting, max_vocab):
+    from .cooccur import CountSettings
+    return CountSettings(window=window, weighting=weighting, min_count=min_count, max_vocab=max_vocab)
+
+
+def _emit(text: str, out: Path | None, ctx: click.Context) -> None:
+    if out is None:
+        click.echo(text, nl=False)
+    else:
+        from .corpus.workspace import write_atomic
+        write_atomic(out, text)
+        _say(ctx, f"wrote {out}")
+
+
+def _emit_table(df, fmt: str, out: Path | None, ctx: click.Context) -> None:
+    from .output import render
+    _emit(render(df, fmt), out, ctx)
+
+
+def _open(workspace: Path):
+    from .corpus.workspace import Workspace
+    return Workspace(workspace)
+
+
+def _words(value: str) -> list[str]:
+    return [w.strip() for w in value.split(",") if w.strip()]
+
+
+class TracerGroup(click.Group):
+    """Turns every library error into one line and exit code 1 (--debug shows the traceback)."""
+
+    def invoke(self, ctx):
+        try:
+            return super().invoke(ctx)
+        except TracerError as e:
+            if (ctx.obj or {}).get("debug"):
+                traceback.print_exc()
+            raise click.ClickException(str(e)) from None
+        except KeyboardInterrupt:
+            click.echo("Interrupted; the workspace is left as it was before this command.", err=True)
+            sys.exit(130)
+
+
+@click.group(cls=TracerGroup, context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, prog_name="tracer")
+@click.option("-q", "--quiet", is_flag=True, help="Print only results, no progress or status lines.")
+@click.option("-v", "--verbose", is_flag=True, help="Print more about each step.")
+@click.option("--debug", is_flag=True, help="Show the full traceback of an error.")
+@click.pass_context
+def cli(ctx, quiet, verbose, debug):
+    """Trace associations in word embeddings back to the corpus that made them.
+
+    Example:  tracer demo -w demo-work
+    """
+    ctx.obj = {"quiet": quiet, "verbose": verbose, "debug": debug}
+    logging.basicConfig(level=logging.INFO if verbose else logging.WARNING, format="%(message)s")
+
+
+# ---- ingest / info ----------------------------------------------------------------------------
+
+
+@cli.command()
+@click.argument("inputs", nargs=-1, required=True, type=click.Path(path_type=Path))
+@workspace_option()
+@click.option("--text-field", default="text", show_default=True, help="Field holding the text.")
+@click.option("--id-field", default="id", show_default=True, help="Field holding the document id.")
+@click.option("--source-field", default="source", show_default=True, help="Field holding the source.")
+@click.option("--time-field", default=None,
+              help="Field holding the time (required when named). Default: time, else date, if present.")
+@click.option("--title-field", default="title", show_default=True, help="Field holding the title.")
+@click.option("--source", "default_source", default=None,
+              help="Source of records that name none (default: the input file's name).")
+@click.option("--input-format", type=click.Choice(["jsonl", "csv", "txt", "parquet"]), default=None,
+              help="Format of the inputs (default: from the file name).")
+@click.option("--strict", is_flag=True, help="Fail on the first rejected record instead of skipping it.")
+@click.option("--keep-case", is_flag=True, help="Do not lower-case (new workspaces only).")
+@click.option("--normalization", type=click.Choice(["NFKC", "NFC", "NFD", "NFKD", "none"]), default=None,
+              help="Unicode normal form before tokenizing (new workspaces only; default NFKC).")
+@output_options
+@click.pass_context
+def ingest(ctx, inputs, workspace, text_field, id_field, source_field, time_field, title_field,
+           default_source, input_format, strict, keep_case, normalization, fmt, out):
+    """Read corpus files (JSONL, JSONL.gz, CSV, .txt folders, Parquet) into a workspace.
+
+    Running it again on the same file changes nothing; a new file is appended.
+
+    Example:  tracer ingest news.jsonl.gz -w work/
+    """
+    import pandas as pd
+
+    from .corpus.ingest import FieldMap, ingest as run_ingest
+    from .corpus.tokenize import TokenizerSettings
+
+    tok = None
+    if keep_case or normalization:
+        tok = TokenizerSettings(lowercase=not keep_case, normalization=normalization or "NFKC")
+    summary = run_ingest(workspace, inputs,
+                         fields=FieldMap(text=text_field, id=id_field, source=source_field, time=time_field,
+                                         title=title_field),
+                         tokenizer=tok, input_format=input_format, default_source=default_source,
+                         strict=strict, progress=_progress(ctx))
+    df = pd.DataFrame([{"input": i.path, "status": i.status, "records": i.records, "documents": i.documents,
+                        "tokens": i.tokens, "rejected": i.rejects} for i in summary.inputs])
+    _emit_table(df, fmt, out, ctx)
+    _say(ctx, f"workspace {summary.workspace}: {summary.documents_total} documents, "
+              f"{summary.tokens_total} tokens, {summary.vocabulary_total} word types")
+    if summary.rejects:
+        reasons = ", ".join(f"{k}: {v}" for k, v in summary.reject_reasons.items())
+        _say(ctx, f"{summary.rejects} records skipped ({reasons}); see {summary.rejects_file}")
+
+
+@cli.command()
+@workspace_option()
+@click.option("--sources", "show_sources", is_flag=True, help="One row per source instead of the summary.")
+@output_options
+@click.pass_context
+def info(ctx, workspace, show_sources, fmt, out):
+    """Documents, tokens, vocabulary, sources and time span of a workspace.
+
+    Example:  tracer info -w work/ --sources
+    """
+    from .output import render_mapping
+    ws = _open(workspace)
+    if show_sources:
+        _emit_table(ws.sources_table(), fmt, out, ctx)
+    else:
+        _emit(render_mapping(ws.summary(), fmt), out, ctx)
+
+
+# ---- counts -----------------------------------------------------------------------------------
+
+
+@cli.command()
+@click.argument("word")
+@click.option("--with", "contexts", required=True, help="Comma-separated context words.")
+@workspace_option()
+@count_options
+@slice_options
+@click.option("--alpha", type=click.FloatRange(0, 1, min_open=True), default=0.75, show_default=True,
+              help="Context-distribution smoothing exponent (1: no smoothing).")
+@click.option("--shift", type=click.FloatRange(min=1), default=1.0, show_default=True,
+              help="k of shifted PPMI, max(PMI - log k, 0).")
+@output_options
+@click.pass_context
+def pmi(ctx, word, contexts, workspace, window, min_count, weighting, max_vocab, by, picks, alpha, shift, fmt, out):
+    """Window counts, marginals, PMI and PPMI of WORD with each context word, per slice.
+
+    Example:  tracer pmi -w work/ nurse --with he,she,doctor --by source --format json
+    """
+    from .corpus.slices import resolve_slices
+    from .probes import pmi_table
+    ws = _open(workspace)
+    settings = _count_settings(window, min_count, weighting, max_vocab)
+    df = pmi_table(ws, word, _words(contexts), resolve_slices(ws, by, picks), settings, alpha=alpha,
+                   shift=shift, progress=_progress(ctx))
+    if fmt == "json":
+        df = df.drop(columns=["note"]).assign(note=df["note"].replace("", None))
+    _emit_table(df, fmt, out, ctx)
+
+
+# ---- models -----------------------------------------------------------------------------------
+
+
+@cli.command()
+@workspace_option()
+@click.option("--model", type=click.Choice(["ppmi-svd", "word2vec"]), default="ppmi-svd", show_default=True)
+@slice_options
+@count_options
+@click.option("--dim", type=click.IntRange(min=1), default=100, show_default=True, help="Vector size.")
+@click.option("--seed", type=int, default=None, help="Random seed (default: 0 for ppmi-svd, 1 for word2vec).")
+@click.option("--eig-power", type=float, default=0.5, show_default=True,
+              help="ppmi-svd: p in W = U S^p.")
+@click.option("--alpha", type=click.FloatRange(0, 1, min_open=True), default=0.75, show_default=True,
+              help="ppmi-svd: context-distribution smoothing.")
+@click.option("--shift", type=click.FloatRange(min=1), default=1.0, show_default=True,
+              help="ppmi-svd: k of shifted PPMI.")
+@click.option("--cbow", is_flag=True, help="word2vec: CBOW instead of skip-gram.")
+@click.option("--negative", type=click.IntRange(min=0), default=5, show_default=True,
+              help="word2vec: negative samples.")
+@click.option("--epochs", type=click.IntRange(min=1), default=5, show_default=True, help="word2vec: epochs.")
+@click.option("--workers", type=click.IntRange(min=1), default=1, show_default=True,
+              help="word2vec: training threads (1 gives reproducible vectors).")
+@output_options
+@click.pass_context
+def train(ctx, workspace, model, by, picks, window, min_count, weighting, max_vocab, dim, seed, eig_power,
+          alpha, shift, cbow, negative, epochs, workers, fmt, out):
+    """Train PPMI-SVD or word2vec embeddings on each slice and store them in the workspace.
+
+    Example:  tracer train -w work/ --model ppmi-svd --by time:10y
+    """
+    import pandas as pd
+
+    from .corpus.slices import resolve_slices
+    from .embed.ppmi_svd import PpmiSvdSettings
+    from .embed.train import model_folder, train_embedding
+    from .embed.word2vec import Word2VecSettings
+    ws = _open(workspace)
+    counts = _count_settings(window, min_count, weighting, max_vocab)
+    if model == "ppmi-svd":
+        settings = PpmiSvdSettings(dim=dim, eig_power=eig_power, alpha=alpha, shift=shift,
+                                   seed=0 if seed is None else seed)
+    else:
+        settings = Word2VecSettings(dim=dim, skip_gram=not cbow, negative=negative, epochs=epochs,
+                                    seed=1 if seed is None else seed, workers=workers)
+    rows = []
+    slices = resolve_slices(ws, by, picks)
+    for sl in slices:
+        _say(ctx, f"training {model} on slice {sl.name} ({sl.n_documents} documents, {sl.n_tokens} tokens)")
+        emb = train_embedding(ws, sl, model, counts, settings, progress=_progress(ctx))
+        rows.append({"model": model, "slice": sl.name, "documents": sl.n_documents, "tokens": sl.n_tokens,
+                     "words": len(emb.words), "dim": emb.dim, "folder": str(model_folder(ws, model, sl.name))})
+    _emit_table(pd.DataFrame(rows), fmt, out, ctx)
+
+
+@cli.command()
+@workspace_option()
+@output_options
+@click.pass_context
+def models(ctx, workspace, fmt, out):
+    """List the models stored in a workspace.
+
+    Example:  tracer models -w work/
+    """
+    from .embed.train import list_models
+    _emit_table(list_models(_open(workspace)), fmt, out, ctx)
+
+
+@cli.command()
+@workspace_option()
+@click.option("--model", type=click.Choice(["ppmi-svd", "word2vec"]), default="ppmi-svd", show_default=True)
+@click.option("--slice", "slice_name", default="all", show_default=True, help="Slice the model was trained on.")
+@click.option("-o", "--out", type=click.Path(dir_okay=False, path_type=Path), required=True,
+              help="File to write.")
+@click.option("--binary", is_flag=True, help="word2vec binary format instead of text.")
+@click.pass_context
+def export(ctx, workspace, model, slice_name, out, binary):
+    """Write a stored model in the word2vec format that gensim and other tools read.
+
+    Example:  tracer export -w work/ --model ppmi-svd --slice all -o vectors.txt
+    """
+    from .corpus.slices import slice_from_spec
+    from .embed.train import load_embedding
+    ws = _open(workspace)
+    emb = load_embedding(ws, model, slice_from_spec(ws, slice_name).name)
+    emb.save_word2vec_format(out, binary=binary)
+    _say(ctx, f"wrote {len(emb.words)} vectors of {emb.dim} dimensions to {out}")
+
+
+@cli.command()
+@click.argument("words")
+@workspace_option()
+@click.option("--model", type=click.Choice(["ppmi-svd", "word2vec"]), default="ppmi-svd", show_default=True)
+@click.option("--slice", "slice_name", default="all", show_default=True, help="Slice the model was trained on.")
+@click.option("-n", "--top", type=click.IntRange(min=1), default=10, show_default=True)
+@output_options
+@click.pass_context
+def neighbours(ctx, words, workspace, model, slice_name, top, fmt, out):
+    """Nearest words by cosine similarity in a stored model (comma-separated WORDS).
+
+    Example:  tracer neighbours -w work/ harbour,wheat --model word2vec
+    """
+    import pandas as pd
+
+    from .corpus.slices import slice_from_spec
+    from .embed.train import load_embedding
+    ws = _open(workspace)
+    emb = load_embedding(ws, model, slice_from_spec(ws, slice_name).name)
+    rows = [{"word": w, "rank": r + 1, "neighbour": n, "cosine": s}
+            for w in _words(words) for r, (n, s) in enumerate(emb.neighbours(w, top))]
+    _emit_table(pd.DataFrame(rows), fmt, out, ctx)
+
+
+# ---- demo -------------------------------------------------------------------------------------
+
+
+@cli.command()
+@workspace_option(required=False)
+@click.pass_context
+def demo(ctx, workspace):
+    """Run the whole path on the bundled demo archive and say where the results are.
+
+    Example:  tracer demo -w demo-work
+    """
+    from .demo import run_demo
+    workspace = workspace or Path("tracer-demo")
+    result = run_demo(workspace, progress=_progress(ctx), say=functools.partial(_say, ctx))
+    click.echo(result.text, nl=False)
+
+
+def main() -> None:
+    cli(prog_name="tracer")
+
+
+if __name__ == "__main__":
+    main()
