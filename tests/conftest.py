@@ -1,0 +1,71 @@
+"""Shared fixtures: small corpora written to temporary folders, and gensim's bundled data."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+
+from tracer.corpus.ingest import ingest
+from tracer.corpus.workspace import Workspace
+
+
+def gensim_data(name: str) -> Path:
+    from gensim.test.utils import datapath
+    return Path(datapath(name))
+
+
+def write_jsonl(path: Path, records: list[dict]) -> Path:
+    with open(path, "w", encoding="utf-8") as f:
+        for r in records:
+            f.write(json.dumps(r) + "\n")
+    return path
+
+
+SMALL_RECORDS = [
+    {"id": "d1", "source": "Alpha", "time": 1961, "text": "The cat sat on the mat. The cat ate."},
+    {"id": "d2", "source": "Alpha", "time": "1965-06-01", "text": "A dog sat on the log. The dog ran."},
+    {"id": "d3", "source": "Beta", "time": "1972", "text": "The cat and the dog sat together on the mat."},
+    {"id": "d4", "source": "Beta", "date": "1979-12-31", "text": "The bird sang. The cat watched the bird."},
+]
+
+
+@pytest.fixture
+def small_jsonl(tmp_path) -> Path:
+    return write_jsonl(tmp_path / "small.jsonl", SMALL_RECORDS)
+
+
+@pytest.fixture
+def small_ws(tmp_path, small_jsonl) -> Workspace:
+    ingest(tmp_path / "ws", [small_jsonl])
+    return Workspace(tmp_path / "ws")
+
+
+LEE_SOURCES = ["Ashford Post", "Bramble Wire", "Cinder Daily"]
+
+
+def lee_documents() -> list[str]:
+    """gensim's Lee background corpus: 300 news documents, one per line."""
+    return gensim_data("lee_background.cor").read_text(encoding="utf-8").splitlines()
+
+
+@pytest.fixture(scope="session")
+def lee_ws(tmp_path_factory) -> Workspace:
+    """The Lee corpus, split over three invented sources and given invented years."""
+    folder = tmp_path_factory.mktemp("lee")
+    records = [{"id": f"lee-{i:03d}", "source": LEE_SOURCES[i % 3], "time": 1990 + i % 20, "text": t}
+               for i, t in enumerate(lee_documents()) if t.strip()]
+    write_jsonl(folder / "lee.jsonl", records)
+    ingest(folder / "ws", [folder / "lee.jsonl"])
+    return Workspace(folder / "ws")
+
+
+DEMO_CORPUS = Path(__file__).resolve().parent.parent / "corpora_demo" / "archive.jsonl.gz"
+
+
+@pytest.fixture(scope="session")
+def demo_ws(tmp_path_factory) -> Workspace:
+    folder = tmp_path_factory.mktemp("demo")
+    ingest(folder / "ws", [DEMO_CORPUS])
+    return Workspace(folder / "ws")
