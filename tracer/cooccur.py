@@ -28,18 +28,19 @@ from __future__ import annotations
 
 import dataclasses
 import os
+import typing
 from concurrent.futures import ThreadPoolExecutor
 from functools import cached_property
 
-import numba
 import numpy as np
 import scipy.sparse as sp
 from tqdm.auto import tqdm
 
+from . import _kernels as _k
 from .errors import SettingError, SliceError
 
 WEIGHTINGS = ("uniform", "harmonic", "linear")
-DEFAULT_SHARD_TOKENS = 8_000_000
+DEFAULT_SHARD_TOKENS = 25_000_000
 
 
 @dataclasses.dataclass(frozen=True)
@@ -148,181 +149,6 @@ def build_vocab(tokens: np.ndarray, doc_offsets: np.ndarray, doc_weights: np.nda
     return ModelVocab([words[i] for i in order], order.astype(np.int64), counts[order].astype(np.int64))
 
 
-_DIST_BITS = 5
-_COL_BITS = 32 - _DIST_BITS
-_COL_MASK = (1 << _COL_BITS) - 1
-MAX_WINDOW = 1 << _DIST_BITS
-MAX_WORDS = 1 << _COL_BITS
-
-
-@numba.njit(nogil=True, cache=True)
-def _map_ids(tokens, starts, ends, id_map):  # pragma: no cover - compiled
-    """Model ids of the shard's tokens with out-of-vocabulary tokens removed, and new doc starts."""
-    n_docs = starts.shape[0]
-    total = 0
-    for d in range(n_docs):
-        total += ends[d] - starts[d]
-    ids = np.empty(total, np.int32)
-    kept = np.empty(n_docs + 1, np.int64)
-    kept[0] = 0
-    n = 0
-    for d in range(n_docs):
-        for i in range(starts[d], ends[d]):
-            x = id_map[tokens[i]]
-            ids[n] = x
-            n += x >= 0
-        kept[d + 1] = n
-    return ids[:n], kept
-
-
-@numba.njit(nogil=True, cache=True)
-def _bucket_pairs(ids, kept, doc_w, window, n_words, per_pair):  # pragma: no cover - compiled
-    """Group every pair by its smaller id (the row).
-
-    Each pair is stored as one uint32 code, the larger id with the distance - 1
-    in the top bits; the document weight goes in a parallel array only when the
-    shard's documents differ in weight (``per_pair``).
-    """
-    n_docs = kept.shape[0] - 1
-    row_ptr = np.zeros(n_words + 1, np.int64)
-    for d in range(n_docs):
-        a, b = kept[d], kept[d + 1]
-        for i in range(a, b):
-            x = ids[i]
-            e = min(i + window, b - 1)
-            for j in range(i + 1, e + 1):
-                row_ptr[min(x, ids[j]) + 1] += 1
-    for r in range(n_words):
-        row_ptr[r + 1] += row_ptr[r]
-    n_pairs = row_ptr[n_words]
-    pos = row_ptr[:n_words].copy()
-    code = np.empty(n_pairs, np.uint32)
-    pair_w = np.empty(n_pairs if per_pair else 0, np.float64)
-    for d in range(n_docs):
-        a, b = kept[d], kept[d + 1]
-        w = doc_w[d]
-        for i in range(a, b):
-            x = ids[i]
-            e = min(i + window, b - 1)
-            for j in range(i + 1, e + 1):
-                y = ids[j]
-                lo = min(x, y)
-                p = pos[lo]
-                code[p] = np.uint32(max(x, y)) | np.uint32((j - i - 1) << _COL_BITS)
-                if per_pair:
-                    pair_w[p] = w
-                pos[lo] = p + 1
-    return row_ptr, code, pair_w
-
-
-@numba.njit(nogil=True, cache=True)
-def _reduce_rows(row_ptr, code, pair_w, dist_w, scale, n_words, per_pair):  # pragma: no cover
-    """Sum each row's pairs into CSR arrays with ascending columns, times ``scale``."""
-    acc = np.zeros(n_words, np.float64)
-    mark = np.full(n_words, -1, np.int32)
-    touched = np.empty(n_words, np.int32)
-    indptr = np.zeros(n_words + 1, np.int64)
-    out_idx = np.empty(code.shape[0], np.int32)
-    out_val = np.empty(code.shape[0], np.float64)
-    m = 0
-    for r in range(n_words):
-        t = 0
-        for k in range(row_ptr[r], row_ptr[r + 1]):
-            c = code[k] & _COL_MASK
-            v = dist_w[code[k] >> _COL_BITS]
-            if per_pair:
-                v *= pair_w[k]
-            if mark[c] != r:
-                mark[c] = r
-                acc[c] = v
-                touched[t] = c
-                t += 1
-            else:
-                acc[c] += v
-        if t > 0:
-            if t * 16 > n_words - r:  # a dense row: a scan beats a sort
-                for c in range(r, n_words):
-                    if mark[c] == r:
-                        out_idx[m] = c
-                        out_val[m] = acc[c] * scale
-                        m += 1
-            else:
-                cols = np.sort(touched[:t])
-                for q in range(t):
-                    out_idx[m] = cols[q]
-                    out_val[m] = acc[cols[q]] * scale
-                    m += 1
-        indptr[r + 1] = m
-    return indptr, out_idx[:m].copy(), out_val[:m].copy()
-
-
-@numba.njit(nogil=True, cache=True)
-def _sum_rows(indptrs, indices, data, n_words):  # pragma: no cover - compiled
-    """Sum k CSR matrices given as stacked indptrs (k, n+1) over shared index/data arrays."""
-    k_mats = indptrs.shape[0]
-    acc = np.zeros(n_words, np.float64)
-    mark = np.full(n_words, -1, np.int32)
-    touched = np.empty(n_words, np.int32)
-    indptr = np.zeros(n_words + 1, np.int64)
-    out_idx = np.empty(indices.shape[0], np.int32)
-    out_val = np.empty(indices.shape[0], np.float64)
-    m = 0
-    for r in range(n_words):
-        t = 0
-        for s in range(k_mats):
-            for k in range(indptrs[s, r], indptrs[s, r + 1]):
-                c = indices[k]
-                if mark[c] != r:
-                    mark[c] = r
-                    acc[c] = data[k]
-                    touched[t] = c
-                    t += 1
-                else:
-                    acc[c] += data[k]
-        if t > 0:
-            cols = np.sort(touched[:t])
-            for q in range(t):
-                out_idx[m] = cols[q]
-                out_val[m] = acc[cols[q]]
-                m += 1
-        indptr[r + 1] = m
-    return indptr, out_idx[:m].copy(), out_val[:m].copy()
-
-
-@numba.njit(nogil=True, cache=True)
-def _symmetrize(indptr, indices, data, n_words):  # pragma: no cover - compiled
-    """U + U^T for an upper-triangular CSR U with sorted rows; the diagonal doubles."""
-    length = np.zeros(n_words + 1, np.int64)
-    for r in range(n_words):
-        for k in range(indptr[r], indptr[r + 1]):
-            c = indices[k]
-            length[r + 1] += 1
-            if c != r:
-                length[c + 1] += 1
-    for r in range(n_words):
-        length[r + 1] += length[r]
-    out_idx = np.empty(length[n_words], np.int32)
-    out_val = np.empty(length[n_words], np.float64)
-    fill = length[:n_words].copy()
-    # the mirrored (lower) entries of row c arrive in ascending row order, and all
-    # of them sit left of the diagonal, so each row is written already sorted
-    for r in range(n_words):
-        for k in range(indptr[r], indptr[r + 1]):
-            c = indices[k]
-            if c != r:
-                p = fill[c]
-                out_idx[p] = r
-                out_val[p] = data[k]
-                fill[c] = p + 1
-        for k in range(indptr[r], indptr[r + 1]):
-            c = indices[k]
-            p = fill[r]
-            out_idx[p] = c
-            out_val[p] = data[k] * 2.0 if c == r else data[k]
-            fill[r] = p + 1
-    return length, out_idx, out_val
-
-
 _MAX_WEIGHT_GROUPS = 32
 
 
@@ -353,39 +179,194 @@ def make_shards(doc_offsets: np.ndarray, doc_weights: np.ndarray,
         groups = [(docs, None)]
     shards = []
     for members, weight in groups:
-        lengths = doc_offsets[members + 1] - doc_offsets[members]
-        shard_of = (np.cumsum(lengths) - 1) // max(1, shard_tokens)
-        cuts = np.flatnonzero(np.diff(shard_of)) + 1
-        shards.extend(Shard(part, weight) for part in np.split(members, cuts))
+        shards.extend(Shard(part, weight) for part in _split_by_tokens(doc_offsets, members, shard_tokens))
     return shards
 
 
+def _split_by_tokens(doc_offsets: np.ndarray, docs: np.ndarray, size: int) -> list[np.ndarray]:
+    """Consecutive runs of ``docs`` holding about ``size`` tokens each (whole documents)."""
+    lengths = doc_offsets[docs + 1] - doc_offsets[docs]
+    part_of = (np.cumsum(lengths) - 1) // max(1, size)
+    return np.split(docs, np.flatnonzero(np.diff(part_of)) + 1)
+
+
+def _row_blocks(row_ptr: np.ndarray, n_blocks: int) -> list[tuple[int, int]]:
+    """Split rows into contiguous blocks holding about equal numbers of entries."""
+    n = len(row_ptr) - 1
+    targets = np.linspace(0, row_ptr[-1], n_blocks + 1)[1:-1]
+    cuts = np.unique(np.concatenate([[0], np.searchsorted(row_ptr, targets), [n]]))
+    return [(int(a), int(b)) for a, b in zip(cuts[:-1], cuts[1:]) if b > a] or [(0, n)]
+
+
+class _Rows(typing.NamedTuple):
+    """A sparse matrix as row ranges into shared arrays: row r is ``[row_start[r], row_end[r])``.
+
+    Like CSR, but a row block may leave unused space after it, so threads can
+    fill blocks in place without a final copy.
+    """
+
+    row_start: np.ndarray
+    row_end: np.ndarray
+    indices: np.ndarray
+    data: np.ndarray
+
+    def to_csr(self, n_words: int) -> sp.csr_array:
+        """Compact into a CSR matrix (one copy of the entries)."""
+        lengths = self.row_end - self.row_start
+        indptr = np.zeros(n_words + 1, np.int64)
+        np.cumsum(lengths, out=indptr[1:])
+        runs = _runs(self.row_start, self.row_end)
+        indices = np.concatenate([self.indices[a:b] for a, b in runs]) if runs else np.zeros(0, np.int32)
+        data = np.concatenate([self.data[a:b] for a, b in runs]) if runs else np.zeros(0)
+        return to_csr((indptr, indices, data), n_words)
+
+
+def _runs(row_start: np.ndarray, row_end: np.ndarray) -> list[tuple[int, int]]:
+    """Maximal stretches of consecutive rows stored back to back."""
+    breaks = np.flatnonzero(row_start[1:] != row_end[:-1]) + 1
+    firsts = np.concatenate([[0], breaks])
+    lasts = np.concatenate([breaks, [len(row_start)]]) - 1
+    return [(int(row_start[f]), int(row_end[last])) for f, last in zip(firsts, lasts) if row_end[last] > row_start[f]]
+
+
+class _Pool:
+    """Runs kernel calls on ``workers`` threads (the kernels release the GIL)."""
+
+    def __init__(self, workers: int):
+        self.workers = workers
+        self._exec = ThreadPoolExecutor(max_workers=workers) if workers > 1 else None
+
+    def map(self, fn, items):
+        items = list(items)
+        if self._exec is None or len(items) == 1:
+            return [fn(*i) for i in items]
+        return list(self._exec.map(lambda args: fn(*args), items))
+
+    def close(self):
+        if self._exec is not None:
+            self._exec.shutdown()
+
+
+def _scratch(n_words: int):
+    """A zeroed accumulator and a column list for one thread's reductions."""
+    return np.zeros(n_words, np.float64), np.empty(n_words, np.int32)
+
+
 def count_shard(tokens: np.ndarray, doc_offsets: np.ndarray, shard: Shard, doc_weights: np.ndarray,
-                id_map: np.ndarray, n_words: int, settings: CountSettings) -> tuple:
+                id_map: np.ndarray, n_words: int, settings: CountSettings, pool: _Pool) -> _Rows:
     """Upper triangle (with the diagonal) of the weighted counts of one shard of documents.
 
     Returns
     -------
-    (indptr, indices, data) : CSR arrays of shape (n_words, n_words), sorted rows
+    _Rows, shape (n_words, n_words), columns within a row unsorted
         ``C = U + U.T`` once all shards are summed.
     """
-    docs = shard.docs
-    ids, kept = _map_ids(np.asarray(tokens), doc_offsets[docs], doc_offsets[docs + 1], id_map)
+    tokens = np.asarray(tokens)
+    doc_w = np.asarray(doc_weights, dtype=np.float64)
+    window = settings.window
     per_pair = shard.weight is None
-    row_ptr, code, pair_w = _bucket_pairs(ids, kept, np.asarray(doc_weights, dtype=np.float64)[docs],
-                                          settings.window, n_words, per_pair)
-    return _reduce_rows(row_ptr, code, pair_w, settings.distance_weights(),
-                        1.0 if per_pair else shard.weight, n_words, per_pair)
+    n_shard_tokens = int((doc_offsets[shard.docs + 1] - doc_offsets[shard.docs]).sum())
+    parts = _split_by_tokens(doc_offsets, shard.docs, -(-n_shard_tokens // pool.workers))
+
+    def map_part(docs):
+        starts, ends = doc_offsets[docs], doc_offsets[docs + 1]
+        ids, kept = np.empty(int((ends - starts).sum()), np.int32), np.empty(len(docs) + 1, np.int64)
+        n = _k.map_ids(tokens, starts, ends, id_map, ids, kept)
+        length = np.zeros(n_words, np.int64)
+        _k.row_lengths(ids[:n], kept, window, length)
+        return ids[:n], kept, length
+
+    mapped = pool.map(map_part, [(d,) for d in parts])
+    row_ptr = np.zeros(n_words + 1, np.int64)
+    np.cumsum(np.sum([m[2] for m in mapped], axis=0), out=row_ptr[1:])
+    code = np.empty(row_ptr[-1], np.uint32)
+    pair_w = np.empty(row_ptr[-1] if per_pair else 0, np.float64)
+    # each part writes its pairs of row r after those of the parts before it
+    pool.map(_k.scatter_pairs, [(ids, kept, doc_w[d], window, start, code, pair_w, per_pair) for (ids, kept, _), d, start
+                                in zip(mapped, parts, _block_offsets(row_ptr[:-1], [m[2] for m in mapped]))])
+    del mapped
+    # a row's sums never outnumber its pairs and are written after the row is read,
+    # so the column ids can overwrite the pair codes in place (no second array to touch)
+    out = _Rows(np.zeros(n_words, np.int64), np.zeros(n_words, np.int64),
+                code.view(np.int32), np.empty(row_ptr[-1], np.float64))
+    scale = 1.0 if per_pair else shard.weight
+    uniform = settings.weighting == "uniform"
+    dist_w = settings.distance_weights()
+
+    def reduce_block(r0, r1):
+        _k.reduce_rows(row_ptr, code, pair_w, dist_w, scale, r0, r1, per_pair, uniform, *_scratch(n_words), *out)
+
+    pool.map(reduce_block, _row_blocks(row_ptr, 2 * pool.workers))
+    return out
 
 
-def sum_upper(parts: list[tuple], n_words: int) -> tuple:
-    """Sum CSR arrays (indptr, indices, data) of one shape, rows sorted, into one."""
+def sum_upper(parts: list[_Rows], n_words: int, pool: _Pool) -> _Rows:
+    """Sum matrices of one shape into one (columns unsorted)."""
     if len(parts) == 1:
         return parts[0]
-    sizes = np.cumsum([0] + [len(p[1]) for p in parts])
-    indptrs = np.stack([p[0] + off for p, off in zip(parts, sizes[:-1])])
-    return _sum_rows(indptrs, np.concatenate([p[1] for p in parts]), np.concatenate([p[2] for p in parts]),
-                     n_words)
+    sizes = np.cumsum([0] + [len(p.indices) for p in parts])
+    starts = np.stack([p.row_start + off for p, off in zip(parts, sizes[:-1])])
+    ends = np.stack([p.row_end + off for p, off in zip(parts, sizes[:-1])])
+    indices = np.concatenate([p.indices for p in parts])
+    data = np.concatenate([p.data for p in parts])
+    combined = np.zeros(n_words + 1, np.int64)
+    np.cumsum((ends - starts).sum(axis=0), out=combined[1:])
+    out = _Rows(np.zeros(n_words, np.int64), np.zeros(n_words, np.int64),
+                np.empty(combined[-1], np.int32), np.empty(combined[-1], np.float64))
+
+    def sum_block(r0, r1):
+        _k.sum_rows(starts, ends, indices, data, r0, r1, combined[r0], *_scratch(n_words), *out)
+
+    pool.map(sum_block, _row_blocks(combined, 2 * pool.workers))
+    return out
+
+
+def symmetrize_arrays(upper: _Rows, n_words: int, pool: _Pool) -> tuple:
+    """From the upper triangle U (rows in any order) to CSR arrays of U + U^T, rows sorted.
+
+    Row x of the result is its lower part (columns < x, the mirror of U's
+    column x) then its upper part (the diagonal, doubled, then columns > x).
+    Both parts are written by counting-sort scatters, so they come out sorted
+    without sorting anything.
+    """
+    upper_len = upper.row_end - upper.row_start
+    upper_ptr = np.zeros(n_words + 1, np.int64)
+    np.cumsum(upper_len, out=upper_ptr[1:])
+    blocks = _row_blocks(upper_ptr, pool.workers)
+    col_counts = [np.zeros(n_words, np.int64) for _ in blocks]
+    pool.map(_k.column_counts, [(upper.row_start, upper.row_end, upper.indices, r0, r1, cnt)
+                                for (r0, r1), cnt in zip(blocks, col_counts)])
+    lower_len = np.sum(col_counts, axis=0)
+    full_ptr = np.zeros(n_words + 1, np.int64)
+    np.cumsum(lower_len + upper_len, out=full_ptr[1:])
+    out_idx = np.empty(full_ptr[-1], np.int32)
+    out_val = np.empty(full_ptr[-1], np.float64)
+    diag = np.zeros(n_words, np.float64)
+    pool.map(_k.symmetrize_lower, [(upper.row_start, upper.row_end, upper.indices, upper.data, r0, r1, start,
+                                    out_idx, out_val, diag)
+                                   for (r0, r1), start in zip(blocks, _block_offsets(full_ptr[:-1], col_counts))])
+    has_diag = diag > 0
+    upper_start = full_ptr[:-1] + lower_len
+    out_idx[upper_start[has_diag]] = np.flatnonzero(has_diag)
+    out_val[upper_start[has_diag]] = 2.0 * diag[has_diag]
+    lower_ptr = np.zeros(n_words + 1, np.int64)
+    np.cumsum(lower_len, out=lower_ptr[1:])
+    lblocks = _row_blocks(lower_ptr, pool.workers)
+    counts = [np.zeros(n_words, np.int64) for _ in lblocks]
+    pool.map(_k.lower_column_counts, [(full_ptr, lower_len, out_idx, r0, r1, cnt)
+                                      for (r0, r1), cnt in zip(lblocks, counts)])
+    pool.map(_k.symmetrize_upper, [(full_ptr, lower_len, r0, r1, start, out_idx, out_val) for (r0, r1), start
+                                   in zip(lblocks, _block_offsets(upper_start + has_diag, counts))])
+    return full_ptr, out_idx, out_val
+
+
+def _block_offsets(base: np.ndarray, counts: list[np.ndarray]) -> list[np.ndarray]:
+    """Where each block's entries of each row start: after ``base`` and the earlier blocks' entries."""
+    starts, pos = [], base.copy()
+    for cnt in counts:
+        starts.append(pos.copy())
+        pos += cnt
+    return starts
 
 
 def to_csr(arrays: tuple, n_words: int) -> sp.csr_array:
@@ -398,13 +379,6 @@ def to_csr(arrays: tuple, n_words: int) -> sp.csr_array:
     return sp.csr_array((data, indices, indptr), shape=(n_words, n_words), copy=False)
 
 
-def symmetrize(upper: sp.csr_array) -> sp.csr_array:
-    """From upper-triangle counts U (canonical CSR) to the symmetric matrix U + U^T."""
-    n = upper.shape[0]
-    return to_csr(_symmetrize(upper.indptr.astype(np.int64), upper.indices.astype(np.int32),
-                              upper.data.astype(np.float64), n), n)
-
-
 def default_workers() -> int:
     """Cores this process may use (at most 8)."""
     n = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
@@ -414,8 +388,8 @@ def default_workers() -> int:
 def count_matrix(tokens: np.ndarray, doc_offsets: np.ndarray, doc_weights: np.ndarray,
                  vocab: ModelVocab, n_full: int, settings: CountSettings, *,
                  workers: int | None = None, shard_tokens: int = DEFAULT_SHARD_TOKENS,
-                 progress: bool = False) -> sp.csr_array:
-    """Weighted symmetric co-occurrence counts over the model vocabulary.
+                 symmetric: bool = True, progress: bool = False) -> sp.csr_array:
+    """Weighted co-occurrence counts over the model vocabulary.
 
     Parameters
     ----------
@@ -431,16 +405,18 @@ def count_matrix(tokens: np.ndarray, doc_offsets: np.ndarray, doc_weights: np.nd
         Size of the full vocabulary (ids in ``tokens`` are below it).
     settings : CountSettings
     workers : int, optional
-        Threads counting shards at once (default: the cores available).
+        Threads (default: the cores available).
     shard_tokens : int
-        Tokens per shard.
+        Tokens per shard; shards are counted one after another and summed.
+    symmetric : bool
+        Return ``C`` (default, canonical) or only its upper triangle ``U`` with
+        ``C = U + U.T`` (columns within a row unsorted; no duplicates).
     progress : bool
         Show a progress bar over shards.
 
     Returns
     -------
     scipy.sparse.csr_array of float64, shape (len(vocab), len(vocab))
-        Symmetric, canonical (sorted indices, no duplicates).
     """
     doc_weights = np.asarray(doc_weights, dtype=np.float64)
     if doc_weights.shape != (len(doc_offsets) - 1,):
@@ -448,37 +424,30 @@ def count_matrix(tokens: np.ndarray, doc_offsets: np.ndarray, doc_weights: np.nd
                            f"got shape {doc_weights.shape}")
     if np.any(doc_weights < 0) or not np.all(np.isfinite(doc_weights)):
         raise SettingError("document weights must be finite and non-negative")
-    if settings.window > MAX_WINDOW:
-        raise SettingError(f"window must be at most {MAX_WINDOW}; got {settings.window}")
+    if settings.window > _k.MAX_WINDOW:
+        raise SettingError(f"window must be at most {_k.MAX_WINDOW}; got {settings.window}")
     n = len(vocab)
-    if n >= MAX_WORDS:
-        raise SettingError(f"the vocabulary has {n} words, more than the counter takes ({MAX_WORDS - 1}); "
+    if n >= _k.MAX_WORDS:
+        raise SettingError(f"the vocabulary has {n} words, more than the counter takes ({_k.MAX_WORDS - 1}); "
                            "raise --min-count or set --max-vocab")
     id_map = vocab.id_map(n_full)
     shards = make_shards(doc_offsets, doc_weights, shard_tokens)
     if not shards:
         return sp.csr_array((n, n), dtype=np.float64)
-    # the compiled kernels take int32 ids; check the bound once here
-    if n_full and int(np.asarray(tokens).max(initial=0)) >= n_full:
-        raise SettingError("token ids exceed the vocabulary size given")
-    workers = workers or default_workers()
     tokens = np.asarray(tokens)
-
-    def run(shard):
-        return count_shard(tokens, doc_offsets, shard, doc_weights, id_map, n, settings)
-
-    with tqdm(total=len(shards), desc="count", unit=" shards", disable=not progress, leave=False) as bar:
+    if len(tokens) and int(tokens.max()) >= n_full:  # the kernels index id_map without bounds checks
+        raise SettingError(f"token ids reach {int(tokens.max())}, beyond the vocabulary size given ({n_full})")
+    pool = _Pool(workers or default_workers())
+    try:
         parts = []
-        if workers == 1 or len(shards) == 1:
+        with tqdm(total=len(shards), desc="count", unit=" shards", disable=not progress, leave=False) as bar:
             for shard in shards:
-                parts.append(run(shard))
+                parts.append(count_shard(tokens, doc_offsets, shard, doc_weights, id_map, n, settings, pool))
                 bar.update()
-        else:
-            with ThreadPoolExecutor(max_workers=workers) as pool:
-                for m in pool.map(run, shards):
-                    parts.append(m)
-                    bar.update()
-    return to_csr(_symmetrize(*sum_upper(parts, n), n), n)
+        upper = sum_upper(parts, n, pool)
+        return to_csr(symmetrize_arrays(upper, n, pool), n) if symmetric else upper.to_csr(n)
+    finally:
+        pool.close()
 
 
 @dataclasses.dataclass(frozen=True)

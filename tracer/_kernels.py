@@ -1,0 +1,197 @@
+"""Compiled kernels of the co-occurrence counter (numba, nogil: threads run them in parallel).
+
+The counter works in three steps, each split so that threads share the work:
+
+1. ``map_ids`` / ``row_lengths``: per part of the documents, model ids with
+   out-of-vocabulary tokens removed, and the number of pairs per row (a pair's
+   row is its smaller id);
+2. ``scatter_pairs``: every part writes its pairs into one shared array, row by
+   row, each part into its own reserved range of each row (no two threads
+   write the same place);
+3. ``reduce_rows``: a block of rows at a time, the pairs of a row are summed
+   with a dense accumulator into CSR arrays (columns unsorted).
+
+A pair is stored as one uint32: the larger id, with the distance - 1 in the top
+``DIST_BITS`` bits. ``symmetrize_lower`` and ``symmetrize_upper`` turn the summed
+upper triangle U into U + U^T with sorted rows: two mirror passes, each a
+counting-sort scatter, in row blocks.
+"""
+
+import numba
+import numpy as np
+
+DIST_BITS = 5
+COL_BITS = 32 - DIST_BITS
+COL_MASK = (1 << COL_BITS) - 1
+MAX_WINDOW = 1 << DIST_BITS
+MAX_WORDS = 1 << COL_BITS
+
+# pragma: no cover - the bodies below are compiled; tests reach them through tracer.cooccur
+
+
+@numba.njit(nogil=True, cache=True)
+def map_ids(tokens, starts, ends, id_map, ids, kept):
+    """Write the model ids of the documents' tokens, out-of-vocabulary ones removed, into ``ids``;
+    ``kept[d]`` is where document d starts there. Returns the number of ids written."""
+    n_docs = starts.shape[0]
+    kept[0] = 0
+    n = 0
+    for d in range(n_docs):
+        for i in range(starts[d], ends[d]):
+            x = id_map[tokens[i]]
+            ids[n] = x
+            n += x >= 0
+        kept[d + 1] = n
+    return n
+
+
+@numba.njit(nogil=True, cache=True)
+def row_lengths(ids, kept, window, length):
+    """Add the pairs per row (the smaller id of the pair) to ``length``."""
+    n_docs = kept.shape[0] - 1
+    for d in range(n_docs):
+        a, b = kept[d], kept[d + 1]
+        for i in range(a, b):
+            x = ids[i]
+            e = min(i + window, b - 1)
+            for j in range(i + 1, e + 1):
+                length[min(x, ids[j])] += 1
+
+
+@numba.njit(nogil=True, cache=True)
+def scatter_pairs(ids, kept, doc_w, window, pos, code, pair_w, per_pair):
+    """Write each pair's code (and weight if ``per_pair``) at ``pos[row]``, advancing it."""
+    n_docs = kept.shape[0] - 1
+    for d in range(n_docs):
+        a, b = kept[d], kept[d + 1]
+        w = doc_w[d]
+        for i in range(a, b):
+            x = ids[i]
+            e = min(i + window, b - 1)
+            for j in range(i + 1, e + 1):
+                y = ids[j]
+                lo = min(x, y)
+                p = pos[lo]
+                code[p] = np.uint32(max(x, y)) | np.uint32((j - i - 1) << COL_BITS)
+                if per_pair:
+                    pair_w[p] = w
+                pos[lo] = p + 1
+
+
+@numba.njit(nogil=True, cache=True)
+def reduce_rows(row_ptr, code, pair_w, dist_w, scale, r0, r1, per_pair, uniform,
+                acc, touched, row_start, row_end, out_idx, out_val):
+    """Sum the pairs of rows r0..r1-1 into ``out_idx``/``out_val`` from position ``row_ptr[r0]``.
+
+    The block can never hold more entries than pairs, so its output fits in the
+    space its pairs take; row r's entries end up in ``[row_start[r], row_end[r])``.
+    ``out_idx`` may be ``code`` itself: a row is written only after it is read, and
+    never beyond its own end.
+    Columns come in order of first appearance, not sorted: sorting here cost more
+    than the whole reduction, and the symmetrize passes put rows in order with
+    two linear scatters. Every pair's value is positive (zero-weight documents
+    are never counted), so a zero in the accumulator ``acc`` (all zeros on entry
+    and on exit) means "not seen in this row yet".
+    """
+    m = row_ptr[r0]
+    for r in range(r0, r1):
+        row_start[r] = m
+        t = 0
+        for k in range(row_ptr[r], row_ptr[r + 1]):
+            c = code[k] & COL_MASK
+            if uniform:
+                v = 1.0
+            else:
+                v = dist_w[code[k] >> COL_BITS]
+            if per_pair:
+                v *= pair_w[k]
+            if acc[c] == 0.0:
+                touched[t] = c
+                t += 1
+            acc[c] += v
+        for q in range(t):
+            c = touched[q]
+            out_idx[m] = c
+            out_val[m] = acc[c] * scale
+            acc[c] = 0.0
+            m += 1
+        row_end[r] = m
+
+
+@numba.njit(nogil=True, cache=True)
+def sum_rows(starts, ends, indices, data, r0, r1, out_start, acc, touched, row_start, row_end, out_idx, out_val):
+    """Sum k matrices given as row ranges (``starts``, ``ends``: shape (k, n)) over shared arrays,
+    for rows r0..r1-1, writing from ``out_start``. Values are positive; columns left unsorted."""
+    k_mats = starts.shape[0]
+    m = out_start
+    for r in range(r0, r1):
+        row_start[r] = m
+        t = 0
+        for s in range(k_mats):
+            for k in range(starts[s, r], ends[s, r]):
+                c = indices[k]
+                if acc[c] == 0.0:
+                    touched[t] = c
+                    t += 1
+                acc[c] += data[k]
+        for q in range(t):
+            c = touched[q]
+            out_idx[m] = c
+            out_val[m] = acc[c]
+            acc[c] = 0.0
+            m += 1
+        row_end[r] = m
+
+
+@numba.njit(nogil=True, cache=True)
+def column_counts(row_start, row_end, indices, r0, r1, count):
+    """Add the off-diagonal entries per column in rows r0..r1-1 of an upper triangle to ``count``."""
+    for r in range(r0, r1):
+        for k in range(row_start[r], row_end[r]):
+            c = indices[k]
+            if c != r:
+                count[c] += 1
+
+
+@numba.njit(nogil=True, cache=True)
+def symmetrize_lower(row_start, row_end, indices, data, r0, r1, lower_pos, out_idx, out_val, diag):
+    """First pass of U + U^T: the mirror image of U's rows r0..r1-1 into the lower parts.
+
+    Entry (r, c) of U, c > r, goes to row c, column r, at ``lower_pos[c]`` (this
+    block's own range of row c). Rows r arrive in ascending order, so every lower
+    part comes out sorted. Diagonal values are collected in ``diag``.
+    """
+    for r in range(r0, r1):
+        for k in range(row_start[r], row_end[r]):
+            c = indices[k]
+            if c != r:
+                q = lower_pos[c]
+                out_idx[q] = r
+                out_val[q] = data[k]
+                lower_pos[c] = q + 1
+            else:
+                diag[r] = data[k]
+
+
+@numba.njit(nogil=True, cache=True)
+def lower_column_counts(full_ptr, lower_len, out_idx, r0, r1, count):
+    """Add the entries per column in the lower parts of rows r0..r1-1 to ``count``."""
+    for c in range(r0, r1):
+        for q in range(full_ptr[c], full_ptr[c] + lower_len[c]):
+            count[out_idx[q]] += 1
+
+
+@numba.njit(nogil=True, cache=True)
+def symmetrize_upper(full_ptr, lower_len, r0, r1, upper_pos, out_idx, out_val):
+    """Second pass: the upper parts, as the mirror image of the (sorted) lower parts.
+
+    Lower entry (c, x), x < c, of rows c in r0..r1-1 goes to row x, column c, at
+    ``upper_pos[x]``; rows c arrive in ascending order, so upper parts come out sorted.
+    """
+    for c in range(r0, r1):
+        for q in range(full_ptr[c], full_ptr[c] + lower_len[c]):
+            x = out_idx[q]
+            p = upper_pos[x]
+            out_idx[p] = c
+            out_val[p] = out_val[q]
+            upper_pos[x] = p + 1
