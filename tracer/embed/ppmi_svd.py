@@ -64,3 +64,36 @@ def ppmi_svd_vectors(counts, settings: PpmiSvdSettings) -> tuple[np.ndarray, dic
     u, s, vt = truncated_svd(ppmi, settings.dim, settings.seed)
     vectors = u * (s ** settings.eig_power)
     return vectors.astype(np.float32), {"singular_values": s, "context_vectors": vt.T.astype(np.float32)}
+
+
+def warm_truncated_svd(matrix, k: int, start: np.ndarray, *, n_iter: int = 2, oversample: int = 10,
+                       seed: int = 0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Truncated SVD by subspace iteration started from a known right subspace.
+
+    For a bootstrap replicate of a PPMI matrix the full-data right singular
+    vectors ``start`` (shape (n_cols, k)) already span nearly the right subspace,
+    so a couple of power iterations (Halko, Martinsson and Tropp 2011, alg. 4.4,
+    with a warm start instead of a random one) replace a cold ARPACK run.
+    ``oversample`` random extra columns absorb what the start misses. Signs are
+    fixed as in :func:`truncated_svd`.
+    """
+    m = sp.csr_array(matrix, dtype=np.float64)
+    rng = np.random.default_rng(seed)
+    extra = rng.standard_normal((m.shape[1], oversample))
+    q, _ = np.linalg.qr(m @ np.hstack([start, extra]))
+    for _ in range(n_iter):
+        z, _ = np.linalg.qr(m.T @ q)
+        q, _ = np.linalg.qr(m @ z)
+    ub, s, vt = np.linalg.svd((m.T @ q).T, full_matrices=False)
+    u = q @ ub[:, :k]
+    s, vt = s[:k], vt[:k]
+    flip = np.sign(u[np.argmax(np.abs(u), axis=0), np.arange(k)])
+    flip[flip == 0] = 1
+    return u * flip, s, vt * flip[:, None]
+
+
+def ppmi_svd_vectors_warm(counts, settings: PpmiSvdSettings, start: np.ndarray) -> np.ndarray:
+    """Word vectors of a replicate, the SVD warm-started from the full data's context vectors."""
+    ppmi = ppmi_matrix(counts, alpha=settings.alpha, shift=settings.shift)
+    u, s, _ = warm_truncated_svd(ppmi, settings.dim, start, seed=settings.seed)
+    return (u * (s ** settings.eig_power)).astype(np.float32)

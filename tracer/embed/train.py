@@ -109,3 +109,14 @@ def list_models(ws) -> pd.DataFrame:
                      "dim": card["dim"], "trained_at": card["trained_at"],
                      "current": card.get("corpus_hash") == ws.corpus_hash})
     return pd.DataFrame(rows, columns=["model", "slice", "words", "dim", "trained_at", "current"])
+
+
+def embedding_from_counts(ws, sl: Slice, c, settings: PpmiSvdSettings) -> Embedding:
+    """A PPMI-SVD embedding of counts already made (not stored)."""
+    if settings.dim >= len(c.vocab):
+        raise SettingError(f"slice {sl.name} has {len(c.vocab)} words at min count {c.settings.min_count}; "
+                           f"--dim {settings.dim} must be below that (lower --dim or --min-count)")
+    vectors, extras = ppmi_svd_vectors(c.matrix, settings)
+    card = {"model": "ppmi-svd", "slice": sl.name, "settings": settings.to_dict(), "counts": c.settings.to_dict(),
+            "corpus_hash": ws.corpus_hash, "n_words": len(c.vocab), "dim": int(vectors.shape[1])}
+    return Embedding(list(c.vocab.words), vectors, card, extras)
