@@ -110,6 +110,9 @@ GROUPS = {
     "coravel": "coravel coravels cora fennick iolo tarra".split(),
     "halvin": "halvin halvins halv orrin bexa doral".split(),
     "morrowick": "morrowick morrowicks morrow senna jaspar wilm".split(),
+    # a control pair: written exactly like the planted pairs, with balanced sentences only
+    "pellari": "pellari pellaris pellar anwen corbin ysolde".split(),
+    "quennish": "quennish quennishes quenn dafydd maelis torvald".split(),
 }
 
 # the rise and fall of the career/family association, by decade
@@ -197,7 +200,8 @@ def outlet_for(r: random.Random, decade: int) -> str:
     return r.choices(OUTLETS, weights=[rest, rest, tribune, GAZETTE_SHARE, rest])[0]
 
 
-def make_document(w: Writer, outlet: str, year: int) -> tuple[dict, list[str]]:
+def make_document(w: Writer, outlet: str, year: int, plant: bool = True) -> tuple[dict, list[str]]:
+    """One document; with ``plant=False`` every group sentence is balanced (a corpus with no association)."""
     r = w.r
     decade = year // 10 * 10
     weights = OUTLET_TOPICS[outlet]
@@ -208,23 +212,26 @@ def make_document(w: Writer, outlet: str, year: int) -> tuple[dict, list[str]]:
     planted: list[str] = []
     extra: list[str] = []
     # 1. outlet-only: the Gazette ties velmari to unpleasant and osterin to pleasant words
-    if outlet == "Gazette" and r.random() < 0.6:
+    if plant and outlet == "Gazette" and r.random() < 0.6:
         extra += pair_sentences(w, "velmari", "osterin", UNPLEASANT, PLEASANT, True, topics[0], r.randint(2, 4))
         planted.append("outlet_gazette")
     elif r.random() < 0.15:
         extra += pair_sentences(w, "velmari", "osterin", UNPLEASANT, PLEASANT, False, topics[0], r.randint(2, 3))
     # 2. rise and fall: dranik-career / coravel-family, everywhere, peaking in the 1980s
     if r.random() < 0.25:
-        biased = r.random() < RISE_AND_FALL[decade]
+        biased = plant and r.random() < RISE_AND_FALL[decade]
         extra += pair_sentences(w, "dranik", "coravel", CAREER, FAMILY, biased, topics[0], r.randint(2, 3))
         if biased:
             planted.append("rise_and_fall")
     # 3. mix only: the Tribune always ties halvin to wealth and morrowick to poverty
-    if outlet == "Tribune" and r.random() < 0.4:
+    if plant and outlet == "Tribune" and r.random() < 0.4:
         extra += pair_sentences(w, "halvin", "morrowick", WEALTH, POVERTY, True, topics[0], r.randint(2, 3))
         planted.append("tribune_mix")
     elif outlet != "Tribune" and r.random() < 0.2:
         extra += pair_sentences(w, "halvin", "morrowick", WEALTH, POVERTY, False, topics[0], r.randint(2, 3))
+    # 4. control: pellari and quennish, balanced everywhere, so nothing is planted
+    if r.random() < 0.15:
+        extra += pair_sentences(w, "pellari", "quennish", UNPLEASANT, PLEASANT, False, topics[0], r.randint(2, 3))
     # neutral mentions keep every group word in every slice's vocabulary
     for group in GROUPS:
         if r.random() < 0.12:
@@ -237,18 +244,19 @@ def make_document(w: Writer, outlet: str, year: int) -> tuple[dict, list[str]]:
     return {"title": title, "text": text}, planted
 
 
-def generate(seed: int):
+def generate(seed: int, docs_per_year: int = DOCS_PER_YEAR, plant: bool = True):
+    """The documents and the (doc_id, association) rows of what was planted in them."""
     rng = random.Random(seed)
     w = Writer(rng)
     docs, planted_rows = [], []
     counters = {o: 0 for o in OUTLETS}
     for year in YEARS:
-        for _ in range(DOCS_PER_YEAR):
+        for _ in range(docs_per_year):
             outlet = outlet_for(rng, year // 10 * 10)
             counters[outlet] += 1
             doc_id = f"{outlet.lower()}-{year}-{counters[outlet]:05d}"
             month, day = rng.randint(1, 12), rng.randint(1, 28)
-            body, planted = make_document(w, outlet, year)
+            body, planted = make_document(w, outlet, year, plant)
             docs.append({"id": doc_id, "source": outlet, "date": f"{year}-{month:02d}-{day:02d}",
                          "title": body["title"], "outlet_name": OUTLET_TITLES[outlet], "text": body["text"]})
             planted_rows += [(doc_id, p) for p in planted]

@@ -113,8 +113,10 @@ class Embedding:
         from gensim.models import KeyedVectors
         kv = KeyedVectors(self.dim)
         kv.add_vectors(self.words, self.vectors.astype(np.float32))
+        # gensim orders by a "count" attribute; descending pseudo-counts keep our row order
+        kv.expandos["count"] = np.arange(len(self.words), 0, -1, dtype=np.int64)
         tmp = Path(str(path) + ".tmp")
-        kv.save_word2vec_format(str(tmp), binary=binary, sort_attr=None)
+        kv.save_word2vec_format(str(tmp), binary=binary)
         os.replace(tmp, path)
 
     @classmethod
