@@ -62,6 +62,39 @@ def slice_options(f):
     return f
 
 
+def model_options(f):
+    """Model choice and settings shared by every command that trains."""
+    opts = [
+        click.option("--model", type=click.Choice(["ppmi-svd", "word2vec"]), default="ppmi-svd", show_default=True),
+        click.option("--dim", type=click.IntRange(min=1), default=100, show_default=True, help="Vector size."),
+        click.option("--seed", type=int, default=None,
+                     help="Random seed (default: 0 for ppmi-svd, 1 for word2vec)."),
+        click.option("--eig-power", type=float, default=0.5, show_default=True, help="ppmi-svd: p in W = U S^p."),
+        click.option("--alpha", type=click.FloatRange(0, 1, min_open=True), default=0.75, show_default=True,
+                     help="Context-distribution smoothing of PMI."),
+        click.option("--shift", type=click.FloatRange(min=1), default=1.0, show_default=True,
+                     help="ppmi-svd: k of shifted PPMI."),
+        click.option("--cbow", is_flag=True, help="word2vec: CBOW instead of skip-gram."),
+        click.option("--negative", type=click.IntRange(min=0), default=5, show_default=True,
+                     help="word2vec: negative samples."),
+        click.option("--epochs", type=click.IntRange(min=1), default=5, show_default=True, help="word2vec: epochs."),
+        click.option("--workers", type=click.IntRange(min=1), default=1, show_default=True,
+                     help="word2vec: training threads (1 gives reproducible vectors)."),
+    ]
+    for opt in reversed(opts):
+        f = opt(f)
+    return f
+
+
+def _model_settings(model, dim, seed, eig_power, alpha, shift, cbow, negative, epochs, workers):
+    from .embed.ppmi_svd import PpmiSvdSettings
+    from .embed.word2vec import Word2VecSettings
+    if model == "ppmi-svd":
+        return PpmiSvdSettings(dim=dim, eig_power=eig_power, alpha=alpha, shift=shift, seed=0 if seed is None else seed)
+    return Word2VecSettings(dim=dim, skip_gram=not cbow, negative=negative, epochs=epochs,
+                            seed=1 if seed is None else seed, workers=workers)
+
+
 def _count_settings(window, min_count, weighting, max_vocab):
     from .cooccur import CountSettings
     return CountSettings(window=window, weighting=weighting, min_count=min_count, max_vocab=max_vocab)
@@ -227,26 +260,12 @@ def pmi(ctx, word, contexts, workspace, window, min_count, weighting, max_vocab,
 
 @cli.command()
 @workspace_option()
-@click.option("--model", type=click.Choice(["ppmi-svd", "word2vec"]), default="ppmi-svd", show_default=True)
 @slice_options
 @count_options
-@click.option("--dim", type=click.IntRange(min=1), default=100, show_default=True, help="Vector size.")
-@click.option("--seed", type=int, default=None, help="Random seed (default: 0 for ppmi-svd, 1 for word2vec).")
-@click.option("--eig-power", type=float, default=0.5, show_default=True,
-              help="ppmi-svd: p in W = U S^p.")
-@click.option("--alpha", type=click.FloatRange(0, 1, min_open=True), default=0.75, show_default=True,
-              help="ppmi-svd: context-distribution smoothing.")
-@click.option("--shift", type=click.FloatRange(min=1), default=1.0, show_default=True,
-              help="ppmi-svd: k of shifted PPMI.")
-@click.option("--cbow", is_flag=True, help="word2vec: CBOW instead of skip-gram.")
-@click.option("--negative", type=click.IntRange(min=0), default=5, show_default=True,
-              help="word2vec: negative samples.")
-@click.option("--epochs", type=click.IntRange(min=1), default=5, show_default=True, help="word2vec: epochs.")
-@click.option("--workers", type=click.IntRange(min=1), default=1, show_default=True,
-              help="word2vec: training threads (1 gives reproducible vectors).")
+@model_options
 @output_options
 @click.pass_context
-def train(ctx, workspace, model, by, picks, window, min_count, weighting, max_vocab, dim, seed, eig_power,
+def train(ctx, workspace, by, picks, window, min_count, weighting, max_vocab, model, dim, seed, eig_power,
           alpha, shift, cbow, negative, epochs, workers, fmt, out):
     """Train PPMI-SVD or word2vec embeddings on each slice and store them in the workspace.
 
@@ -255,25 +274,141 @@ def train(ctx, workspace, model, by, picks, window, min_count, weighting, max_vo
     import pandas as pd
 
     from .corpus.slices import resolve_slices
-    from .embed.ppmi_svd import PpmiSvdSettings
     from .embed.train import model_folder, train_embedding
-    from .embed.word2vec import Word2VecSettings
     ws = _open(workspace)
     counts = _count_settings(window, min_count, weighting, max_vocab)
-    if model == "ppmi-svd":
-        settings = PpmiSvdSettings(dim=dim, eig_power=eig_power, alpha=alpha, shift=shift,
-                                   seed=0 if seed is None else seed)
-    else:
-        settings = Word2VecSettings(dim=dim, skip_gram=not cbow, negative=negative, epochs=epochs,
-                                    seed=1 if seed is None else seed, workers=workers)
+    settings = _model_settings(model, dim, seed, eig_power, alpha, shift, cbow, negative, epochs, workers)
     rows = []
-    slices = resolve_slices(ws, by, picks)
-    for sl in slices:
+    for sl in resolve_slices(ws, by, picks):
         _say(ctx, f"training {model} on slice {sl.name} ({sl.n_documents} documents, {sl.n_tokens} tokens)")
         emb = train_embedding(ws, sl, model, counts, settings, progress=_progress(ctx))
         rows.append({"model": model, "slice": sl.name, "documents": sl.n_documents, "tokens": sl.n_tokens,
                      "words": len(emb.words), "dim": emb.dim, "folder": str(model_folder(ws, model, sl.name))})
     _emit_table(pd.DataFrame(rows), fmt, out, ctx)
+
+
+CAUTIONS = ("Cautions: an association in an embedding is not proof of discrimination; word lists encode "
+            "choices; small corpora give unstable numbers; consequential decisions belong with qualified "
+            "reviewers and the applicable law.")
+
+
+@cli.command()
+@workspace_option()
+@click.option("--tests", "tests_file", type=click.Path(dir_okay=False, path_type=Path), required=True,
+              help="TOML file of association tests.")
+@click.option("--test", "test_names", multiple=True, help="Only this test (repeatable; default: all).")
+@slice_options
+@count_options
+@model_options
+@click.option("--bootstrap", type=click.IntRange(min=0), default=None,
+              help="Document-bootstrap replicates for the interval (default: 20 for ppmi-svd, 0 for word2vec).")
+@click.option("--seeds", type=click.IntRange(min=1), default=1, show_default=True,
+              help="word2vec: models trained with consecutive seeds; mean and spread of the effect size.")
+@click.option("--vectors", type=click.Path(dir_okay=False, path_type=Path), default=None,
+              help="Measure these vectors instead (word2vec text, or binary if the name ends in .bin).")
+@click.option("--min-words", type=click.IntRange(min=1), default=3, show_default=True,
+              help="A target set with fewer words in a slice's vocabulary is not measured there.")
+@click.option("--permutations", type=click.IntRange(min=1), default=10_000, show_default=True,
+              help="Monte Carlo re-partitions when exact enumeration does not fit the budget.")
+@click.option("--exact-budget", type=click.IntRange(min=1), default=200_000, show_default=True,
+              help="Enumerate every re-partition when there are at most this many.")
+@click.option("--show", type=click.Choice(["summary", "words", "leave-one-out"]), default="summary",
+              show_default=True, help="Which table to print.")
+@output_options
+@click.pass_context
+def measure(ctx, workspace, tests_file, test_names, by, picks, window, min_count, weighting, max_vocab, model, dim,
+            seed, eig_power, alpha, shift, cbow, negative, epochs, workers, bootstrap, seeds, vectors, min_words,
+            permutations, exact_budget, show, fmt, out):
+    """Measure association tests on each slice: effect size, p-value, bootstrap interval, PMI view.
+
+    Example:  tracer measure -w work/ --tests configs/demo_tests.toml --by time:10y --format json
+    """
+    from .corpus.slices import resolve_slices
+    from .embed.vectors import Embedding
+    from .errors import InputError
+    from .measure import MeasureSettings, measure as run_measure
+    from .tests_file import load_tests
+    ws = _open(workspace)
+    tests = load_tests(tests_file)
+    if test_names:
+        unknown = [t for t in test_names if t not in tests]
+        if unknown:
+            raise InputError(f"{tests_file}: no test named {unknown[0]!r}; the tests are {', '.join(tests)}")
+        tests = {t: tests[t] for t in test_names}
+    if bootstrap is None:
+        bootstrap = 20 if model == "ppmi-svd" and vectors is None else 0
+    settings = MeasureSettings(min_words=min_words, bootstrap=bootstrap, seeds=seeds, permutations=permutations,
+                               exact_budget=exact_budget, seed=0 if seed is None else seed, alpha=alpha)
+    ext = Embedding.from_word2vec_format(vectors) if vectors else None
+    result = run_measure(ws, tests, model, resolve_slices(ws, by, picks), _count_settings(window, min_count, weighting,
+                         max_vocab), _model_settings(model, dim, seed, eig_power, alpha, shift, cbow, negative,
+                         epochs, workers), settings, vectors=ext, progress=_progress(ctx))
+    table = {"summary": result.summary, "words": result.words, "leave-one-out": result.leave_one_out}[show]
+    if fmt == "table" and show == "summary":
+        cols = ["test", "model", "slice", "measured", "effect_size", "ci_low", "ci_high", "p_value", "p_method",
+                "gap", "pmi_effect_size", "pmi_p_value", "mean_score", "n_targets_x", "n_targets_y",
+                "n_attributes_a", "n_attributes_b", "dropped_words", "reason"]
+        shown = table[cols].copy()
+        shown["dropped_words"] = shown["dropped_words"].map(lambda ws_: ",".join(ws_) if isinstance(ws_, list) else "")
+        from .output import render
+        text = render(shown)
+        notes = sorted({w for w in table["warning"] if w})
+        text += ("\neffect_size: WEAT d, " + table["std_convention"].iloc[0] + "; p_value: one-sided permutation; "
+                 f"interval: {bootstrap} document-bootstrap replicates (percentile 2.5-97.5).\n"
+                 "Cohen's conventions: |d| 0.2 small, 0.5 medium, 0.8 large; |d| <= 2 for equal set sizes.\n"
+                 + "".join(f"Warning: {w}\n" for w in notes) + CAUTIONS + "\n") if len(table) else ""
+        _emit(text, out, ctx)
+    else:
+        _emit_table(table, fmt, out, ctx)
+
+
+@cli.command()
+@workspace_option()
+@click.option("--tests", "tests_file", type=click.Path(dir_okay=False, path_type=Path), required=True,
+              help="TOML file of association tests.")
+@click.option("--test", "test_name", required=True, help="The test whose attribute sets score each word.")
+@click.option("--table", "table_file", type=click.Path(dir_okay=False, path_type=Path), required=True,
+              help="CSV with a header: a word column and a numeric column.")
+@click.option("--word-column", default="word", show_default=True)
+@click.option("--value-column", required=True, help="The numeric column to correlate with.")
+@slice_options
+@count_options
+@model_options
+@click.option("--bootstrap", type=click.IntRange(min=0), default=1000, show_default=True,
+              help="Resamples of the words for the intervals.")
+@click.option("--plot", type=click.Path(dir_okay=False, path_type=Path), default=None,
+              help="Write a scatter of the words (PNG).")
+@output_options
+@click.pass_context
+def correlate(ctx, workspace, tests_file, test_name, table_file, word_column, value_column, by, picks, window,
+              min_count, weighting, max_vocab, model, dim, seed, eig_power, alpha, shift, cbow, negative, epochs,
+              workers, bootstrap, plot, fmt, out):
+    """Correlate each word's association score with a numeric column of a CSV, per slice.
+
+    Example:  tracer correlate -w work/ --tests configs/demo_tests.toml --test occupations
+              --table corpora_demo/occupation_shares.csv --word-column occupation --value-column share_women
+    """
+    from .correlate import correlate as run_correlate, read_word_values, scatter_plot
+    from .corpus.slices import resolve_slices
+    from .embed.train import train_embedding
+    from .errors import InputError
+    from .tests_file import load_tests
+    ws = _open(workspace)
+    tests = load_tests(tests_file)
+    if test_name not in tests:
+        raise InputError(f"{tests_file}: no test named {test_name!r}; the tests are {', '.join(tests)}")
+    table = read_word_values(table_file, word_column, value_column)
+    counts = _count_settings(window, min_count, weighting, max_vocab)
+    settings = _model_settings(model, dim, seed, eig_power, alpha, shift, cbow, negative, epochs, workers)
+    from .cooccur import count_slice
+    pairs = [(train_embedding(ws, sl, model, counts, settings, save=False, progress=_progress(ctx)),
+              count_slice(ws, sl.weights, counts, slice_name=sl.name)) for sl in resolve_slices(ws, by, picks)]
+    summary, points = run_correlate(pairs, tests[test_name], table, n_boot=bootstrap,
+                                    seed=0 if seed is None else seed)
+    if plot is not None:
+        scatter_plot(points, value_column, plot)
+        _say(ctx, f"wrote {plot}")
+    _emit_table(summary, fmt, out, ctx)
 
 
 @cli.command()

@@ -138,7 +138,7 @@ def measure(ws, tests: dict[str, AssociationTest], model: str, slices: list[Slic
         ppmi = ppmi_matrix(c.matrix, alpha=settings.alpha).tocsr() if c is not None else None
         warning = ""
         if sl is not None and sl.n_tokens < SMALL_SLICE_TOKENS:
-            warning = (f"slice has {sl.n_tokens} tokens, fewer than {SMALL_SLICE_TOKENS}: embeddings of so little "
+            warning = (f"slice {sl.name} has {sl.n_tokens} tokens, fewer than {SMALL_SLICE_TOKENS}: embeddings of so little "
                        "text are unstable; read the interval, not the point estimate")
         for test in tests.values():
             base = {"test": test.name, "kind": "two-target" if test.two_target else "one-target",
