@@ -66,13 +66,13 @@ def ppmi_svd_vectors(counts, settings: PpmiSvdSettings) -> tuple[np.ndarray, dic
     return vectors.astype(np.float32), {"singular_values": s, "context_vectors": vt.T.astype(np.float32)}
 
 
-def warm_truncated_svd(matrix, k: int, start: np.ndarray, *, n_iter: int = 2, oversample: int = 10,
+def warm_truncated_svd(matrix, k: int, start: np.ndarray, *, n_iter: int = 4, oversample: int = 30,
                        seed: int = 0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Truncated SVD by subspace iteration started from a known right subspace.
 
     For a bootstrap replicate of a PPMI matrix the full-data right singular
     vectors ``start`` (shape (n_cols, k)) already span nearly the right subspace,
-    so a couple of power iterations (Halko, Martinsson and Tropp 2011, alg. 4.4,
+    so a few power iterations (Halko, Martinsson and Tropp 2011, alg. 4.4,
     with a warm start instead of a random one) replace a cold ARPACK run.
     ``oversample`` random extra columns absorb what the start misses. Signs are
     fixed as in :func:`truncated_svd`.
