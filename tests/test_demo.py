@@ -5,7 +5,6 @@ import importlib.util
 from pathlib import Path
 
 import numpy as np
-import pytest
 from click.testing import CliRunner
 
 from tracer.cli import cli

@@ -18,7 +18,7 @@ import pandas as pd
 from tqdm.auto import tqdm
 
 from .associate import (DEFAULT_EXACT_BUDGET, DEFAULT_MIN_WORDS, DEFAULT_PERMUTATIONS, STD_CONVENTION,
-                        effect_size, permutation_p_value, ripa_direction, unit_rows, weat, word_sets)
+                        association_scores, effect_size, permutation_p_value, ripa_direction, unit_rows, weat, word_sets)
 from .cooccur import CountSettings, Counts, count_slice
 from .corpus.slices import Slice
 from .embed.ppmi_svd import PpmiSvdSettings, ppmi_svd_vectors_warm
@@ -26,7 +26,7 @@ from .embed.train import embedding_from_counts, train_embedding
 from .embed.vectors import Embedding
 from .embed.word2vec import Word2VecSettings
 from .errors import SettingError
-from .pmi import Marginals, ppmi_matrix
+from .pmi import ppmi_matrix
 from .tests_file import AssociationTest
 
 log = logging.getLogger(__name__)
@@ -214,10 +214,9 @@ def _measure_one(test, wsets, embs, c, ppmi, boot, settings, rng) -> dict:
             out.update(n_bootstrap=0)
     else:
         e = embs[0]
-        unit = unit_rows(e.vectors)
-        s = unit[_rows(e.index, wsets.x)] @ unit[_rows(e.index, wsets.a)].T
-        t = unit[_rows(e.index, wsets.x)] @ unit[_rows(e.index, wsets.b)].T
-        out.update(mean_score=float((s.mean(axis=1) - t.mean(axis=1)).mean()), n_bootstrap=0)
+        scores = association_scores(unit_rows(e.vectors), _rows(e.index, wsets.x), _rows(e.index, wsets.a),
+                                    _rows(e.index, wsets.b))
+        out.update(mean_score=float(scores.mean()), n_bootstrap=0)
     return out
 
 
@@ -229,8 +228,7 @@ def _word_table(test, wsets, emb, c, ppmi) -> list[dict]:
     for set_name, words in (("x", wsets.x), ("y", wsets.y)):
         if not words:
             continue
-        rt = _rows(emb.index, words)
-        scores = (unit[rt] @ unit[ra].T).mean(axis=1) - (unit[rt] @ unit[rb].T).mean(axis=1)
+        scores = association_scores(unit, _rows(emb.index, words), ra, rb)
         for k, w in enumerate(words):
             row = {"word": w, "set": set_name, "score": float(scores[k]),
                    "ripa": float(emb.vector(w).astype(np.float64) @ direction) if direction is not None else None}
@@ -249,6 +247,7 @@ def _leave_one_out(test, wsets, embs, summary_row) -> list[dict]:
         return []
     out = []
     full = summary_row["effect_size"]
+    units = [unit_rows(e.vectors) for e in embs]
     for set_name in ("x", "y", "a", "b"):
         words = getattr(wsets, set_name)
         if len(words) < 2:
@@ -256,12 +255,10 @@ def _leave_one_out(test, wsets, embs, summary_row) -> list[dict]:
         for w in words:
             sets = {k: [v for v in getattr(wsets, k) if not (k == set_name and v == w)] for k in ("x", "y", "a", "b")}
             ds = []
-            for e in embs:
-                unit = unit_rows(e.vectors)
+            for e, unit in zip(embs, units):
                 rows = {k: _rows(e.index, v) for k, v in sets.items()}
-                sx = (unit[rows["x"]] @ unit[rows["a"]].T).mean(1) - (unit[rows["x"]] @ unit[rows["b"]].T).mean(1)
-                sy = (unit[rows["y"]] @ unit[rows["a"]].T).mean(1) - (unit[rows["y"]] @ unit[rows["b"]].T).mean(1)
-                ds.append(effect_size(sx, sy))
+                ds.append(effect_size(association_scores(unit, rows["x"], rows["a"], rows["b"]),
+                                      association_scores(unit, rows["y"], rows["a"], rows["b"])))
             d = float(np.mean(ds))
             out.append({"left_out": w, "set": set_name, "effect_size": d, "change": d - full})
     return out

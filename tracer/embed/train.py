@@ -62,10 +62,8 @@ def train_embedding(ws, sl: Slice, model: str, counts: CountSettings,
         if not isinstance(settings, PpmiSvdSettings):
             raise SettingError("ppmi-svd takes PpmiSvdSettings")
         c = count_slice(ws, w, counts, slice_name=sl.name, vocab=vocab, progress=progress)
-        if settings.dim >= len(vocab):
-            raise SettingError(f"slice {sl.name} has {len(vocab)} words at min count {counts.min_count}; "
-                               f"--dim {settings.dim} must be below that (lower --dim or --min-count)")
-        vectors, extras = ppmi_svd_vectors(c.matrix, settings)
+        made = embedding_from_counts(ws, sl, c, settings)
+        vectors, extras = made.vectors, made.extras
     else:
         if not isinstance(settings, Word2VecSettings):
             raise SettingError("word2vec takes Word2VecSettings")
