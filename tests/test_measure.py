@@ -106,9 +106,9 @@ def test_outside_vectors_give_the_same_numbers(demo_ws, tmp_path):
     emb = embedding_from_counts(demo_ws, sl, c, PpmiSvdSettings())
     emb.save_word2vec_format(tmp_path / "v.txt")
     tests = {"tribune_mix": TESTS["tribune_mix"]}
-    ours = measure(demo_ws, tests, "ppmi-svd", [sl]).summary.iloc[0]
-    ext = measure(demo_ws, tests, "ppmi-svd", [], vectors=Embedding.from_word2vec_format(tmp_path / "v.txt"))
-    r = ext.summary.iloc[0]
+    both = measure(demo_ws, tests, "ppmi-svd", [sl], vectors=Embedding.from_word2vec_format(tmp_path / "v.txt"))
+    ours, r = both.summary.iloc[0], both.summary.iloc[1]  # side by side in one table
+    assert (ours.model, ours.slice) == ("ppmi-svd", "source=Tribune")
     assert r.model == "external" and r.slice == "external"
     assert r.effect_size == pytest.approx(ours.effect_size, abs=1e-4) and r.p_value == ours.p_value
 

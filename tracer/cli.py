@@ -305,7 +305,8 @@ CAUTIONS = ("Cautions: an association in an embedding is not proof of discrimina
 @click.option("--seeds", type=click.IntRange(min=1), default=1, show_default=True,
               help="word2vec: models trained with consecutive seeds; mean and spread of the effect size.")
 @click.option("--vectors", type=click.Path(dir_okay=False, path_type=Path), default=None,
-              help="Measure these vectors instead (word2vec text, or binary if the name ends in .bin).")
+              help="Also measure these vectors (word2vec text, or binary if the name ends in .bin); "
+                   "alone unless --by or --slice is given.")
 @click.option("--min-words", type=click.IntRange(min=1), default=3, show_default=True,
               help="A target set with fewer words in a slice's vocabulary is not measured there.")
 @click.option("--permutations", type=click.IntRange(min=1), default=10_000, show_default=True,
@@ -336,11 +337,13 @@ def measure(ctx, workspace, tests_file, test_names, by, picks, window, min_count
             raise InputError(f"{tests_file}: no test named {unknown[0]!r}; the tests are {', '.join(tests)}")
         tests = {t: tests[t] for t in test_names}
     if bootstrap is None:
-        bootstrap = 20 if model == "ppmi-svd" and vectors is None else 0
+        bootstrap = 20 if model == "ppmi-svd" else 0
     settings = MeasureSettings(min_words=min_words, bootstrap=bootstrap, seeds=seeds, permutations=permutations,
                                exact_budget=exact_budget, seed=0 if seed is None else seed, alpha=alpha)
     ext = Embedding.from_word2vec_format(vectors) if vectors else None
-    result = run_measure(ws, tests, model, resolve_slices(ws, by, picks), _count_settings(window, min_count, weighting,
+    # with --vectors alone only those are measured; with slices too, both side by side
+    slices = resolve_slices(ws, by, picks) if (by or picks or ext is None) else []
+    result = run_measure(ws, tests, model, slices, _count_settings(window, min_count, weighting,
                          max_vocab), _model_settings(model, dim, seed, eig_power, alpha, shift, cbow, negative,
                          epochs, workers), settings, vectors=ext, progress=_progress(ctx))
     table = {"summary": result.summary, "words": result.words, "leave-one-out": result.leave_one_out}[show]

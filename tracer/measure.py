@@ -109,7 +109,7 @@ def measure(ws, tests: dict[str, AssociationTest], model: str, slices: list[Slic
             counts: CountSettings = CountSettings(), model_settings=None,
             settings: MeasureSettings = MeasureSettings(), *, vectors: Embedding | None = None,
             progress: bool = False) -> MeasureResult:
-    """Measure every test on every slice with one model (or on given ``vectors``).
+    """Measure every test on every slice with one model, and on ``vectors`` trained elsewhere if given.
 
     Returns
     -------
@@ -128,11 +128,12 @@ def measure(ws, tests: dict[str, AssociationTest], model: str, slices: list[Slic
         model_settings = PpmiSvdSettings() if model == "ppmi-svd" else Word2VecSettings()
     rng = np.random.default_rng(settings.seed)
     rows, word_rows, loo_rows = [], [], []
-    for sl in (slices if vectors is None else [None]):
+    # trained models slice by slice, then the outside vectors if given: side by side in one table
+    for sl in list(slices) + ([None] if vectors is not None else []):
         slice_name = sl.name if sl is not None else "external"
         c = count_slice(ws, sl.weights, counts, slice_name=sl.name) if sl is not None else None
         embs = _embeddings(ws, sl, c, model, counts, model_settings, settings) if sl is not None else [vectors]
-        model_name = model if vectors is None else "external"
+        model_name = model if sl is not None else "external"
         boot = _bootstrap(ws, sl, c, tests, model, counts, model_settings, settings, embs[0], rng, progress) \
             if sl is not None and settings.bootstrap > 0 else {}
         ppmi = ppmi_matrix(c.matrix, alpha=settings.alpha).tocsr() if c is not None else None
