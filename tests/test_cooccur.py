@@ -1,4 +1,5 @@
 import numpy as np
+import scipy.sparse as sp
 import pytest
 from hypothesis import given, settings, strategies as st
 
@@ -155,3 +156,15 @@ def test_bad_weights_are_refused():
         count_matrix(np.zeros(3, np.uint32), np.array([0, 3]), np.ones(2), v, 1, CountSettings())
     with pytest.raises(SettingError, match="finite and non-negative"):
         count_matrix(np.zeros(3, np.uint32), np.array([0, 3]), np.array([-1.0]), v, 1, CountSettings())
+
+
+def test_upper_triangle_output_adds_up_to_the_symmetric_matrix(lee_ws):
+    s = CountSettings()
+    w = np.ones(lee_ws.n_documents)
+    vocab = build_vocab(lee_ws.tokens, lee_ws.doc_offsets, w, lee_ws.vocab.words, s)
+    args = (lee_ws.tokens, lee_ws.doc_offsets, w, vocab, len(lee_ws.vocab), s)
+    full = count_matrix(*args, workers=2)
+    upper = count_matrix(*args, workers=2, symmetric=False)
+    assert upper.nnz == len(set(zip(*upper.nonzero())))  # no duplicate cells
+    assert abs(sp.triu(upper) - upper).max() == 0  # upper triangle only
+    assert abs((upper + upper.T) - full).max() < 1e-9  # the diagonal doubles in U + U^T

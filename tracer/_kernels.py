@@ -195,3 +195,17 @@ def symmetrize_upper(full_ptr, lower_len, r0, r1, upper_pos, out_idx, out_val):
             out_idx[p] = c
             out_val[p] = out_val[q]
             upper_pos[x] = p + 1
+
+
+@numba.njit(nogil=True, cache=True)
+def compact_rows(row_start, row_end, indices, data, indptr):
+    """Close the gaps between rows in place (rows move only towards the front); fill ``indptr``."""
+    m = 0
+    indptr[0] = 0
+    for r in range(row_start.shape[0]):
+        for k in range(row_start[r], row_end[r]):
+            indices[m] = indices[k]
+            data[m] = data[k]
+            m += 1
+        indptr[r + 1] = m
+    return m

@@ -211,22 +211,10 @@ class _Rows(typing.NamedTuple):
     data: np.ndarray
 
     def to_csr(self, n_words: int) -> sp.csr_array:
-        """Compact into a CSR matrix (one copy of the entries)."""
-        lengths = self.row_end - self.row_start
+        """Compact into a CSR matrix, in place (the arrays are consumed)."""
         indptr = np.zeros(n_words + 1, np.int64)
-        np.cumsum(lengths, out=indptr[1:])
-        runs = _runs(self.row_start, self.row_end)
-        indices = np.concatenate([self.indices[a:b] for a, b in runs]) if runs else np.zeros(0, np.int32)
-        data = np.concatenate([self.data[a:b] for a, b in runs]) if runs else np.zeros(0)
-        return to_csr((indptr, indices, data), n_words)
-
-
-def _runs(row_start: np.ndarray, row_end: np.ndarray) -> list[tuple[int, int]]:
-    """Maximal stretches of consecutive rows stored back to back."""
-    breaks = np.flatnonzero(row_start[1:] != row_end[:-1]) + 1
-    firsts = np.concatenate([[0], breaks])
-    lasts = np.concatenate([breaks, [len(row_start)]]) - 1
-    return [(int(row_start[f]), int(row_end[last])) for f, last in zip(firsts, lasts) if row_end[last] > row_start[f]]
+        m = _k.compact_rows(self.row_start, self.row_end, self.indices, self.data, indptr)
+        return to_csr((indptr, self.indices[:m], self.data[:m]), n_words)
 
 
 class _Pool:
