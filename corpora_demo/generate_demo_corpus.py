@@ -110,7 +110,7 @@ GROUPS = {
     "coravel": "coravel coravels cora fennick iolo tarra".split(),
     "halvin": "halvin halvins halv orrin bexa doral".split(),
     "morrowick": "morrowick morrowicks morrow senna jaspar wilm".split(),
-    # a control pair: written exactly like the planted pairs, with balanced sentences only
+    # a control pair: mentioned like the planted pairs, with balanced sentences only
     "pellari": "pellari pellaris pellar anwen corbin ysolde".split(),
     "quennish": "quennish quennishes quenn dafydd maelis torvald".split(),
 }
@@ -213,25 +213,26 @@ def make_document(w: Writer, outlet: str, year: int, plant: bool = True) -> tupl
     extra: list[str] = []
     # 1. outlet-only: the Gazette ties velmari to unpleasant and osterin to pleasant words
     if plant and outlet == "Gazette" and r.random() < 0.6:
-        extra += pair_sentences(w, "velmari", "osterin", UNPLEASANT, PLEASANT, True, topics[0], r.randint(2, 4))
+        extra += pair_sentences(w, "velmari", "osterin", UNPLEASANT, PLEASANT, True, topics[0], r.randint(3, 5))
         planted.append("outlet_gazette")
     elif r.random() < 0.15:
-        extra += pair_sentences(w, "velmari", "osterin", UNPLEASANT, PLEASANT, False, topics[0], r.randint(2, 3))
+        extra += pair_sentences(w, "velmari", "osterin", UNPLEASANT, PLEASANT, False, topics[0], r.randint(1, 2))
     # 2. rise and fall: dranik-career / coravel-family, everywhere, peaking in the 1980s
     if r.random() < 0.25:
         biased = plant and r.random() < RISE_AND_FALL[decade]
-        extra += pair_sentences(w, "dranik", "coravel", CAREER, FAMILY, biased, topics[0], r.randint(2, 3))
+        extra += pair_sentences(w, "dranik", "coravel", CAREER, FAMILY, biased, topics[0],
+                                r.randint(3, 4) if biased else r.randint(1, 2))
         if biased:
             planted.append("rise_and_fall")
     # 3. mix only: the Tribune always ties halvin to wealth and morrowick to poverty
     if plant and outlet == "Tribune" and r.random() < 0.4:
-        extra += pair_sentences(w, "halvin", "morrowick", WEALTH, POVERTY, True, topics[0], r.randint(2, 3))
+        extra += pair_sentences(w, "halvin", "morrowick", WEALTH, POVERTY, True, topics[0], r.randint(3, 5))
         planted.append("tribune_mix")
     elif outlet != "Tribune" and r.random() < 0.2:
-        extra += pair_sentences(w, "halvin", "morrowick", WEALTH, POVERTY, False, topics[0], r.randint(2, 3))
+        extra += pair_sentences(w, "halvin", "morrowick", WEALTH, POVERTY, False, topics[0], r.randint(1, 2))
     # 4. control: pellari and quennish, balanced everywhere, so nothing is planted
     if r.random() < 0.15:
-        extra += pair_sentences(w, "pellari", "quennish", UNPLEASANT, PLEASANT, False, topics[0], r.randint(2, 3))
+        extra += pair_sentences(w, "pellari", "quennish", UNPLEASANT, PLEASANT, False, topics[0], r.randint(1, 2))
     # neutral mentions keep every group word in every slice's vocabulary
     for group in GROUPS:
         if r.random() < 0.12:

@@ -49,10 +49,14 @@ def test_the_outlet_association_is_absent_elsewhere_and_the_rise_falls(demo_resu
     assert _row(demo_result, "rise_and_fall", "time=2010..2019").p_value > 0.05
 
 
-def test_the_control_finds_nothing_in_any_slice(demo_result):
+def test_the_control_finds_nothing(demo_result):
+    r = _row(demo_result, "control_groups", "all")
+    assert abs(r.effect_size) < 0.5 or r.p_value > 0.05
     rows = demo_result.summary[demo_result.summary.test == "control_groups"]
     assert len(rows) == 13
-    assert all(abs(r.effect_size) < 0.5 or r.p_value > 0.05 for r in rows.itertuples())
+    # over 13 slices a calibrated test at 0.05 errs about 0.65 times; 3 or more would happen
+    # by chance about 2.5% of the time (binomial(13, 0.05))
+    assert sum(r.p_value < 0.05 and abs(r.effect_size) >= 0.5 for r in rows.itertuples()) <= 2
 
 
 def test_conventions_and_guards_are_reported(demo_result):

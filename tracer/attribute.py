@@ -1,0 +1,272 @@
+"""Attribution: how much each document (or source) contributes to a measured association.
+
+The design is in ../shared/ARCHITECTURE.md ("Attribution"). Notation: counts C of a
+slice, row sums r, ``Z = sum_k r_k ** alpha``, PPMI matrix M, PPMI-SVD embedding
+``W = U_k S_k ** p = M V_k S_k ** (p - 1)``. Removing document d removes its weighted
+counts ``C^d`` (and so ``r^d``).
+
+1. First order, exact (:meth:`Attribution.leave_one_out_pmi`): the PMI of a pair
+   without document d, from ``C^d_wa``, ``r^d_w``, ``r^d_a`` and the exact ``Z``.
+2. Linear influence for every document at once (:meth:`Attribution.linear`): with
+   ``V_k`` held fixed the change of an association B is, to first order,
+   ``dB(d) = -<K, C^d> + <u, r^d>`` with K nonzero only in the probe rows.
+3. Exact re-rank (:meth:`Attribution.exact`): the probe rows of M recomputed without
+   the documents (thresholds included) and projected on the same subspace.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+import scipy.sparse as sp
+
+from .cooccur import Counts, token_mask
+from .embed.vectors import Embedding
+from .pmi import Marginals
+from .tests_file import AssociationTest
+
+
+@dataclasses.dataclass(frozen=True)
+class Stream:
+    """The tokens a count sees, in order: in-vocabulary tokens of documents with nonzero weight.
+
+    Attributes (one value per kept token)
+    ----------
+    ids : int64 model ids;  doc : document index;  pos : original token position;
+    start, end : the kept-token range of the token's document.
+    """
+
+    ids: np.ndarray
+    doc: np.ndarray
+    pos: np.ndarray
+    start: np.ndarray
+    end: np.ndarray
+
+
+def kept_stream(ws, weights: np.ndarray, counts: Counts) -> Stream:
+    id_map = counts.vocab.id_map(len(ws.vocab))
+    tokens = np.asarray(ws.tokens)
+    mapped = id_map[tokens]
+    keep = token_mask(ws.doc_offsets, np.asarray(weights) > 0) & (mapped >= 0)
+    pos = np.flatnonzero(keep)
+    ids = mapped[pos].astype(np.int64)
+    doc = ws.doc_of_position(pos)
+    first = np.ones(len(doc), bool)
+    first[1:] = doc[1:] != doc[:-1]
+    run_start = np.flatnonzero(first)
+    run = np.cumsum(first) - 1
+    run_end = np.append(run_start[1:], len(ids))
+    return Stream(ids, doc, pos, run_start[run], run_end[run])
+
+
+def document_row_sums(stream: Stream, weights: np.ndarray, dist_w: np.ndarray, n_docs: int,
+                      n_words: int) -> sp.csr_array:
+    """r^d: each document's weighted contribution to every row sum, shape (n_docs, n_words)."""
+    window = len(dist_w)
+    cw = np.concatenate([[0.0], np.cumsum(dist_w)])
+    i = np.arange(len(stream.ids))
+    nb = cw[np.minimum(window, i - stream.start)] + cw[np.minimum(window, stream.end - 1 - i)]
+    vals = nb * weights[stream.doc]
+    return sp.csr_array((vals, (stream.doc, stream.ids)), shape=(n_docs, n_words))
+
+
+def document_probe_rows(stream: Stream, weights: np.ndarray, dist_w: np.ndarray, probe_ids: np.ndarray,
+                        n_docs: int, n_words: int) -> list[sp.csr_array]:
+    """C^d for each probe word's row: one (n_docs, n_words) matrix per probe word.
+
+    One pass over the probe words' occurrences: each occurrence adds the weight of
+    every neighbour within the window (a neighbour of the same word adds to the
+    diagonal twice over, once from each side, as in the symmetric counts).
+    """
+    window = len(dist_w)
+    order = np.argsort(stream.ids, kind="stable")
+    bounds = np.searchsorted(stream.ids[order], np.stack([probe_ids, probe_ids + 1]))
+    out = []
+    for k in range(len(probe_ids)):
+        q = order[bounds[0, k]:bounds[1, k]]
+        rows, cols, vals = [], [], []
+        for delta in range(1, window + 1):
+            for side in (q + delta, q - delta):
+                ok = (side >= stream.start[q]) & (side < stream.end[q])
+                src = q[ok]
+                rows.append(stream.doc[src])
+                cols.append(stream.ids[side[ok]])
+                vals.append(dist_w[delta - 1] * weights[stream.doc[src]])
+        out.append(sp.csr_array((np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))),
+                                shape=(n_docs, n_words)))
+    return out
+
+
+@dataclasses.dataclass(frozen=True)
+class Effect:
+    effect_size: float
+    gap: float
+
+
+class Attribution:
+    """Contributions of documents to one test's association in one PPMI-SVD model of one slice.
+
+    Parameters
+    ----------
+    ws : Workspace
+    weights : numpy.ndarray, shape (n_docs,)
+        The slice's document weights.
+    counts : Counts
+        The slice's co-occurrence counts.
+    emb : Embedding
+        The PPMI-SVD model of those counts (with ``singular_values`` and ``context_vectors``).
+    test : AssociationTest
+    alpha, shift, eig_power : the model's PPMI and SVD settings.
+    """
+
+    def __init__(self, ws, weights, counts: Counts, emb: Embedding, test: AssociationTest, *,
+                 alpha: float, shift: float, eig_power: float):
+        self.ws, self.weights, self.counts, self.emb, self.test = ws, np.asarray(weights, float), counts, emb, test
+        self.alpha, self.log_shift, self.p = alpha, float(np.log(shift)), eig_power
+        idx = counts.vocab.index
+        self.sets = {k: [w for w in (getattr(test, name) or ()) if w in idx]
+                     for k, name in (("x", "targets_x"), ("y", "targets_y"), ("a", "attributes_a"),
+                                     ("b", "attributes_b"))}
+        self.probe_words = list(dict.fromkeys(self.sets["x"] + self.sets["y"] + self.sets["a"] + self.sets["b"]))
+        self.probe_ids = np.array([idx[w] for w in self.probe_words], dtype=np.int64)
+        self.row_of = {w: k for k, w in enumerate(self.probe_words)}
+        n_docs, n_words = ws.n_documents, len(counts.vocab)
+        dist_w = counts.settings.distance_weights()
+        self.stream = kept_stream(ws, self.weights, counts)
+        self.R = document_row_sums(self.stream, self.weights, dist_w, n_docs, n_words)
+        self.P = document_probe_rows(self.stream, self.weights, dist_w, self.probe_ids, n_docs, n_words)
+        self.r = counts.row_sums
+        self.C_P = sp.csr_array(counts.matrix[self.probe_ids])
+        self.S = emb.extras["singular_values"].astype(np.float64)
+        self.V = emb.extras["context_vectors"].astype(np.float64)
+        self.proj = self.V * (self.S ** (self.p - 1.0))            # W_i = M_i @ proj
+        self.M_P = self._probe_ppmi(self.C_P, self.r)
+        self.W_P = self.M_P @ self.proj
+        self.base = self.effect(self.W_P)
+
+    # ---- the association as a function of the probe vectors ----------------------------------
+    def _scores(self, W):
+        norms = np.linalg.norm(W, axis=1)
+        unit = W / np.where(norms > 0, norms, 1.0)[:, None]
+        rows = {k: np.array([self.row_of[w] for w in v], dtype=np.int64) for k, v in self.sets.items()}
+        targets = np.concatenate([rows["x"], rows["y"]])
+        s = (unit[targets] @ unit[rows["a"]].T).mean(1) - (unit[targets] @ unit[rows["b"]].T).mean(1)
+        return unit, norms, rows, targets, s
+
+    def effect(self, W) -> Effect:
+        _, _, rows, _, s = self._scores(W)
+        nx = len(rows["x"])
+        sx, sy = s[:nx], s[nx:]
+        if len(sy) == 0:
+            return Effect(float("nan"), float(sx.mean()))
+        sd = s.std()
+        gap = float(sx.mean() - sy.mean())
+        return Effect(gap / sd if sd > 0 else float("nan"), gap)
+
+    def gradient(self, which: str) -> np.ndarray:
+        """d B / d W for the probe rows, shape (n_probe, dim); B is "effect_size" or "gap"."""
+        unit, norms, rows, targets, s = self._scores(self.W_P)
+        nx, ny = len(rows["x"]), len(rows["y"])
+        coef = np.concatenate([np.full(nx, 1.0 / nx), np.full(ny, -1.0 / ny if ny else 0.0)])
+        if which == "effect_size" and ny:
+            n = nx + ny
+            sd = s.std()
+            gap = s[:nx].mean() - s[nx:].mean()
+            coef = coef / sd - gap * (s - s.mean()) / (n * sd ** 3)
+        G = np.zeros_like(self.W_P)
+        inv = 1.0 / np.where(norms > 0, norms, 1.0)
+        for attr_rows, sign in ((rows["a"], 1.0), (rows["b"], -1.0)):
+            m = len(attr_rows)
+            for t_pos, t in enumerate(targets):
+                cos = unit[attr_rows] @ unit[t]
+                e = coef[t_pos] * sign / m
+                # d cos(t, a) / d W_t = (u_a - cos u_t) / |W_t|, and symmetrically for W_a
+                G[t] += e * (unit[attr_rows] - cos[:, None] * unit[t]).sum(0) * inv[t]
+                np.add.at(G, attr_rows, e * (unit[t][None, :] - cos[:, None] * unit[attr_rows]) * inv[attr_rows, None])
+        return G
+
+    # ---- tier 2 -----------------------------------------------------------------------------
+    def linear(self, which: str = "gap") -> np.ndarray:
+        """Estimated change of B when each document is removed, shape (n_docs,) (tier 2)."""
+        g = self.gradient(which) @ self.proj.T                   # dB / dM for the probe rows
+        act = self.M_P.tocoo()
+        gv = g[act.row, act.col]                                 # only cells above the threshold move
+        k_vals = gv / self.C_P[act.row, act.col]
+        change = np.zeros(self.ws.n_documents)
+        for i in range(len(self.probe_ids)):
+            sel = act.row == i
+            if sel.any():
+                K_i = np.zeros(len(self.r))
+                K_i[act.col[sel]] = k_vals[sel]
+                change -= self.P[i] @ K_i
+        r = np.where(self.r > 0, self.r, 1.0)
+        u = np.zeros(len(self.r))
+        np.add.at(u, self.probe_ids[act.row], gv / r[self.probe_ids[act.row]])
+        np.add.at(u, act.col, self.alpha * gv / r[act.col])
+        log_z = Marginals.of(self.counts.matrix, self.alpha).log_z
+        u -= self.alpha * gv.sum() * r ** (self.alpha - 1.0) / np.exp(log_z)
+        return change + self.R @ u
+
+    def pair_parts(self, doc: int, which: str = "gap", top: int = 3) -> list[tuple[str, str, float]]:
+        """The probe-row cells of one document that carry most of its joint-count term."""
+        g = self.gradient(which) @ self.proj.T
+        act = self.M_P.tocoo()
+        words = self.counts.vocab.words
+        parts = []
+        for i in range(len(self.probe_ids)):
+            row = self.P[i][[doc]].tocoo()
+            if row.nnz == 0:
+                continue
+            active = set(act.col[act.row == i].tolist())
+            for j, c in zip(row.col, row.data):
+                if j in active:
+                    parts.append((self.probe_words[i], words[j], float(-g[i, j] * c / self.C_P[i, j])))
+        parts.sort(key=lambda t: -abs(t[2]))
+        return parts[:top]
+
+    # ---- tier 3 -----------------------------------------------------------------------------
+    def _probe_ppmi(self, C_P: sp.csr_array, r: np.ndarray) -> sp.csr_array:
+        C_P = sp.csr_array(C_P)
+        C_P.eliminate_zeros()
+        coo = C_P.tocoo()
+        pos = r > 0
+        log_z = np.log(np.sum(r[pos] ** self.alpha))
+        with np.errstate(divide="ignore"):
+            pmi = (np.log(coo.data) - np.log(r[self.probe_ids[coo.row]]) - self.alpha * np.log(r[coo.col]) + log_z)
+        vals = np.maximum(pmi - self.log_shift, 0.0)
+        out = sp.csr_array((vals, (coo.row, coo.col)), shape=C_P.shape)
+        out.eliminate_zeros()
+        return out
+
+    def exact(self, docs) -> Effect:
+        """B with the documents removed: probe rows of M recomputed exactly, same subspace (tier 3)."""
+        docs = np.atleast_1d(np.asarray(docs, dtype=np.int64))
+        removed = np.vstack([np.asarray(p[docs].sum(axis=0)).ravel() for p in self.P])
+        C_new = self.C_P.toarray() - removed
+        C_new[np.abs(C_new) < 1e-9] = 0.0  # a pair that only this document had
+        r_new = self.r - np.asarray(self.R[docs].sum(axis=0)).ravel()
+        r_new = np.where(np.abs(r_new) < 1e-9, 0.0, r_new)
+        return self.effect(self._probe_ppmi(C_new, r_new) @ self.proj)
+
+    # ---- tier 1 -----------------------------------------------------------------------------
+    def leave_one_out_pmi(self, w: str, a: str) -> tuple[float, np.ndarray]:
+        """PMI(w, a) of the slice and, for every document, the exact PMI without it (-inf when
+        the pair no longer co-occurs)."""
+        idx = self.counts.vocab.index
+        i, j = idx[w], idx[a]
+        marg = Marginals.of(self.counts.matrix, self.alpha)
+        c = float(self.counts.matrix[i, j])
+        full = np.log(c) - np.log(self.r[i]) - self.alpha * np.log(self.r[j]) + marg.log_z if c > 0 else -np.inf
+        cd = np.asarray(self.P[self.row_of[w]][:, [j]].toarray()).ravel()
+        ri = np.asarray(self.R[:, [i]].toarray()).ravel()
+        rj = np.asarray(self.R[:, [j]].toarray()).ravel()
+        # exact Z without each document: Z - sum over its words of (r_k^a - (r_k - r^d_k)^a)
+        Rc = self.R.tocoo()
+        rk = self.r[Rc.col]
+        drop = rk ** self.alpha - np.maximum(rk - Rc.data, 0.0) ** self.alpha
+        z_new = np.exp(marg.log_z) - np.bincount(Rc.row, weights=drop, minlength=self.ws.n_documents)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            loo = (np.log(c - cd) - np.log(self.r[i] - ri) - self.alpha * np.log(self.r[j] - rj) + np.log(z_new))
+        loo = np.where(c - cd > 1e-12, loo, -np.inf)
+        return float(full), loo
