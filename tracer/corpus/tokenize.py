@@ -71,3 +71,25 @@ class Tokenizer:
 
     def tokenize(self, text: str) -> list[str]:
         return self._regexp.tokenize(self.normalize(text))
+
+    def spans(self, text: str) -> list[tuple[int, int]] | None:
+        """Character offsets of each token in the original ``text``.
+
+        Normalisation can change lengths (NFKC turns one ligature into two letters),
+        so the text is normalised cluster by cluster (a character and the combining
+        marks after it) and every output character is mapped back to its cluster.
+        Returns None if that gives other tokens than :meth:`tokenize` (offsets unknown).
+        """
+        pieces, owner = [], []
+        start = 0
+        for i in range(1, len(text) + 1):
+            if i == len(text) or not unicodedata.combining(text[i]):
+                piece = self.normalize(text[start:i])
+                pieces.append(piece)
+                owner.extend([(start, i)] * len(piece))
+                start = i
+        normalized = "".join(pieces)
+        spans = list(self._regexp.span_tokenize(normalized))
+        if [normalized[a:b] for a, b in spans] != self.tokenize(text):
+            return None
+        return [(owner[a][0], owner[b - 1][1]) for a, b in spans]
