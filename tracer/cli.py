@@ -472,6 +472,126 @@ def neighbours(ctx, words, workspace, model, slice_name, top, fmt, out):
     _emit_table(pd.DataFrame(rows), fmt, out, ctx)
 
 
+# ---- trace --------------------------------------------------------------------------------------
+
+
+def _one_test(tests_file, test_name):
+    from .errors import InputError
+    from .tests_file import load_tests
+    tests = load_tests(tests_file)
+    if test_name not in tests:
+        raise InputError(f"{tests_file}: no test named {test_name!r}; the tests are {', '.join(tests)}")
+    return tests[test_name]
+
+
+def _one_slice(ws, spec):
+    from .corpus.slices import slice_from_spec
+    return slice_from_spec(ws, spec)
+
+
+@cli.command()
+@workspace_option()
+@click.option("--tests", "tests_file", type=click.Path(dir_okay=False, path_type=Path), required=True,
+              help="TOML file of association tests.")
+@click.option("--test", "test_name", required=True, help="The (two-target) test to trace.")
+@click.option("--slice", "slice_spec", default="all", show_default=True, help="The slice to trace in.")
+@count_options
+@model_options
+@click.option("--top", type=click.IntRange(min=1), default=20, show_default=True, help="Documents to list.")
+@click.option("--candidates", type=click.IntRange(min=1), default=200, show_default=True,
+              help="Documents re-ranked exactly after the linear estimate.")
+@click.option("--verify", type=click.IntRange(min=0), default=0, show_default=True,
+              help="Retrain without the top K sources and document sets and compare (0: no verification).")
+@click.option("--rank-by", type=click.Choice(["gap", "effect_size"]), default="gap", show_default=True,
+              help="Rank by the raw gap (default; the effect size saturates near its ceiling) or by d.")
+@click.option("--seeds", type=click.IntRange(min=1), default=3, show_default=True,
+              help="word2vec: seeds of each verification retrain.")
+@click.option("--show", type=click.Choice(["all", "sources", "documents", "passages", "first-order",
+                                           "verification"]), default="all", show_default=True,
+              help="Which table to print (json always gives all).")
+@output_options
+@click.pass_context
+def trace(ctx, workspace, tests_file, test_name, slice_spec, window, min_count, weighting, max_vocab, model, dim,
+          seed, eig_power, alpha, shift, cbow, negative, epochs, workers, top, candidates, verify, rank_by, seeds,
+          show, fmt, out):
+    """Link a test's association to the sources, documents and passages that carry it.
+
+    Example:  tracer trace -w work/ --tests configs/demo_tests.toml --test gazette_outlet --verify 5
+    """
+    import json
+
+    from .output import render, to_records
+    from .trace import TraceSettings, trace as run_trace
+    ws = _open(workspace)
+    result = run_trace(ws, _one_test(tests_file, test_name), model, _one_slice(ws, slice_spec),
+                       _count_settings(window, min_count, weighting, max_vocab),
+                       _model_settings(model, dim, seed, eig_power, alpha, shift, cbow, negative, epochs, workers),
+                       TraceSettings(top=top, candidates=candidates, verify=verify, rank_by=rank_by, seeds=seeds,
+                                     seed=0 if seed is None else seed), progress=_progress(ctx))
+    v = result.verification
+    tables = {"sources": result.sources, "documents": result.documents, "passages": result.passages,
+              "first-order": result.first_order, "verification": v.rows if v is not None else None}
+    if fmt == "json":
+        doc = {"test": result.test, "model": result.model, "slice": result.slice, "effect_size": result.effect_size,
+               "gap": result.gap, "rank_by": result.rank_by, "estimates": ESTIMATE_NOTE, "notes": result.notes,
+               "sources": to_records(result.sources), "documents": to_records(result.documents),
+               "passages": to_records(result.passages), "first_order": to_records(result.first_order),
+               "verification": None if v is None else {
+                   "quantity": v.quantity, "rows": to_records(v.rows), "pearson_r": v.pearson_r,
+                   "spearman_rho": v.spearman_rho, "sign_agreement": v.sign_agreement}}
+        from .output import _clean
+        _emit(json.dumps(_clean(doc), indent=1, ensure_ascii=False) + "\n", out, ctx)
+        return
+    if show != "all":
+        if tables[show] is None:
+            from .errors import SettingError
+            raise SettingError("there is no verification table without --verify K")
+        _emit_table(tables[show], fmt, out, ctx)
+        return
+    parts = [f"Trace of {result.test} ({result.model}, slice {result.slice}): effect size {result.effect_size:.3f}, "
+             f"gap {result.gap:.4f}; ranked by {result.rank_by}.\n{ESTIMATE_NOTE}\n"]
+    for name, df in tables.items():
+        if df is None:
+            continue
+        shown = df.drop(columns=["text"]) if name == "passages" and len(df) else df
+        parts.append(f"\n== {name} ==\n" + render(shown))
+    if v is not None:
+        parts.append(f"agreement of predicted and retrained change ({v.quantity}): Pearson r {v.pearson_r:.3f}, "
+                     f"Spearman rho {v.spearman_rho:.3f}, sign agreement {v.sign_agreement:.2f}\n")
+    parts += [f"Note: {n}\n" for n in result.notes]
+    parts.append(CAUTIONS + "\n")
+    _emit("".join(parts), out, ctx)
+
+
+ESTIMATE_NOTE = ("Contributions are estimates of the change if the source or document were removed (counts exact, "
+                 "model subspace held fixed); only the verification rows are measured by retraining.")
+
+
+@cli.command()
+@click.argument("word")
+@click.option("--with", "contexts", required=True, help="Comma-separated words that co-occur with WORD.")
+@workspace_option()
+@click.option("--slice", "slice_spec", default="all", show_default=True)
+@count_options
+@click.option("--top", type=click.IntRange(min=1), default=10, show_default=True, help="Documents to show.")
+@click.option("--per-doc", type=click.IntRange(min=1), default=3, show_default=True, help="Passages per document.")
+@output_options
+@click.pass_context
+def passages(ctx, word, contexts, workspace, slice_spec, window, min_count, weighting, max_vocab, top, per_doc, fmt,
+             out):
+    """Passages (KWIC) where WORD co-occurs with the context words, from the documents with most such pairs.
+
+    Example:  tracer passages -w work/ velmari --with agony,evil --top 10
+    """
+    from .trace import pair_passages
+    ws = _open(workspace)
+    df = pair_passages(ws, word.lower(), [w.lower() for w in _words(contexts)], _one_slice(ws, slice_spec),
+                       _count_settings(window, min_count, weighting, max_vocab), top=top, per_doc=per_doc)
+    if fmt == "table":
+        df = df.drop(columns=["text"])
+    _emit_table(df, fmt, out, ctx)
+
+
 # ---- demo -------------------------------------------------------------------------------------
 
 

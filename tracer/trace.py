@@ -151,7 +151,8 @@ def trace(ws, test: AssociationTest, model: str, sl: Slice, counts: CountSetting
                          "pairs": "; ".join(f"{w}-{x} {v:+.2g}" for w, x, v in pairs), "doc_index": int(d)})
     documents = pd.DataFrame(doc_rows)
 
-    passages = find_passages(ws, attr, order[: settings.passage_docs], settings)
+    passages = find_passages(ws, c, attr.stream, order[: settings.passage_docs], attr.sets["x"] + attr.sets["y"],
+                             attr.sets["a"] + attr.sets["b"], settings)
     first_order = _first_order(attr, docs, settings)
     verification = None
     if settings.verify > 0:
@@ -187,18 +188,19 @@ def _first_order(attr: Attribution, docs: pd.DataFrame, settings: TraceSettings)
     return pd.DataFrame(rows, columns=["target", "attribute", "set", "count", "pmi", "doc_id", "pmi_without", "change"])
 
 
-def find_passages(ws, attr: Attribution, doc_indices, settings: TraceSettings, targets=None, attributes=None) -> pd.DataFrame:
+def find_passages(ws, counts, stream, doc_indices, targets: list[str], attributes: list[str],
+                  settings: TraceSettings) -> pd.DataFrame:
     """Windows of the given documents where a target word and an attribute word co-occur.
 
-    Offsets are characters of the stored text; ``marked`` has the two words in [[ ]].
+    ``stream`` is the counted token stream (:func:`tracer.attribute.kept_stream`), so a
+    passage is a window exactly as the counter saw it. Offsets are characters of the
+    stored text; ``marked`` has the two words in [[ ]].
     """
-    targets = targets if targets is not None else attr.sets["x"] + attr.sets["y"]
-    attributes = attributes if attributes is not None else attr.sets["a"] + attr.sets["b"]
-    idx = attr.counts.vocab.index
+    idx = counts.vocab.index
     t_ids = {idx[w] for w in targets}
     a_ids = {idx[w] for w in attributes}
-    st = attr.stream
-    window = attr.counts.settings.window
+    st = stream
+    window = counts.settings.window
     texts = ws.texts(doc_indices)
     tok = ws.tokenizer
     docs = ws.documents
@@ -221,7 +223,7 @@ def find_passages(ws, attr: Attribution, doc_indices, settings: TraceSettings, t
             p1, p2 = int(pos[q]) - start_tok, int(pos[q2]) - start_tok
             first, last = min(p1, p2), max(p1, p2)
             row = {"doc_id": docs.at[d, "doc_id"], "source": docs.at[d, "source"], "time": docs.at[d, "time"],
-                   "target": attr.counts.vocab.words[ids[q]], "attribute": attr.counts.vocab.words[ids[q2]]}
+                   "target": counts.vocab.words[ids[q]], "attribute": counts.vocab.words[ids[q2]]}
             if spans is None:
                 rows.append({**row, "start": None, "end": None, "text": None, "marked": None,
                              "note": "character offsets unavailable for this text"})
@@ -301,3 +303,29 @@ def verify(ws, test, model, sl, counts, model_settings, attr, sources, order, li
     sr = float(stats.spearmanr(p[ok], a[ok]).statistic) if ok.sum() >= 3 else float("nan")
     sign = float(np.mean(np.sign(p[ok]) == np.sign(a[ok]))) if ok.any() else float("nan")
     return Verification(table, pr, sr, sign, q)
+
+
+def pair_passages(ws, word: str, contexts: list[str], sl: Slice, counts: CountSettings = CountSettings(),
+                  top: int = 10, per_doc: int = 3, context_tokens: int = 8) -> pd.DataFrame:
+    """KWIC evidence for a pair: passages of the ``top`` documents where ``word`` co-occurs most with the
+    context words (window counts, as counted), with character offsets into the stored text."""
+    c = count_slice(ws, sl.weights, counts, slice_name=sl.name)
+    missing = [w for w in [word] + contexts if w not in c.vocab.index]
+    if missing:
+        raise WordNotInVocabulary(f"not in the vocabulary of slice {sl.name} (min count {counts.min_count}): "
+                                  + ", ".join(missing))
+    from .attribute import document_probe_rows, kept_stream
+
+    stream = kept_stream(ws, sl.weights, c)
+    probe = np.array([c.vocab.index[word]])
+    rows = document_probe_rows(stream, sl.weights, counts.distance_weights(), probe, ws.n_documents, len(c.vocab))[0]
+    cols = [c.vocab.index[w] for w in contexts]
+    per_doc_count = np.asarray(rows[:, cols].sum(axis=1)).ravel()
+    order = np.argsort(-per_doc_count, kind="stable")
+    order = order[per_doc_count[order] > 0][:top]
+
+    out = find_passages(ws, c, stream, order, [word], list(contexts),
+                        TraceSettings(passages_per_doc=per_doc, context_tokens=context_tokens))
+    counts_by_doc = dict(zip(ws.documents["doc_id"].to_numpy()[order], per_doc_count[order]))
+    out.insert(3, "pair_count", out["doc_id"].map(counts_by_doc))
+    return out
