@@ -592,6 +592,117 @@ def passages(ctx, word, contexts, workspace, slice_spec, window, min_count, weig
     _emit_table(df, fmt, out, ctx)
 
 
+@cli.command()
+@workspace_option()
+@click.option("--tests", "tests_file", type=click.Path(dir_okay=False, path_type=Path), required=True,
+              help="TOML file of association tests.")
+@click.option("--test", "test_names", multiple=True, help="Only this test (repeatable; default: all).")
+@click.option("--drop", "drops", multiple=True, help="Documents to drop, as a slice: source=NAME or time=A..B "
+              "(repeatable).")
+@click.option("--drop-docs", type=click.Path(dir_okay=False, path_type=Path), default=None,
+              help="File of document ids to drop, one per line.")
+@click.option("--slice", "slice_spec", default="all", show_default=True, help="The slice to measure in.")
+@count_options
+@model_options
+@click.option("--bootstrap", type=click.IntRange(min=0), default=None,
+              help="Document-bootstrap replicates (default: 20 for ppmi-svd, 0 for word2vec).")
+@click.option("--seeds", type=click.IntRange(min=1), default=1, show_default=True, help="word2vec: seeds.")
+@output_options
+@click.pass_context
+def ablate(ctx, workspace, tests_file, test_names, drops, drop_docs, slice_spec, window, min_count, weighting,
+           max_vocab, model, dim, seed, eig_power, alpha, shift, cbow, negative, epochs, workers, bootstrap, seeds,
+           fmt, out):
+    """Retrain without some sources, documents or years and re-measure: the effect before and after.
+
+    Example:  tracer ablate -w work/ --tests configs/demo_tests.toml --test gazette_outlet --drop source=Gazette
+    """
+    from .curate import ablate as run_ablate, drop_mask
+    from .errors import InputError
+    from .measure import MeasureSettings
+    from .tests_file import load_tests
+    ws = _open(workspace)
+    tests = load_tests(tests_file)
+    unknown = [t for t in test_names if t not in tests]
+    if unknown:
+        raise InputError(f"{tests_file}: no test named {unknown[0]!r}; the tests are {', '.join(tests)}")
+    tests = {t: tests[t] for t in test_names} if test_names else tests
+    ids = []
+    if drop_docs is not None:
+        if not drop_docs.is_file():
+            raise InputError(f"{drop_docs}: no such file")
+        ids = [line.strip() for line in drop_docs.read_text(encoding="utf-8").splitlines() if line.strip()]
+        if not ids:
+            raise InputError(f"{drop_docs}: the drop list is empty")
+    mask, what = drop_mask(ws, list(drops), ids)
+    if bootstrap is None:
+        bootstrap = 20 if model == "ppmi-svd" else 0
+    res = run_ablate(ws, tests, model, _one_slice(ws, slice_spec), mask, what,
+                     _count_settings(window, min_count, weighting, max_vocab),
+                     _model_settings(model, dim, seed, eig_power, alpha, shift, cbow, negative, epochs, workers),
+                     MeasureSettings(bootstrap=bootstrap, seeds=seeds, seed=0 if seed is None else seed, alpha=alpha))
+    if fmt == "table":
+        res = res[["run", "test", "slice", "effect_size", "ci_low", "ci_high", "p_value", "gap", "change",
+                   "documents_dropped", "tokens_dropped", "effect_size_seed_sd"]]
+    _emit_table(res, fmt, out, ctx)
+
+
+@cli.command()
+@workspace_option()
+@click.option("--tests", "tests_file", type=click.Path(dir_okay=False, path_type=Path), required=True,
+              help="TOML file of association tests.")
+@click.option("--test", "test_name", required=True, help="The (two-target) test to bring down.")
+@click.option("--goal", type=click.FloatRange(min=0), required=True, help="Target bound on |d|.")
+@click.option("--unit", type=click.Choice(["document", "source"]), default="document", show_default=True)
+@click.option("--slice", "slice_spec", default="all", show_default=True)
+@click.option("--max-steps", type=click.IntRange(min=1), default=500, show_default=True,
+              help="At most this many documents (or sources) in the plan.")
+@count_options
+@click.option("--dim", type=click.IntRange(min=1), default=100, show_default=True)
+@click.option("-o", "--out", "drop_list", type=click.Path(dir_okay=False, path_type=Path), default=None,
+              help="Write the drop list (document ids, one per line).")
+@click.option("--write-corpus", type=click.Path(dir_okay=False, path_type=Path), default=None,
+              help="Write the filtered corpus (JSONL with the original fields).")
+@click.option("--format", "fmt", type=click.Choice(["table", "json"]), default="table", show_default=True)
+@click.pass_context
+def plan(ctx, workspace, tests_file, test_name, goal, unit, slice_spec, max_steps, window, min_count, weighting,
+         max_vocab, dim, drop_list, write_corpus, fmt):
+    """Find a small set of documents (or sources) whose removal brings |d| to the goal, and verify it.
+
+    Example:  tracer plan -w work/ --tests configs/demo_tests.toml --test gazette_outlet --goal 0.5 -o drop.txt
+    """
+    import json
+
+    from .curate import plan as run_plan, write_filtered_corpus
+    from .embed.ppmi_svd import PpmiSvdSettings
+    from .output import _clean, render, to_records
+    from .corpus.workspace import write_atomic
+    ws = _open(workspace)
+    sl = _one_slice(ws, slice_spec)
+    p = run_plan(ws, _one_test(tests_file, test_name), sl, goal, unit=unit, max_steps=max_steps,
+                 counts=_count_settings(window, min_count, weighting, max_vocab), settings=PpmiSvdSettings(dim=dim))
+    ids = ws.documents["doc_id"].to_numpy()[p.doc_indices]
+    if drop_list is not None:
+        write_atomic(drop_list, "".join(f"{i}\n" for i in ids))
+        _say(ctx, f"wrote {len(ids)} document ids to {drop_list}")
+    if write_corpus is not None:
+        keep = sl.weights > 0
+        keep[p.doc_indices] = False
+        n = write_filtered_corpus(ws, keep, write_corpus)
+        _say(ctx, f"wrote {n} documents to {write_corpus}")
+    summary = {"unit": p.unit, "removed": len(p.removed), "documents_removed": len(p.doc_indices),
+               "tokens_removed": p.tokens_removed, "token_share_removed": p.token_share,
+               "effect_before": p.effect_before, "predicted_effect": p.predicted_effect,
+               "verified_effect": p.verified_effect}
+    if fmt == "json":
+        click.echo(json.dumps(_clean({**summary, "removed_items": p.removed, "steps": to_records(p.steps),
+                                      "usefulness": to_records(p.usefulness)}), indent=1, ensure_ascii=False))
+        return
+    from .output import render_mapping
+    click.echo(render_mapping(summary) + "\n" + render(p.usefulness) +
+               "\npredicted_effect is an estimate (model subspace held fixed); verified_effect comes from retraining "
+               "without the plan.\n" + CAUTIONS)
+
+
 # ---- demo -------------------------------------------------------------------------------------
 
 

@@ -212,6 +212,18 @@ class Workspace:
                     out[i] = t
         return out
 
+    def stored_records(self, doc_indices):
+        """(fields as a dict, text, input file) of each given document, in document order."""
+        idx = sorted(int(i) for i in doc_indices)
+        with self._connect() as con:
+            for k in range(0, len(idx), 500):
+                chunk = idx[k:k + 500]
+                marks = ",".join("?" * len(chunk))
+                for fields, text, src in con.execute(
+                        f"SELECT fields, text, input_file FROM documents WHERE doc_index IN ({marks}) "
+                        "ORDER BY doc_index", chunk):
+                    yield json.loads(fields), text, src
+
     def document_tokens(self, doc_index: int) -> np.ndarray:
         a, b = self.doc_offsets[doc_index], self.doc_offsets[doc_index + 1]
         return np.asarray(self.tokens[a:b])
