@@ -17,6 +17,7 @@ counts ``C^d`` (and so ``r^d``).
 from __future__ import annotations
 
 import dataclasses
+import functools
 
 import numpy as np
 import scipy.sparse as sp
@@ -96,6 +97,18 @@ def document_probe_rows(stream: Stream, weights: np.ndarray, dist_w: np.ndarray,
         out.append(sp.csr_array((np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))),
                                 shape=(n_docs, n_words)))
     return out
+
+
+def rows_sum(m: sp.csr_array, rows: np.ndarray) -> np.ndarray:
+    """Sum of the given rows of a CSR matrix as a dense vector (vectorised over the row ranges)."""
+    starts, ends = m.indptr[rows], m.indptr[rows + 1]
+    lengths = ends - starts
+    total = int(lengths.sum())
+    if total == 0:
+        return np.zeros(m.shape[1])
+    offsets = np.cumsum(lengths) - lengths
+    pos = np.repeat(starts - offsets, lengths) + np.arange(total)
+    return np.bincount(m.indices[pos], weights=m.data[pos], minlength=m.shape[1])
 
 
 @dataclasses.dataclass(frozen=True)
@@ -204,8 +217,7 @@ class Attribution:
         u = np.zeros(len(self.r))
         np.add.at(u, self.probe_ids[act.row], gv / r[self.probe_ids[act.row]])
         np.add.at(u, act.col, self.alpha * gv / r[act.col])
-        log_z = Marginals.of(self.counts.matrix, self.alpha).log_z
-        u -= self.alpha * gv.sum() * r ** (self.alpha - 1.0) / np.exp(log_z)
+        u -= self.alpha * gv.sum() * r ** (self.alpha - 1.0) / np.exp(self.log_z)
         return change + self.R @ u
 
     def pair_parts(self, doc: int, which: str = "gap", top: int = 3) -> list[tuple[str, str, float]]:
@@ -242,31 +254,48 @@ class Attribution:
     def exact(self, docs) -> Effect:
         """B with the documents removed: probe rows of M recomputed exactly, same subspace (tier 3)."""
         docs = np.atleast_1d(np.asarray(docs, dtype=np.int64))
-        removed = np.vstack([np.asarray(p[docs].sum(axis=0)).ravel() for p in self.P])
+        removed = np.vstack([rows_sum(p, docs) for p in self.P])
         C_new = self.C_P.toarray() - removed
         C_new[np.abs(C_new) < 1e-9] = 0.0  # a pair that only this document had
-        r_new = self.r - np.asarray(self.R[docs].sum(axis=0)).ravel()
+        r_new = self.r - rows_sum(self.R, docs)
         r_new = np.where(np.abs(r_new) < 1e-9, 0.0, r_new)
         return self.effect(self._probe_ppmi(C_new, r_new) @ self.proj)
 
     # ---- tier 1 -----------------------------------------------------------------------------
+    @functools.cached_property
+    def log_z(self) -> float:
+        """log Z of the slice's counts, ``Z = sum_k r_k ** alpha``."""
+        return Marginals.of(self.counts.matrix, self.alpha).log_z
+
+    @functools.cached_property
+    def _z_without(self) -> np.ndarray:
+        """Exact Z without each document: Z - sum over its words of (r_k^alpha - (r_k - r^d_k)^alpha)."""
+        Rc = self.R.tocoo()
+        rk = self.r[Rc.col]
+        drop = rk ** self.alpha - np.maximum(rk - Rc.data, 0.0) ** self.alpha
+        return np.exp(self.log_z) - np.bincount(Rc.row, weights=drop, minlength=self.ws.n_documents)
+
+    @functools.cached_property
+    def _R_csc(self) -> sp.csc_array:
+        return sp.csc_array(self.R)
+
+    def _column(self, m: sp.csc_array, j: int) -> np.ndarray:
+        out = np.zeros(m.shape[0])
+        a, b = m.indptr[j], m.indptr[j + 1]
+        out[m.indices[a:b]] = m.data[a:b]
+        return out
+
     def leave_one_out_pmi(self, w: str, a: str) -> tuple[float, np.ndarray]:
         """PMI(w, a) of the slice and, for every document, the exact PMI without it (-inf when
         the pair no longer co-occurs)."""
         idx = self.counts.vocab.index
         i, j = idx[w], idx[a]
-        marg = Marginals.of(self.counts.matrix, self.alpha)
         c = float(self.counts.matrix[i, j])
-        full = np.log(c) - np.log(self.r[i]) - self.alpha * np.log(self.r[j]) + marg.log_z if c > 0 else -np.inf
-        cd = np.asarray(self.P[self.row_of[w]][:, [j]].toarray()).ravel()
-        ri = np.asarray(self.R[:, [i]].toarray()).ravel()
-        rj = np.asarray(self.R[:, [j]].toarray()).ravel()
-        # exact Z without each document: Z - sum over its words of (r_k^a - (r_k - r^d_k)^a)
-        Rc = self.R.tocoo()
-        rk = self.r[Rc.col]
-        drop = rk ** self.alpha - np.maximum(rk - Rc.data, 0.0) ** self.alpha
-        z_new = np.exp(marg.log_z) - np.bincount(Rc.row, weights=drop, minlength=self.ws.n_documents)
+        full = np.log(c) - np.log(self.r[i]) - self.alpha * np.log(self.r[j]) + self.log_z if c > 0 else -np.inf
+        cd = self._column(sp.csc_array(self.P[self.row_of[w]][:, [j]]), 0)
+        ri, rj = self._column(self._R_csc, i), self._column(self._R_csc, j)
         with np.errstate(divide="ignore", invalid="ignore"):
-            loo = (np.log(c - cd) - np.log(self.r[i] - ri) - self.alpha * np.log(self.r[j] - rj) + np.log(z_new))
+            loo = (np.log(c - cd) - np.log(self.r[i] - ri) - self.alpha * np.log(self.r[j] - rj)
+                   + np.log(self._z_without))
         loo = np.where(c - cd > 1e-12, loo, -np.inf)
         return float(full), loo
