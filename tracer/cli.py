@@ -703,6 +703,93 @@ def plan(ctx, workspace, tests_file, test_name, goal, unit, slice_spec, max_step
                "without the plan.\n" + CAUTIONS)
 
 
+@cli.command()
+@workspace_option()
+@click.option("--tests", "tests_file", type=click.Path(dir_okay=False, path_type=Path), default=None,
+              help="TOML file of association tests (with --test, or all two-target tests).")
+@click.option("--test", "test_names", multiple=True, help="Only this test (repeatable).")
+@click.option("--words", default=None, help="Comma-separated words: their change across aligned periods instead.")
+@click.option("--by", default="time:10y", show_default=True, help="The periods: time:Ny or year.")
+@count_options
+@model_options
+@click.option("--bootstrap", type=click.IntRange(min=0), default=20, show_default=True,
+              help="Document-bootstrap replicates per period (intervals, trend interval, significant changes).")
+@click.option("--min-tokens", type=click.IntRange(min=1), default=20_000, show_default=True,
+              help="A period with fewer tokens is not measured.")
+@click.option("--neighbours", type=click.IntRange(min=1), default=10, show_default=True,
+              help="With --words: nearest neighbours listed per period.")
+@click.option("--show", type=click.Choice(["all", "periods", "trend", "changes", "sources"]), default="all",
+              show_default=True, help="Which table to print (json always gives all).")
+@output_options
+@click.pass_context
+def drift(ctx, workspace, tests_file, test_names, words, by, window, min_count, weighting, max_vocab, model, dim,
+          seed, eig_power, alpha, shift, cbow, negative, epochs, workers, bootstrap, min_tokens, neighbours, show,
+          fmt, out):
+    """How an association (or a word) moved from period to period, and why.
+
+    Example:  tracer drift -w work/ --tests configs/demo_tests.toml --test tribune_mix --by time:10y
+    """
+    import json
+
+    import pandas as pd
+
+    from .corpus.slices import slices_by
+    from .drift import drift as run_drift, word_drift
+    from .embed.ppmi_svd import PpmiSvdSettings
+    from .errors import InputError
+    from .measure import MeasureSettings
+    from .output import _clean, render, to_records
+    from .tests_file import load_tests
+    ws = _open(workspace)
+    if not by.startswith("time") and by != "year":
+        raise InputError(f"--by {by}: drift needs periods of time (time:Ny or year)")
+    periods = slices_by(ws, by)
+    counts = _count_settings(window, min_count, weighting, max_vocab)
+    if words:
+        change, near, notes = word_drift(ws, [w.lower() for w in _words(words)], periods, counts,
+                                         PpmiSvdSettings(dim=dim, alpha=alpha, shift=shift, eig_power=eig_power),
+                                         neighbours=neighbours)
+        if fmt == "json":
+            _emit(json.dumps(_clean({"change": to_records(change), "neighbours": to_records(near), "notes": notes}),
+                             indent=1, ensure_ascii=False) + "\n", out, ctx)
+        else:
+            _emit(render(change) + "\n" + render(near) + "".join(f"Note: {n}\n" for n in notes), out, ctx)
+        return
+    if tests_file is None:
+        raise InputError("give --tests FILE (and --test NAME), or --words")
+    tests = load_tests(tests_file)
+    unknown = [t for t in test_names if t not in tests]
+    if unknown:
+        raise InputError(f"{tests_file}: no test named {unknown[0]!r}; the tests are {', '.join(tests)}")
+    chosen = [tests[t] for t in test_names] if test_names else [t for t in tests.values() if t.two_target]
+    settings = MeasureSettings(bootstrap=bootstrap, seed=0 if seed is None else seed, alpha=alpha)
+    results = [run_drift(ws, t, model, periods, counts, _model_settings(model, dim, seed, eig_power, alpha, shift,
+                                                                          cbow, negative, epochs, workers),
+                         settings, min_tokens=min_tokens, progress=_progress(ctx)) for t in chosen]
+    if fmt == "json":
+        doc = [{"test": r.test, "model": r.model, "periods": to_records(r.periods), "trend": r.trend,
+                "changes": to_records(r.changes), "source_shares": to_records(r.source_parts), "notes": r.notes}
+               for r in results]
+        _emit(json.dumps(_clean(doc if len(doc) > 1 else doc[0]), indent=1, ensure_ascii=False) + "\n", out, ctx)
+        return
+    tables = {"periods": lambda r: r.periods, "trend": lambda r: pd.DataFrame([r.trend]),
+              "changes": lambda r: r.changes, "sources": lambda r: r.source_parts}
+    if show != "all":
+        _emit_table(pd.concat([tables[show](r).assign(test=r.test) for r in results]), fmt, out, ctx)
+        return
+    parts = []
+    for r in results:
+        parts.append(f"== {r.test} ({r.model}) ==\n")
+        for name in ("periods", "trend", "changes"):
+            parts.append(f"-- {name} --\n" + render(tables[name](r)))
+        parts += [f"Note: {n}\n" for n in r.notes]
+    parts.append("gap: mean association of targets_x minus targets_y (trend and decomposition use it; the effect "
+                 "size saturates); slope: gap per decade; mix_part: change due to the mix of sources, "
+                 "within_part: change inside the sources (the later period reweighted to the earlier mix).\n"
+                 + CAUTIONS + "\n")
+    _emit("".join(parts), out, ctx)
+
+
 # ---- demo -------------------------------------------------------------------------------------
 
 

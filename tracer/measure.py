@@ -32,6 +32,9 @@ from .tests_file import AssociationTest
 log = logging.getLogger(__name__)
 
 SMALL_SLICE_TOKENS = 100_000
+OUTSIDE_INTERVAL = ("the estimate lies outside its bootstrap interval: a replicate holds about 63% distinct "
+                    "documents, and embeddings of less text give smaller cosine gaps, so replicates run low; "
+                    "read the interval's width, not its position")
 Z95 = 1.959963984540054  # standard normal 97.5% quantile
 
 
@@ -57,11 +60,12 @@ class MeasureSettings:
 
 @dataclasses.dataclass(frozen=True)
 class MeasureResult:
-    """Three tables; see :func:`measure` for their columns."""
+    """Four tables; see :func:`measure` for their columns."""
 
     summary: pd.DataFrame
     words: pd.DataFrame
     leave_one_out: pd.DataFrame
+    replicates: pd.DataFrame
 
 
 def _pmi_scores(c: Counts, ppmi, rows_t, rows_a, rows_b) -> np.ndarray:
@@ -98,10 +102,10 @@ def log_odds_ratio(c: Counts, word: str, a_words: list[str], b_words: list[str])
 
 
 def _bootstrap_weights(sl: Slice, rng: np.random.Generator) -> np.ndarray:
-    """Multinomial resample of the slice's documents, as whole-number weights."""
+    """Multinomial resample of the slice's documents: how often each is drawn, times its weight."""
     members = np.flatnonzero(sl.weights > 0)
     w = np.zeros_like(sl.weights)
-    w[members] = rng.multinomial(len(members), np.full(len(members), 1.0 / len(members)))
+    w[members] = rng.multinomial(len(members), np.full(len(members), 1.0 / len(members))) * sl.weights[members]
     return w
 
 
@@ -123,11 +127,12 @@ def measure(ws, tests: dict[str, AssociationTest], model: str, slices: list[Slic
         ``words``: one row per target word: test, model, slice, word, set, score, ripa, pmi_score,
         count_a, count_b, log_odds_ratio, lor_ci_low, lor_ci_high, lor_zero_cell_corrected.
         ``leave_one_out``: test, model, slice, left_out, set, effect_size, change.
+        ``replicates``: the bootstrap distribution itself: test, model, slice, replicate, effect_size, gap.
     """
     if model_settings is None:
         model_settings = PpmiSvdSettings() if model == "ppmi-svd" else Word2VecSettings()
     rng = np.random.default_rng(settings.seed)
-    rows, word_rows, loo_rows = [], [], []
+    rows, word_rows, loo_rows, rep_rows = [], [], [], []
     # trained models slice by slice, then the outside vectors if given: side by side in one table
     for sl in list(slices) + ([None] if vectors is not None else []):
         slice_name = sl.name if sl is not None else "external"
@@ -137,6 +142,9 @@ def measure(ws, tests: dict[str, AssociationTest], model: str, slices: list[Slic
         boot = _bootstrap(ws, sl, c, tests, model, counts, model_settings, settings, embs[0], rng, progress) \
             if sl is not None and settings.bootstrap > 0 else {}
         ppmi = ppmi_matrix(c.matrix, alpha=settings.alpha).tocsr() if c is not None else None
+        for name, (ds, gaps) in boot.items():
+            rep_rows.extend({"test": name, "model": model, "slice": slice_name, "replicate": k, "effect_size": d,
+                             "gap": g} for k, (d, g) in enumerate(zip(ds, gaps)))
         warning = ""
         if sl is not None and sl.n_tokens < SMALL_SLICE_TOKENS:
             warning = (f"slice {sl.name} has {sl.n_tokens} tokens, fewer than {SMALL_SLICE_TOKENS}: embeddings of so little "
@@ -155,15 +163,19 @@ def measure(ws, tests: dict[str, AssociationTest], model: str, slices: list[Slic
             if reason:
                 rows.append({**base, "measured": False, "reason": reason})
                 continue
-            rows.append({**base, "measured": True, "reason": "",
-                         **_measure_one(test, wsets, embs, c, ppmi, boot.get(test.name), settings, rng)})
+            one = _measure_one(test, wsets, embs, c, ppmi, boot.get(test.name), settings, rng)
+            row_warning = warning
+            if one.get("n_bootstrap") and not (one["gap_ci_low"] <= one["gap"] <= one["gap_ci_high"]):
+                row_warning = "; ".join(filter(None, [warning, OUTSIDE_INTERVAL]))
+            rows.append({**base, "warning": row_warning, "measured": True, "reason": "", **one})
             word_rows.extend({"test": test.name, "model": model_name, "slice": slice_name, **r}
                              for r in _word_table(test, wsets, embs[0], c, ppmi))
             loo_rows.extend({"test": test.name, "model": model_name, "slice": slice_name, **r}
                             for r in _leave_one_out(test, wsets, embs, rows[-1]))
     summary = pd.DataFrame(rows, columns=SUMMARY_COLUMNS)
     return MeasureResult(summary, pd.DataFrame(word_rows, columns=WORD_COLUMNS),
-                         pd.DataFrame(loo_rows, columns=LOO_COLUMNS))
+                         pd.DataFrame(loo_rows, columns=LOO_COLUMNS),
+                         pd.DataFrame(rep_rows, columns=["test", "model", "slice", "replicate", "effect_size", "gap"]))
 
 
 SUMMARY_COLUMNS = ["test", "kind", "model", "slice", "measured", "reason", "effect_size", "gap", "statistic",
