@@ -124,7 +124,7 @@ def test_no_trend_in_corpora_with_nothing_planted(tmp_path):
     """Periods drawn alike (nothing planted): Kendall's trend test at 0.05 fires in about 5% of corpora."""
     hits, n = 0, 0
     for seed in range(60):
-        docs, _ = gen.generate(20_000 + seed, docs_per_year=10, plant=False)
+        docs, _ = gen.generate(20_000 + seed, docs_per_year=25, plant=False)
         path = tmp_path / f"c{seed}.jsonl.gz"
         with gzip.open(path, "wt", encoding="utf-8") as f:
             f.writelines(json.dumps(d) + "\n" for d in docs)

@@ -65,7 +65,11 @@ def test_conventions_and_guards_are_reported(demo_result):
     assert set(s[s.kind == "two-target"].p_method) == {"exact"}
     gazette = _row(demo_result, "gazette_outlet", "source=Gazette")
     assert "slice source=Gazette has" in gazette.warning and "fewer than 100000" in gazette.warning
-    assert _row(demo_result, "gazette_outlet", "all").warning == ""
+    assert "fewer than 100000" not in _row(demo_result, "gazette_outlet", "all").warning
+    # the bootstrap caution appears exactly where the gap lies outside its own interval
+    two = s[(s.kind == "two-target") & s.measured.astype(bool)]
+    outside = (two.gap < two.gap_ci_low) | (two.gap > two.gap_ci_high)
+    assert (two.warning.str.contains("outside its bootstrap interval") == outside).all()
     occ = _row(demo_result, "occupations", "all")
     assert occ.kind == "one-target" and np.isfinite(occ.mean_score) and np.isnan(occ.effect_size)
 

@@ -13,7 +13,7 @@ import dataclasses
 
 import numpy as np
 import pandas as pd
-from scipy import linalg, stats
+from scipy import stats
 
 from .cooccur import CountSettings
 from .corpus.slices import Slice
