@@ -95,6 +95,17 @@ def _model_settings(model, dim, seed, eig_power, alpha, shift, cbow, negative, e
                             seed=1 if seed is None else seed, workers=workers)
 
 
+def tests_file_option(required: bool = True):
+    return click.option("--tests", "tests_file", type=click.Path(dir_okay=False, path_type=Path), required=required,
+                        help="TOML file of association tests.")
+
+
+def _load_tests(tests_file, names=()) -> dict:
+    """The tests of the file, only the named ones if names are given."""
+    from .tests_file import load_tests, select_tests
+    return select_tests(load_tests(tests_file), list(names), tests_file)
+
+
 def _count_settings(window, min_count, weighting, max_vocab):
     from .cooccur import CountSettings
     return CountSettings(window=window, weighting=weighting, min_count=min_count, max_vocab=max_vocab)
@@ -294,8 +305,7 @@ CAUTIONS = ("Cautions: an association in an embedding is not proof of discrimina
 
 @cli.command()
 @workspace_option()
-@click.option("--tests", "tests_file", type=click.Path(dir_okay=False, path_type=Path), required=True,
-              help="TOML file of association tests.")
+@tests_file_option()
 @click.option("--test", "test_names", multiple=True, help="Only this test (repeatable; default: all).")
 @slice_options
 @count_options
@@ -326,16 +336,9 @@ def measure(ctx, workspace, tests_file, test_names, by, picks, window, min_count
     """
     from .corpus.slices import resolve_slices
     from .embed.vectors import Embedding
-    from .errors import InputError
     from .measure import MeasureSettings, measure as run_measure
-    from .tests_file import load_tests
     ws = _open(workspace)
-    tests = load_tests(tests_file)
-    if test_names:
-        unknown = [t for t in test_names if t not in tests]
-        if unknown:
-            raise InputError(f"{tests_file}: no test named {unknown[0]!r}; the tests are {', '.join(tests)}")
-        tests = {t: tests[t] for t in test_names}
+    tests = _load_tests(tests_file, test_names)
     if bootstrap is None:
         bootstrap = 20 if model == "ppmi-svd" else 0
     settings = MeasureSettings(min_words=min_words, bootstrap=bootstrap, seeds=seeds, permutations=permutations,
@@ -367,8 +370,7 @@ def measure(ctx, workspace, tests_file, test_names, by, picks, window, min_count
 
 @cli.command()
 @workspace_option()
-@click.option("--tests", "tests_file", type=click.Path(dir_okay=False, path_type=Path), required=True,
-              help="TOML file of association tests.")
+@tests_file_option()
 @click.option("--test", "test_name", required=True, help="The test whose attribute sets score each word.")
 @click.option("--table", "table_file", type=click.Path(dir_okay=False, path_type=Path), required=True,
               help="CSV with a header: a word column and a numeric column.")
@@ -394,19 +396,15 @@ def correlate(ctx, workspace, tests_file, test_name, table_file, word_column, va
     from .correlate import correlate as run_correlate, read_word_values, scatter_plot
     from .corpus.slices import resolve_slices
     from .embed.train import train_embedding
-    from .errors import InputError
-    from .tests_file import load_tests
     ws = _open(workspace)
-    tests = load_tests(tests_file)
-    if test_name not in tests:
-        raise InputError(f"{tests_file}: no test named {test_name!r}; the tests are {', '.join(tests)}")
+    test = _one_test(tests_file, test_name)
     table = read_word_values(table_file, word_column, value_column)
     counts = _count_settings(window, min_count, weighting, max_vocab)
     settings = _model_settings(model, dim, seed, eig_power, alpha, shift, cbow, negative, epochs, workers)
     from .cooccur import count_slice
     pairs = [(train_embedding(ws, sl, model, counts, settings, save=False, progress=_progress(ctx)),
               count_slice(ws, sl.weights, counts, slice_name=sl.name)) for sl in resolve_slices(ws, by, picks)]
-    summary, points = run_correlate(pairs, tests[test_name], table, n_boot=bootstrap,
+    summary, points = run_correlate(pairs, test, table, n_boot=bootstrap,
                                     seed=0 if seed is None else seed)
     if plot is not None:
         scatter_plot(points, value_column, plot)
@@ -476,12 +474,7 @@ def neighbours(ctx, words, workspace, model, slice_name, top, fmt, out):
 
 
 def _one_test(tests_file, test_name):
-    from .errors import InputError
-    from .tests_file import load_tests
-    tests = load_tests(tests_file)
-    if test_name not in tests:
-        raise InputError(f"{tests_file}: no test named {test_name!r}; the tests are {', '.join(tests)}")
-    return tests[test_name]
+    return _load_tests(tests_file, [test_name])[test_name]
 
 
 def _one_slice(ws, spec):
@@ -491,8 +484,7 @@ def _one_slice(ws, spec):
 
 @cli.command()
 @workspace_option()
-@click.option("--tests", "tests_file", type=click.Path(dir_okay=False, path_type=Path), required=True,
-              help="TOML file of association tests.")
+@tests_file_option()
 @click.option("--test", "test_name", required=True, help="The (two-target) test to trace.")
 @click.option("--slice", "slice_spec", default="all", show_default=True, help="The slice to trace in.")
 @count_options
@@ -539,8 +531,8 @@ def trace(ctx, workspace, tests_file, test_name, slice_spec, window, min_count, 
                "verification": None if v is None else {
                    "quantity": v.quantity, "rows": to_records(v.rows), "pearson_r": v.pearson_r,
                    "spearman_rho": v.spearman_rho, "sign_agreement": v.sign_agreement}}
-        from .output import _clean
-        _emit(json.dumps(_clean(doc), indent=1, ensure_ascii=False) + "\n", out, ctx)
+        from .output import plain_values
+        _emit(json.dumps(plain_values(doc), indent=1, ensure_ascii=False) + "\n", out, ctx)
         return
     if show != "all":
         if tables[show] is None:
@@ -594,8 +586,7 @@ def passages(ctx, word, contexts, workspace, slice_spec, window, min_count, weig
 
 @cli.command()
 @workspace_option()
-@click.option("--tests", "tests_file", type=click.Path(dir_okay=False, path_type=Path), required=True,
-              help="TOML file of association tests.")
+@tests_file_option()
 @click.option("--test", "test_names", multiple=True, help="Only this test (repeatable; default: all).")
 @click.option("--drop", "drops", multiple=True, help="Documents to drop, as a slice: source=NAME or time=A..B "
               "(repeatable).")
@@ -619,13 +610,8 @@ def ablate(ctx, workspace, tests_file, test_names, drops, drop_docs, slice_spec,
     from .curate import ablate as run_ablate, drop_mask
     from .errors import InputError
     from .measure import MeasureSettings
-    from .tests_file import load_tests
     ws = _open(workspace)
-    tests = load_tests(tests_file)
-    unknown = [t for t in test_names if t not in tests]
-    if unknown:
-        raise InputError(f"{tests_file}: no test named {unknown[0]!r}; the tests are {', '.join(tests)}")
-    tests = {t: tests[t] for t in test_names} if test_names else tests
+    tests = _load_tests(tests_file, test_names)
     ids = []
     if drop_docs is not None:
         if not drop_docs.is_file():
@@ -648,8 +634,7 @@ def ablate(ctx, workspace, tests_file, test_names, drops, drop_docs, slice_spec,
 
 @cli.command()
 @workspace_option()
-@click.option("--tests", "tests_file", type=click.Path(dir_okay=False, path_type=Path), required=True,
-              help="TOML file of association tests.")
+@tests_file_option()
 @click.option("--test", "test_name", required=True, help="The (two-target) test to bring down.")
 @click.option("--goal", type=click.FloatRange(min=0), required=True, help="Target bound on |d|.")
 @click.option("--unit", type=click.Choice(["document", "source"]), default="document", show_default=True)
@@ -674,7 +659,7 @@ def plan(ctx, workspace, tests_file, test_name, goal, unit, slice_spec, max_step
 
     from .curate import plan as run_plan, write_filtered_corpus
     from .embed.ppmi_svd import PpmiSvdSettings
-    from .output import _clean, render, to_records
+    from .output import plain_values, render, to_records
     from .corpus.workspace import write_atomic
     ws = _open(workspace)
     sl = _one_slice(ws, slice_spec)
@@ -694,7 +679,7 @@ def plan(ctx, workspace, tests_file, test_name, goal, unit, slice_spec, max_step
                "effect_before": p.effect_before, "predicted_effect": p.predicted_effect,
                "verified_effect": p.verified_effect}
     if fmt == "json":
-        click.echo(json.dumps(_clean({**summary, "removed_items": p.removed, "steps": to_records(p.steps),
+        click.echo(json.dumps(plain_values({**summary, "removed_items": p.removed, "steps": to_records(p.steps),
                                       "usefulness": to_records(p.usefulness)}), indent=1, ensure_ascii=False))
         return
     from .output import render_mapping
@@ -705,8 +690,7 @@ def plan(ctx, workspace, tests_file, test_name, goal, unit, slice_spec, max_step
 
 @cli.command()
 @workspace_option()
-@click.option("--tests", "tests_file", type=click.Path(dir_okay=False, path_type=Path), default=None,
-              help="TOML file of association tests (with --test, or all two-target tests).")
+@tests_file_option(required=False)
 @click.option("--test", "test_names", multiple=True, help="Only this test (repeatable).")
 @click.option("--words", default=None, help="Comma-separated words: their change across aligned periods instead.")
 @click.option("--by", default="time:10y", show_default=True, help="The periods: time:Ny or year.")
@@ -738,8 +722,7 @@ def drift(ctx, workspace, tests_file, test_names, words, by, window, min_count, 
     from .embed.ppmi_svd import PpmiSvdSettings
     from .errors import InputError
     from .measure import MeasureSettings
-    from .output import _clean, render, to_records
-    from .tests_file import load_tests
+    from .output import plain_values, render, to_records
     ws = _open(workspace)
     if not by.startswith("time") and by != "year":
         raise InputError(f"--by {by}: drift needs periods of time (time:Ny or year)")
@@ -750,18 +733,15 @@ def drift(ctx, workspace, tests_file, test_names, words, by, window, min_count, 
                                          PpmiSvdSettings(dim=dim, alpha=alpha, shift=shift, eig_power=eig_power),
                                          neighbours=neighbours)
         if fmt == "json":
-            _emit(json.dumps(_clean({"change": to_records(change), "neighbours": to_records(near), "notes": notes}),
+            _emit(json.dumps(plain_values({"change": to_records(change), "neighbours": to_records(near), "notes": notes}),
                              indent=1, ensure_ascii=False) + "\n", out, ctx)
         else:
             _emit(render(change) + "\n" + render(near) + "".join(f"Note: {n}\n" for n in notes), out, ctx)
         return
     if tests_file is None:
         raise InputError("give --tests FILE (and --test NAME), or --words")
-    tests = load_tests(tests_file)
-    unknown = [t for t in test_names if t not in tests]
-    if unknown:
-        raise InputError(f"{tests_file}: no test named {unknown[0]!r}; the tests are {', '.join(tests)}")
-    chosen = [tests[t] for t in test_names] if test_names else [t for t in tests.values() if t.two_target]
+    tests = _load_tests(tests_file, test_names)
+    chosen = list(tests.values()) if test_names else [t for t in tests.values() if t.two_target]
     settings = MeasureSettings(bootstrap=bootstrap, seed=0 if seed is None else seed, alpha=alpha)
     results = [run_drift(ws, t, model, periods, counts, _model_settings(model, dim, seed, eig_power, alpha, shift,
                                                                           cbow, negative, epochs, workers),
@@ -770,7 +750,7 @@ def drift(ctx, workspace, tests_file, test_names, words, by, window, min_count, 
         doc = [{"test": r.test, "model": r.model, "periods": to_records(r.periods), "trend": r.trend,
                 "changes": to_records(r.changes), "source_shares": to_records(r.source_parts), "notes": r.notes}
                for r in results]
-        _emit(json.dumps(_clean(doc if len(doc) > 1 else doc[0]), indent=1, ensure_ascii=False) + "\n", out, ctx)
+        _emit(json.dumps(plain_values(doc if len(doc) > 1 else doc[0]), indent=1, ensure_ascii=False) + "\n", out, ctx)
         return
     tables = {"periods": lambda r: r.periods, "trend": lambda r: pd.DataFrame([r.trend]),
               "changes": lambda r: r.changes, "sources": lambda r: r.source_parts}

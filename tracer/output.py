@@ -11,7 +11,8 @@ import pandas as pd
 FORMATS = ("table", "csv", "json")
 
 
-def _clean(value):
+def plain_values(value):
+    """A value (or nested dicts and lists of them) with numpy scalars, NaN and NA made JSON-ready."""
     if isinstance(value, (np.integer,)):
         return int(value)
     if isinstance(value, (np.floating, float)):
@@ -22,15 +23,15 @@ def _clean(value):
     if value is pd.NA or value is pd.NaT:
         return None
     if isinstance(value, dict):
-        return {k: _clean(v) for k, v in value.items()}
+        return {k: plain_values(v) for k, v in value.items()}
     if isinstance(value, (list, tuple)):
-        return [_clean(v) for v in value]
+        return [plain_values(v) for v in value]
     return value
 
 
 def to_records(df: pd.DataFrame) -> list[dict]:
     """Rows as dicts with plain Python values; NaN and infinities become None."""
-    return [{k: _clean(v) for k, v in row.items()} for row in df.to_dict(orient="records")]
+    return [{k: plain_values(v) for k, v in row.items()} for row in df.to_dict(orient="records")]
 
 
 def _format_float(v: float, digits: int) -> str:
@@ -58,14 +59,14 @@ def render(df: pd.DataFrame, fmt: str = "table", *, float_digits: int = 4) -> st
         if pd.api.types.is_float_dtype(shown[col]):
             shown[col] = shown[col].map(lambda v: _format_float(v, float_digits))
         else:
-            shown[col] = shown[col].map(lambda v: "" if _clean(v) is None else v)
+            shown[col] = shown[col].map(lambda v: "" if plain_values(v) is None else v)
     return shown.to_string(index=False) + "\n"
 
 
 def render_mapping(data: dict, fmt: str = "table") -> str:
     """A flat mapping (a summary) as key-value lines, CSV or a JSON object."""
     if fmt == "json":
-        return json.dumps(_clean(data), indent=1, ensure_ascii=False) + "\n"
+        return json.dumps(plain_values(data), indent=1, ensure_ascii=False) + "\n"
     df = pd.DataFrame({"key": list(data.keys()), "value": [str(v) for v in data.values()]})
     if fmt == "csv":
         return df.to_csv(index=False)

@@ -100,3 +100,11 @@ def load_tests(path: str | Path) -> dict[str, AssociationTest]:
             raise InputError(f"{path}: test {name!r}: about must be text")
         out[name] = AssociationTest(name, x, y, a, b, pairs, about)
     return out
+
+
+def select_tests(tests: dict[str, AssociationTest], names, path) -> dict[str, AssociationTest]:
+    """The named tests (all when ``names`` is empty); an unknown name says which tests there are."""
+    unknown = [n for n in names if n not in tests]
+    if unknown:
+        raise InputError(f"{path}: no test named {unknown[0]!r}; the tests are {', '.join(tests)}")
+    return {n: tests[n] for n in names} if names else dict(tests)
