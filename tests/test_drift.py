@@ -136,3 +136,11 @@ def test_no_trend_in_corpora_with_nothing_planted(tmp_path):
         hits += r.trend["p_value"] < 0.05
     print(f"significant trends: {hits} of {n}")
     assert hits / n <= 0.12  # 5% expected; 7 of 60 or fewer (binomial upper tail about 3%)
+
+
+def test_each_source_gets_a_share_of_the_within_change(drifts):
+    sp = drifts["rise_and_fall"].source_parts
+    first = sp[(sp["from"] == "time=1950..1959") & (sp["to"] == "time=1960..1969")]
+    assert sorted(first.source) == ["Courier", "Gazette", "Herald", "Ledger", "Tribune"]
+    assert np.isfinite(first.within_contribution.astype(float)).all()
+    assert first.share_from.sum() == pytest.approx(1.0) and first.share_to.sum() == pytest.approx(1.0)

@@ -34,7 +34,9 @@ class DriftResult:
     period: its bootstrap interval excludes 0). ``trend``: slope (gap per decade), slope_ci_low,
     slope_ci_high, p_value (Kendall's tau of gap against time), tau, periods_used. ``changes``: from, to,
     total, mix_part, within_part, mix_share, reweighted_gap, sources_only_in_from, sources_only_in_to.
-    ``source_parts``: from, to, source, share_from, share_to, within_contribution."""
+    ``source_parts``: from, to, source, share_from, share_to, within_contribution (the source's share of
+    the within-source change, estimated with trace's machinery: the within change minus what it would
+    be without that source in both periods)."""
 
     test: str
     model: str
@@ -163,12 +165,45 @@ def _decompose(ws, test, model, measured, table, counts, model_settings, setting
             notes.append(f"{a.name} -> {b.name}: sources in one period only: "
                          + ", ".join([f"{s} ({a.name})" for s in only_a] + [f"{s} ({b.name})" for s in only_b]))
         sa, sb = source_shares(ws, a.weights), source_shares(ws, b.weights)
+        within_by_source = _within_by_source(ws, test, a, rw, counts, model_settings) if r.measured else {}
         for s in sorted(set(sa.index) | set(sb.index)):
             parts.append({"from": a.name, "to": b.name, "source": s, "share_from": float(sa.get(s, 0.0)),
-                          "share_to": float(sb.get(s, 0.0))})
+                          "share_to": float(sb.get(s, 0.0)), "within_contribution": within_by_source.get(s)})
     return (pd.DataFrame(rows, columns=["from", "to", "overall", "total", "mix_part", "within_part", "mix_share",
                                         "reweighted_gap", "sources_only_in_from", "sources_only_in_to"]),
-            pd.DataFrame(parts, columns=["from", "to", "source", "share_from", "share_to"]))
+            pd.DataFrame(parts, columns=["from", "to", "source", "share_from", "share_to", "within_contribution"]))
+
+
+def _within_by_source(ws, test, earlier: Slice, reweighted: Slice, counts, model_settings) -> dict:
+    """Each source's share of the within-source change, with trace's machinery on the difference.
+
+    within = gap(later, reweighted) - gap(earlier). Without source s in both periods it would be
+    within_{-s}; the source's contribution is within - within_{-s}, each gap without s estimated
+    exactly on the probe rows with the period's subspace held fixed (an estimate, like trace's).
+    """
+    from .attribute import Attribution
+    from .cooccur import count_slice
+    from .embed.train import embedding_from_counts
+
+    svd = model_settings if isinstance(model_settings, PpmiSvdSettings) else PpmiSvdSettings(
+        dim=getattr(model_settings, "dim", 100))
+    src = ws.documents["source"].to_numpy()
+    attrs = []
+    for period in (earlier, reweighted):
+        c = count_slice(ws, period.weights, counts, slice_name=period.name)
+        emb = embedding_from_counts(ws, period, c, svd)
+        attrs.append(Attribution(ws, period.weights, c, emb, test, alpha=svd.alpha, shift=svd.shift,
+                                 eig_power=svd.eig_power))
+    early, late = attrs
+    within = late.base.gap - early.base.gap
+    out = {}
+    for s in sorted(set(src[(earlier.weights > 0) | (reweighted.weights > 0)])):
+        docs_early = np.flatnonzero((src == s) & (earlier.weights > 0))
+        docs_late = np.flatnonzero((src == s) & (reweighted.weights > 0))
+        g_early = early.exact(docs_early).gap if len(docs_early) else early.base.gap
+        g_late = late.exact(docs_late).gap if len(docs_late) else late.base.gap
+        out[s] = float(within - (g_late - g_early))
+    return out
 
 
 # ---- aligned spaces ----------------------------------------------------------------------------
