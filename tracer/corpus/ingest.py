@@ -271,7 +271,10 @@ def ingest(workspace: str | os.PathLike, inputs: Iterable[str | os.PathLike], *,
         con = sqlite3.connect(store / DB_FILE)
         con.executescript(_SCHEMA)
         new_offsets: list[int] = []
-        rejects: list[Reject] = []
+        # rejects go to a file as they come, so a corpus full of bad records does not fill memory
+        reject_log = open(store / "rejects.new.jsonl", "w", encoding="utf-8")
+        reasons: dict[str, int] = {}
+        first_reject: Reject | None = None
         summaries: list[InputSummary] = []
         bar = tqdm(desc="ingest", unit=" docs", disable=not progress, leave=False)
         with open(store / TOKENS_FILE, "ab") as tok_file:
@@ -306,7 +309,10 @@ def ingest(workspace: str | os.PathLike, inputs: Iterable[str | os.PathLike], *,
                         if strict:
                             raise InputError(f"{row.file}, line {row.line}: {row.reason} "
                                              "(--strict stops at the first rejected record)")
-                        rejects.append(row)
+                        reject_log.write(json.dumps(row.to_dict(), ensure_ascii=False) + "\n")
+                        kind = _reason_kind(row.reason)
+                        reasons[kind] = reasons.get(kind, 0) + 1
+                        first_reject = first_reject or row
                         n_rej += 1
                         continue
                     ids = np.empty(len(strings), dtype=np.uint32)
@@ -339,11 +345,13 @@ def ingest(workspace: str | os.PathLike, inputs: Iterable[str | os.PathLike], *,
             if buffer:
                 tok_file.write(np.concatenate(buffer).astype("<u4").tobytes())
         bar.close()
+        reject_log.close()
         con.commit()
         con.close()
         if n_docs == 0:
+            n_rejected = sum(reasons.values())
             raise InputError("empty corpus: no usable records in " + ", ".join(str(p) for p in inputs)
-                             + (f" ({len(rejects)} rejected; first: {rejects[0].reason})" if rejects else ""))
+                             + (f" ({n_rejected} rejected; first: {first_reject.reason})" if first_reject else ""))
         offsets = np.concatenate([offsets_old[:-1], np.asarray(new_offsets, dtype=np.int64),
                                   np.asarray([n_tokens], dtype=np.int64)]).astype("<i8")
         offsets.tofile(store / OFFSETS_FILE)
@@ -372,18 +380,24 @@ def ingest(workspace: str | os.PathLike, inputs: Iterable[str | os.PathLike], *,
         raise
     _recover(ws_path)
     rejects_file = None
-    if rejects:
+    new_rejects = store / "rejects.new.jsonl"
+    if reasons:
         rejects_file = ws_path / REJECTS_FILE
-        with open(rejects_file, "a", encoding="utf-8") as f:
-            for r in rejects:
-                f.write(json.dumps(r.to_dict(), ensure_ascii=False) + "\n")
-    reasons: dict[str, int] = {}
-    for r in rejects:
-        key = r.reason.split(" (")[0] if not r.reason.startswith("duplicate id") else "duplicate id"
-        key = key.split(":")[0] if key.startswith("malformed JSON") else key
-        reasons[key] = reasons.get(key, 0) + 1
+        with open(rejects_file, "a", encoding="utf-8") as out, open(new_rejects, encoding="utf-8") as f:
+            shutil.copyfileobj(f, out)
+    new_rejects.unlink()
     return IngestSummary(str(ws_path), summaries, n_docs, n_tokens, len(words),
                          str(rejects_file) if rejects_file else None, reasons)
+
+
+def _reason_kind(reason: str) -> str:
+    """A reject's reason without the details that differ from record to record."""
+    for prefix in ("duplicate id", "malformed JSON", "not valid UTF-8", "missing time"):
+        if reason.startswith(prefix):
+            return prefix
+    if reason.startswith("field "):
+        return reason.split(":")[0] + " unreadable"
+    return reason.split(" (")[0]
 
 
 def _write_vocab(path: Path, words: list[str], counts: np.ndarray) -> None:
