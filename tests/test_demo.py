@@ -89,13 +89,13 @@ def test_demo_runs_end_to_end_and_leaves_a_usable_workspace(tmp_path):
     assert "Demo archive: 7000 documents" in result.text
     assert f"Wrote the workspace to {tmp_path / 'demo'}" in result.text
     assert "not proof of discrimination" in result.text
+    assert "Trace of gazette_outlet: the source that carries it most is Gazette" in result.text
+    assert (result.run_folder / "report.html").is_file()
     ws = Workspace(tmp_path / "demo")
     sea = set(gen.TOPICS["sea"]["nouns"])
     for model in ("ppmi-svd", "word2vec"):
         emb = load_embedding(ws, model, "all")
         near = [w for w, _ in emb.neighbours("harbour", 6)]
         assert len(sea.intersection(near)) >= 4, (model, near)  # topic words neighbour topic words
-    for decade in range(1950, 2020, 10):
-        assert load_embedding(ws, "ppmi-svd", f"time={decade}..{decade + 9}").dim == 100
     info = CliRunner().invoke(cli, ["info", "-w", str(tmp_path / "demo"), "--format", "json"])
     assert info.exit_code == 0 and '"documents": 7000' in info.stdout

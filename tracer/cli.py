@@ -770,6 +770,49 @@ def drift(ctx, workspace, tests_file, test_names, words, by, window, min_count, 
     _emit("".join(parts), out, ctx)
 
 
+# ---- runs and reports ---------------------------------------------------------------------------
+
+
+@cli.command()
+@click.argument("experiment", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("--open-report", is_flag=True, help="Print only the report's path (for scripts).")
+@click.pass_context
+def run(ctx, experiment, open_report):
+    """Run an experiment file: ingest (if needed), measure, trace, drift, report.
+
+    Example:  tracer run configs/demo.toml
+    """
+    from .config import load_experiment
+    from .runs import run_experiment
+    exp = load_experiment(experiment)
+    result = run_experiment(exp, progress=_progress(ctx), say=functools.partial(_say, ctx),
+                            command=f"tracer run {experiment}")
+    report = result.folder / "report.html"
+    if open_report:
+        click.echo(str(report))
+        return
+    click.echo(f"{'Reused' if result.reused else 'Stored'} run {result.run_id} in {result.folder}\n"
+               f"Report: {report}\nTables: {result.folder / 'tables'}")
+
+
+@cli.command()
+@workspace_option()
+@click.option("--run", "run_id", default="latest", show_default=True, help="Run id, or latest.")
+@click.option("-o", "--out", type=click.Path(dir_okay=False, path_type=Path), required=True,
+              help="Where to write the HTML report.")
+@click.pass_context
+def report(ctx, workspace, run_id, out):
+    """Write the self-contained HTML report of a stored run.
+
+    Example:  tracer report -w tracer-demo --run latest -o report.html
+    """
+    from .report.html import write_report
+    from .runs import find_run
+    folder = find_run(workspace, run_id)
+    write_report(folder, out)
+    _say(ctx, f"wrote the report of run {folder.name} to {out}")
+
+
 # ---- demo -------------------------------------------------------------------------------------
 
 

@@ -1,82 +1,98 @@
-"""The demo: the whole path on the bundled invented archive, in well under a minute."""
+"""The demo: ``tracer run`` on the bundled demo experiment, plus stored models to explore afterwards."""
 
 from __future__ import annotations
 
 import dataclasses
+import json
 import time
 from pathlib import Path
 from typing import Callable
 
+import pandas as pd
+
 from .errors import InputError
 from .output import render
 
-DEMO_DIR = Path(__file__).resolve().parent.parent / "corpora_demo"
-DEMO_CORPUS = DEMO_DIR / "archive.jsonl.gz"
+ROOT = Path(__file__).resolve().parent.parent
+DEMO_CORPUS = ROOT / "corpora_demo" / "archive.jsonl.gz"
+DEMO_EXPERIMENT = ROOT / "configs" / "demo.toml"
 
 
 @dataclasses.dataclass(frozen=True)
 class DemoResult:
     workspace: Path
+    run_folder: Path
     text: str
     seconds: float
 
 
+def _table(folder: Path, name: str) -> pd.DataFrame:
+    return pd.DataFrame(json.loads((folder / "tables" / f"{name}.json").read_text(encoding="utf-8")))
+
+
 def run_demo(workspace: str | Path, *, progress: bool = False,
              say: Callable[[str], None] = lambda s: None) -> DemoResult:
-    """Ingest the demo archive into ``workspace``, count, train, export; return a printable account."""
+    """Run the demo experiment with its workspace in ``workspace``; return a printable account."""
+    from .config import load_experiment
     from .cooccur import CountSettings
-    from .corpus.ingest import ingest
-    from .corpus.slices import resolve_slices
+    from .corpus.slices import slice_from_spec
     from .corpus.workspace import Workspace
-    from .embed.ppmi_svd import PpmiSvdSettings
-    from .embed.train import load_embedding, train_embedding
+    from .embed.train import train_embedding
     from .embed.word2vec import Word2VecSettings
-    from .probes import pmi_table
+    from .runs import run_experiment
 
-    if not DEMO_CORPUS.is_file():
-        raise InputError(f"the demo archive is missing ({DEMO_CORPUS}); run tracer from a source checkout "
-                         "installed with  pip install -e .  or regenerate it with "
-                         "python corpora_demo/generate_demo_corpus.py")
+    if not DEMO_CORPUS.is_file() or not DEMO_EXPERIMENT.is_file():
+        raise InputError(f"the demo files are missing ({DEMO_CORPUS}, {DEMO_EXPERIMENT}); run tracer from a source "
+                         "checkout installed with  pip install -e .")
     t0 = time.perf_counter()
-    workspace = Path(workspace)
-    out: list[str] = []
-    say(f"ingesting {DEMO_CORPUS.name} into {workspace}")
-    ingest(workspace, [DEMO_CORPUS], progress=progress)
+    workspace = Path(workspace).resolve()
+    exp = dataclasses.replace(load_experiment(DEMO_EXPERIMENT), workspace=workspace)
+    result = run_experiment(exp, progress=progress, say=say, command=f"tracer demo -w {workspace}")
     ws = Workspace(workspace)
-    s = ws.summary()
-    out.append(f"Demo archive: {s['documents']} documents, {s['tokens']} tokens, {s['sources']} outlets, "
-               f"{s['first_year']}-{s['last_year']}.\n\n")
-    counts = CountSettings()
-    say("counting windowed co-occurrence for a planted pair, per outlet")
-    table = pmi_table(ws, "velmari", ["agony", "joy"], resolve_slices(ws, ["source"]), counts)
-    out.append("PMI of 'velmari' with 'agony' and 'joy', per outlet (planted in the Gazette only):\n")
-    out.append(render(table.drop(columns=["note", "word"])) + "\n")
-    say("training PPMI-SVD on the whole archive and on each decade")
-    svd = PpmiSvdSettings(dim=100)
-    slices = resolve_slices(ws, ["time:10y"], ["all"])
-    for sl in slices:
-        train_embedding(ws, sl, "ppmi-svd", counts, svd, progress=progress)
-    say("training word2vec (skip-gram) on the whole archive")
-    all_slice = slices[0]
-    w2v = train_embedding(ws, all_slice, "word2vec", counts, Word2VecSettings(dim=100, workers=2, epochs=5),
-                          progress=progress)
-    ppmi_all = load_embedding(ws, "ppmi-svd", "all")
-    out.append("Nearest neighbours (whole archive):\n")
-    for word in ("harbour", "wheat", "nurse"):
-        for name, emb in (("ppmi-svd", ppmi_all), ("word2vec", w2v)):
-            near = ", ".join(w for w, _ in emb.neighbours(word, 6))
-            out.append(f"  {word:8s} {name:9s} {near}\n")
+    say("storing PPMI-SVD and word2vec models of the whole archive for tracer neighbours and export")
+    whole = slice_from_spec(ws, "all")
+    ppmi = train_embedding(ws, whole, "ppmi-svd", exp.counts, exp.ppmi_svd, progress=progress)
+    w2v = train_embedding(ws, whole, "word2vec", exp.counts, Word2VecSettings(dim=100, workers=2), progress=progress)
     export_path = workspace / "exports" / "ppmi-svd-all.txt"
     export_path.parent.mkdir(exist_ok=True)
-    ppmi_all.save_word2vec_format(export_path)
+    ppmi.save_word2vec_format(export_path)
+
+    folder = result.folder
+    s = ws.summary()
+    out = [f"Demo archive: {s['documents']} documents, {s['tokens']} tokens, {s['sources']} outlets, "
+           f"{s['first_year']}-{s['last_year']} (invented; corpora_demo/README.md says what was planted).\n\n"]
+    m = _table(folder, "measure")
+    shown = m[(m.slice.isin(["all", "source=Gazette", "source=Tribune", "time=1980..1989"])) & (m.kind == "two-target")]
+    out.append("Effect sizes (WEAT d, population sd; bootstrap interval) in a few slices:\n")
+    out.append(render(shown[["test", "slice", "effect_size", "ci_low", "ci_high", "p_value", "gap"]]) + "\n")
+    for name in exp.trace_tests:
+        src = _table(folder, f"trace_{name}_sources")
+        ver = _table(folder, f"trace_{name}_verification")
+        out.append(f"Trace of {name}: the source that carries it most is {src.source.iloc[0]} "
+                   f"({src.token_share.iloc[0]:.0%} of the tokens); predicted vs retrained change, "
+                   f"Pearson r {ver.pearson_r.iloc[0]:.3f} over {len(ver)} retrains.\n")
+    for name in exp.drift_tests:
+        trend = _table(folder, f"drift_{name}_trend").iloc[0]
+        ch = _table(folder, f"drift_{name}_changes")
+        overall = ch[ch.overall.astype(bool)].iloc[0] if ch.overall.astype(bool).any() else None
+        line = f"Drift of {name}: gap slope {trend.slope:+.3f} per decade (Kendall p {trend.p_value:.3g})"
+        if overall is not None:
+            line += (f"; first to last period {overall.total:+.3f}, of which the mix of sources "
+                     f"{overall.mix_part:+.3f} and change within the sources {overall.within_part:+.3f}")
+        out.append(line + ".\n")
+    out.append("\nNearest neighbours (whole archive):\n")
+    for word in ("harbour", "wheat", "nurse"):
+        for name, emb in (("ppmi-svd", ppmi), ("word2vec", w2v)):
+            out.append(f"  {word:8s} {name:9s} {', '.join(w for w, _ in emb.neighbours(word, 6))}\n")
     seconds = time.perf_counter() - t0
     out.append(
-        f"\nWrote the workspace to {workspace} (models in {ws.models_dir}, "
-        f"{len(slices)} PPMI-SVD slices and word2vec on 'all'), and {export_path} in word2vec text format.\n"
+        f"\nWrote the workspace to {workspace}: run {result.run_id} in {folder} "
+        f"(report {folder / 'report.html'}, tables in {folder / 'tables'}), models in {ws.models_dir}, "
+        f"and {export_path} in word2vec text format.\n"
         f"Try:  tracer info -w {workspace} --sources\n"
-        f"      tracer pmi -w {workspace} dranik --with career,family --by time:10y\n"
+        f"      tracer trace -w {workspace} --tests {DEMO_EXPERIMENT.parent / 'demo_tests.toml'} --test gazette_outlet\n"
         f"      tracer neighbours -w {workspace} captain,harvest --model word2vec\n"
         f"Done in {seconds:.1f} s.\n"
         "Caution: these are invented data; an association in an embedding is not proof of discrimination, "
         "word lists encode choices, and small corpora give unstable numbers.\n")
-    return DemoResult(workspace, "".join(out), seconds)
+    return DemoResult(workspace, folder, "".join(out), seconds)

@@ -279,7 +279,9 @@ def _leave_one_out(test, wsets, embs, summary_row) -> list[dict]:
 
 def _bootstrap(ws, sl, c, tests, model, counts, model_settings, settings, emb, rng, progress) -> dict:
     """Effect sizes and gaps of every two-target test over document-bootstrap replicates."""
-    two = [t for t in tests.values() if t.two_target]
+    known = set(emb.index) & set(c.vocab.index)
+    two = [t for t in tests.values()
+           if t.two_target and word_sets(t, known).reason_not_measured(True, settings.min_words) is None]
     if not two:
         return {}
     d = {t.name: [] for t in two}
