@@ -34,7 +34,6 @@ def run_demo(workspace: str | Path, *, progress: bool = False,
              say: Callable[[str], None] = lambda s: None) -> DemoResult:
     """Run the demo experiment with its workspace in ``workspace``; return a printable account."""
     from .config import load_experiment
-    from .cooccur import CountSettings
     from .corpus.slices import slice_from_spec
     from .corpus.workspace import Workspace
     from .embed.train import train_embedding
