@@ -130,3 +130,16 @@ def test_report_opens_in_a_headless_browser(run_dir, tmp_path):
     assert img.shape[0] > 500 and img[..., :3].std() > 0.05  # not a blank page
     console_errors = [line for line in res.stderr.splitlines() if "CONSOLE" in line and "rror" in line]
     assert console_errors == []
+
+
+def test_a_changed_experiment_reuses_cached_counts_and_models(run_dir):
+    folder = run_dir.parent.parent.parent
+    text = (folder / "exp.toml").read_text(encoding="utf-8")
+    (folder / "exp2.toml").write_text(text.replace("verify = 2", "verify = 3"), encoding="utf-8")
+    again = run_experiment(load_experiment(folder / "exp2.toml"))
+    assert not again.reused and again.folder != run_dir
+    info = json.loads((again.folder / "run.json").read_text())
+    assert info["cache"]["hits"] > 10  # every slice's counts and model came from the cache
+    first = json.loads((run_dir / "tables" / "measure.json").read_text())
+    second = json.loads((again.folder / "tables" / "measure.json").read_text())
+    assert [r["effect_size"] for r in first] == [r["effect_size"] for r in second]

@@ -37,6 +37,7 @@ import scipy.sparse as sp
 from tqdm.auto import tqdm
 
 from . import _kernels as _k
+from .cache import cacheable
 from .errors import SettingError, SliceError
 
 WEIGHTINGS = ("uniform", "harmonic", "linear")
@@ -470,6 +471,14 @@ def count_slice(ws, weights: np.ndarray, settings: CountSettings, *, slice_name:
     The vocabulary is built from the documents of nonzero weight unless given,
     so resamples of one slice can share the slice's vocabulary.
     """
+    cache = getattr(ws, "cache", None)
+    key = None
+    if cache is not None and cacheable(weights):
+        key = cache.key(ws.corpus_hash, weights, "counts", settings.to_dict(),
+                        None if vocab is None else vocab.ids.tolist())
+        hit = cache.get_counts(key)
+        if hit is not None:
+            return dataclasses.replace(hit, slice_name=slice_name)
     words = ws.vocab.words
     if vocab is None:
         try:
@@ -478,4 +487,7 @@ def count_slice(ws, weights: np.ndarray, settings: CountSettings, *, slice_name:
             raise SliceError(f"slice {slice_name}: {e}") from None
     matrix = count_matrix(ws.tokens, ws.doc_offsets, weights, vocab, len(words), settings,
                           workers=workers, progress=progress)
-    return Counts(matrix, vocab, settings, slice_name)
+    counts = Counts(matrix, vocab, settings, slice_name)
+    if key is not None:
+        cache.put_counts(key, counts)
+    return counts

@@ -52,7 +52,7 @@ def run_experiment(exp: Experiment, *, progress: bool = False, say: Callable[[st
 
     say(f"ingesting into {exp.workspace}")
     ingest(exp.workspace, exp.inputs, fields=exp.fields, tokenizer=exp.tokenizer, progress=progress)
-    ws = Workspace(exp.workspace)
+    ws = Workspace(exp.workspace, cache=True)  # counts and models of unchanged slices are reused
     runs = ws.path / RUNS_DIR
     for done in sorted(runs.glob("*/run.json")) if runs.is_dir() else []:
         info = json.loads(done.read_text(encoding="utf-8"))
@@ -124,6 +124,7 @@ def run_experiment(exp: Experiment, *, progress: bool = False, say: Callable[[st
                 "experiment": experiment_summary(exp), "manifest": ws.manifest, "versions": package_versions(),
                 "seeds": {"measure": exp.seed, "ppmi_svd": exp.ppmi_svd.seed, "word2vec": exp.word2vec.seed},
                 "command": command or f"tracer run {exp.path}", "timings_s": timings,
+                "cache": {"hits": ws.cache.hits, "misses": ws.cache.misses},
                 "seconds": time.perf_counter() - started,
                 "finished_at": dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds")}
         write_atomic(tmp / "run.json", json.dumps(plain_values(info), indent=1, ensure_ascii=False))

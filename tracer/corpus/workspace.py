@@ -94,10 +94,15 @@ class Workspace:
 
     Open with ``Workspace(path)``; raises :class:`WorkspaceNotFound` if no corpus
     was ingested there. Writing is done by :func:`tracer.corpus.ingest.ingest`.
+    ``Workspace(path, cache=True)`` reuses counts and models of slices made before
+    (see :mod:`tracer.cache`); ``tracer run`` opens workspaces that way.
     """
 
-    def __init__(self, path: str | os.PathLike):
+    def __init__(self, path: str | os.PathLike, *, cache: bool = False):
         self.path = Path(path)
+        # with cache=True, counts and models of slices are kept in WORKSPACE/cache and reused
+        from ..cache import ResultCache
+        self.cache = ResultCache(self.path / "cache") if cache else None
         current = self.path / CURRENT_FILE
         if not current.is_file():
             raise WorkspaceNotFound(

@@ -13,6 +13,7 @@ import pandas as pd
 from ..cooccur import CountSettings, count_slice, build_vocab
 from ..corpus.ingest import package_versions
 from ..corpus.slices import Slice
+from ..cache import cacheable
 from ..errors import ModelNotFound, SettingError, SliceError
 from .ppmi_svd import PpmiSvdSettings, ppmi_svd_vectors
 from .vectors import Embedding
@@ -114,7 +115,18 @@ def embedding_from_counts(ws, sl: Slice, c, settings: PpmiSvdSettings) -> Embedd
     if settings.dim >= len(c.vocab):
         raise SettingError(f"slice {sl.name} has {len(c.vocab)} words at min count {c.settings.min_count}; "
                            f"--dim {settings.dim} must be below that (lower --dim or --min-count)")
+    cache = getattr(ws, "cache", None)
+    key = None
+    if cache is not None and cacheable(sl.weights):
+        key = cache.key(ws.corpus_hash, sl.weights, "ppmi-svd", c.settings.to_dict(), settings.to_dict(),
+                        c.vocab.ids.tolist())
+        hit = cache.get_embedding(key)
+        if hit is not None:
+            return Embedding(hit.words, hit.vectors, {**hit.card, "slice": sl.name}, hit.extras)
     vectors, extras = ppmi_svd_vectors(c.matrix, settings)
     card = {"model": "ppmi-svd", "slice": sl.name, "settings": settings.to_dict(), "counts": c.settings.to_dict(),
             "corpus_hash": ws.corpus_hash, "n_words": len(c.vocab), "dim": int(vectors.shape[1])}
-    return Embedding(list(c.vocab.words), vectors, card, extras)
+    emb = Embedding(list(c.vocab.words), vectors, card, extras)
+    if key is not None:
+        cache.put_embedding(key, emb)
+    return emb
