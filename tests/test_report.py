@@ -100,6 +100,8 @@ def test_run_folder_holds_tables_config_and_provenance(run_dir):
     info = json.loads((run_dir / "run.json").read_text())
     assert {"run_id", "experiment_hash", "corpus_hash", "versions", "seeds", "command"} <= set(info)
     assert (run_dir / "experiment.toml").is_file()
+    figures = sorted((run_dir / "figures").glob("*.png"))
+    assert len(figures) >= 6 and all(f.read_bytes()[:4] == b"\x89PNG" for f in figures)
     for name in ("measure", "trace_gazette_outlet_sources", "drift_tribune_mix_changes"):
         assert (run_dir / "tables" / f"{name}.csv").is_file() and (run_dir / "tables" / f"{name}.json").is_file()
 

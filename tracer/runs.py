@@ -6,6 +6,7 @@ Each run is stored in ``WORKSPACE/runs/RUN_ID/``:
     run.json            run id, experiment and corpus hashes, versions, seeds, timings, the command
     tables/NAME.csv     every result table (and NAME.json)
     report.html         the report (built from the stored tables only)
+    figures/NN-*.png    the report's figures as files
 
 A run of an unchanged experiment file on an unchanged corpus is not recomputed: the
 stored run is returned (``reused`` says so).
@@ -47,7 +48,7 @@ def run_experiment(exp: Experiment, *, progress: bool = False, say: Callable[[st
                    command: str = "") -> RunResult:
     """Ingest (if needed), measure, trace, drift; store every table; render the report."""
     from .drift import drift, word_drift
-    from .report.html import write_report
+    from .report.html import save_figures, write_report
     from .trace import TraceSettings, trace
 
     say(f"ingesting into {exp.workspace}")
@@ -128,7 +129,8 @@ def run_experiment(exp: Experiment, *, progress: bool = False, say: Callable[[st
                 "seconds": time.perf_counter() - started,
                 "finished_at": dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds")}
         write_atomic(tmp / "run.json", json.dumps(plain_values(info), indent=1, ensure_ascii=False))
-        write_report(tmp, tmp / "report.html")
+        report = write_report(tmp, tmp / "report.html")
+        save_figures(report.read_text(encoding="utf-8"), tmp / "figures")
         os.replace(tmp, runs / run_id)  # the run appears whole or not at all
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)

@@ -221,3 +221,18 @@ def build_report(run_dir: str | Path) -> str:
 def write_report(run_dir: str | Path, out: str | Path) -> Path:
     write_atomic(Path(out), build_report(run_dir))
     return Path(out)
+
+
+def save_figures(report_html: str, folder: str | Path) -> list[Path]:
+    """Write every figure embedded in a report as a PNG file (named after its alt text)."""
+    import re
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    out = []
+    for n, (alt, data) in enumerate(re.findall(r'<img alt="([^"]*)" src="data:image/png;base64,([^"]+)"',
+                                               report_html), start=1):
+        slug = re.sub(r"[^A-Za-z0-9]+", "-", alt).strip("-").lower()[:60] or "figure"
+        path = folder / f"{n:02d}-{slug}.png"
+        path.write_bytes(base64.b64decode(data))
+        out.append(path)
+    return out
