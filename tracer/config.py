@@ -132,6 +132,16 @@ def _where(path, text, section, key=None) -> str:
     return f"{path}, line {line}" if line else str(path)
 
 
+def _check_keys(table: dict, schema: dict, name: str, listing: str, where) -> None:
+    """Every key of ``table`` is in ``schema`` and of its type; ``where(key)`` says file and line."""
+    for key, v in table.items():
+        if key not in schema:
+            raise InputError(f"{where(key)}: unknown key {name}.{key} ({listing} {', '.join(schema)})")
+        what, ok = schema[key]
+        if not ok(v):
+            raise InputError(f"{where(key)}: {name}.{key} must be a {what}, not {v!r}")
+
+
 def load_experiment(path: str | Path) -> Experiment:
     """Read and check an experiment file; every error names the file, the key and its line."""
     path = Path(path)
@@ -148,23 +158,11 @@ def load_experiment(path: str | Path) -> Experiment:
                              f"(the sections are {', '.join(SCHEMA)})")
         if not isinstance(value, dict):
             raise InputError(f"{path}: {section} must be a table [{section}]")
-        for key, v in value.items():
-            if key not in SCHEMA[section]:
-                raise InputError(f"{_where(path, text, section, key)}: unknown key {section}.{key} "
-                                 f"(the keys of [{section}] are {', '.join(SCHEMA[section])})")
-            what, ok = SCHEMA[section][key]
-            if not ok(v):
-                raise InputError(f"{_where(path, text, section, key)}: {section}.{key} must be a {what}, "
-                                 f"not {v!r}")
+        _check_keys(value, SCHEMA[section], section, f"the keys of [{section}] are",
+                    lambda key, section=section: _where(path, text, section, key))
     for sub in ("ppmi_svd", "word2vec"):
-        for key, v in data.get("models", {}).get(sub, {}).items():
-            if key not in _MODEL_KEYS[sub]:
-                raise InputError(f"{_where(path, text, 'models', sub)}: unknown key models.{sub}.{key} "
-                                 f"(the keys are {', '.join(_MODEL_KEYS[sub])})")
-            what, ok = _MODEL_KEYS[sub][key]
-            if not ok(v):
-                raise InputError(f"{_where(path, text, 'models', sub)}: models.{sub}.{key} must be a {what}, "
-                                 f"not {v!r}")
+        _check_keys(data.get("models", {}).get(sub, {}), _MODEL_KEYS[sub], f"models.{sub}", "the keys are",
+                    lambda key, sub=sub: _where(path, text, "models", sub))
     for section, key in sorted(REQUIRED):
         if key not in data.get(section, {}):
             raise InputError(f"{path}: missing {section}.{key}")
