@@ -157,6 +157,7 @@ class Attribution:
         self.M_P = self._probe_ppmi(self.C_P, self.r)
         self.W_P = self.M_P @ self.proj
         self.base = self.effect(self.W_P)
+        self._dB_dM_cache: dict[str, np.ndarray] = {}
 
     # ---- the association as a function of the probe vectors ----------------------------------
     def _scores(self, W):
@@ -200,9 +201,15 @@ class Attribution:
         return G
 
     # ---- tier 2 -----------------------------------------------------------------------------
+    def _dB_dM(self, which: str) -> np.ndarray:
+        """dB / dM for the probe rows, shape (n_probe, n_words); computed once per quantity."""
+        if which not in self._dB_dM_cache:
+            self._dB_dM_cache[which] = self.gradient(which) @ self.proj.T
+        return self._dB_dM_cache[which]
+
     def linear(self, which: str = "gap") -> np.ndarray:
         """Estimated change of B when each document is removed, shape (n_docs,) (tier 2)."""
-        g = self.gradient(which) @ self.proj.T                   # dB / dM for the probe rows
+        g = self._dB_dM(which)
         act = self.M_P.tocoo()
         gv = g[act.row, act.col]                                 # only cells above the threshold move
         k_vals = gv / self.C_P[act.row, act.col]
@@ -222,7 +229,7 @@ class Attribution:
 
     def pair_parts(self, doc: int, which: str = "gap", top: int = 3) -> list[tuple[str, str, float]]:
         """The probe-row cells of one document that carry most of its joint-count term."""
-        g = self.gradient(which) @ self.proj.T
+        g = self._dB_dM(which)
         act = self.M_P.tocoo()
         words = self.counts.vocab.words
         parts = []

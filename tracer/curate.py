@@ -136,7 +136,7 @@ def plan(ws, test: AssociationTest, sl: Slice, goal: float, *, unit: str = "docu
     mask = np.zeros(ws.n_documents, bool)
     mask[removed] = True
     after = reduced_slice(sl, ws, mask, f"{len(chosen)} {unit}s of the plan")
-    emb_before = train_embedding(ws, sl, "ppmi-svd", counts, settings, save=False)
+    emb_before = emb  # the slice's model, made above from the same counts and settings
     emb_after = train_embedding(ws, after, "ppmi-svd", counts, settings, save=False)
     verified = weat(emb_after.unit_vectors, emb_after.index, test, with_p=False).effect_size
     pairs = read_pairs(bundled_wordsim353())
