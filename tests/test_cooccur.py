@@ -1,3 +1,5 @@
+import mmap
+
 import numpy as np
 import scipy.sparse as sp
 import pytest
@@ -168,3 +170,23 @@ def test_upper_triangle_output_adds_up_to_the_symmetric_matrix(lee_ws):
     assert upper.nnz == len(set(zip(*upper.nonzero())))  # no duplicate cells
     assert abs(sp.triu(upper) - upper).max() == 0  # upper triangle only
     assert abs((upper + upper.T) - full).max() < 1e-9  # the diagonal doubles in U + U^T
+
+
+def test_wide_codes_and_plain_page_arrays_give_the_same_counts(lee_ws, monkeypatch):
+    # the counter picks uint16 pair codes for a small vocabulary with uniform weights and
+    # ordinary-page arrays above a size; forcing the other branch must change nothing
+    import tracer._kernels as kernels
+    import tracer.cooccur as cooccur
+    s = CountSettings()
+    w = np.ones(lee_ws.n_documents)
+    vocab = build_vocab(lee_ws.tokens, lee_ws.doc_offsets, w, lee_ws.vocab.words, s)
+    args = (lee_ws.tokens, lee_ws.doc_offsets, w, vocab, len(lee_ws.vocab), s)
+    assert cooccur.narrow_codes(len(vocab), s)
+    ref = count_matrix(*args, workers=2)
+    monkeypatch.setattr(kernels, "NARROW_MAX_WORDS", 0)
+    monkeypatch.setattr(cooccur, "_PLAIN_PAGES_FROM", 0)
+    assert not cooccur.narrow_codes(len(vocab), s)
+    assert isinstance(cooccur.big_empty(10, np.int32).base.obj, mmap.mmap)
+    other = count_matrix(*args, workers=2)
+    assert other.has_canonical_format and ref.has_canonical_format
+    assert (abs(other - ref)).max() == 0 and other.nnz == ref.nnz

@@ -1,17 +1,23 @@
 """Compiled kernels of the co-occurrence counter (numba, nogil: threads run them in parallel).
 
-The counter works in three steps, each split so that threads share the work:
+The counter works in four steps, each split so that threads share the work:
 
-1. ``map_ids`` / ``row_lengths``: per part of the documents, model ids with
-   out-of-vocabulary tokens removed, and the number of pairs per row (a pair's
-   row is its smaller id);
+1. ``row_lengths``: per part of the documents, the number of pairs per row (a
+   pair's row is its smaller id); each document's tokens are mapped to model
+   ids, out-of-vocabulary ones removed, in a small buffer just before use;
 2. ``scatter_pairs``: every part writes its pairs into one shared array, row by
    row, each part into its own reserved range of each row (no two threads
    write the same place);
-3. ``reduce_rows``: a block of rows at a time, the pairs of a row are summed
+3. ``distinct_columns``: a block of rows at a time, the number of cells each
+   row will have, so the output is allocated exactly once, at its final size;
+4. ``reduce_rows``: a block of rows at a time, the pairs of a row are summed
    with a dense accumulator into CSR arrays (columns unsorted).
 
-A pair is stored as one uint32: the larger id, with the distance - 1 in the top
+Memory is the cost that matters most: on the virtual machines this runs on,
+touching fresh memory costs more than the counting itself, so the pair array is
+kept as small as the settings allow. A pair is stored as one uint16 (the larger
+id) when the vocabulary has at most 65,536 words and the weighting is uniform
+(so the distance need not be kept); otherwise as one uint32: the larger id, with the distance - 1 in the top
 ``DIST_BITS`` bits. ``symmetrize_lower`` and ``symmetrize_upper`` turn the summed
 upper triangle U into U + U^T with sorted rows: two mirror passes, each a
 counting-sort scatter, in row blocks.
@@ -25,77 +31,97 @@ COL_BITS = 32 - DIST_BITS
 COL_MASK = (1 << COL_BITS) - 1
 MAX_WINDOW = 1 << DIST_BITS
 MAX_WORDS = 1 << COL_BITS
+NARROW_MAX_WORDS = 1 << 16
 
 # pragma: no cover - the bodies below are compiled; tests reach them through tracer.cooccur
 
 
 @numba.njit(nogil=True, cache=True)
-def map_ids(tokens, starts, ends, id_map, ids, kept):
-    """Write the model ids of the documents' tokens, out-of-vocabulary ones removed, into ``ids``;
-    ``kept[d]`` is where document d starts there. Returns the number of ids written."""
-    n_docs = starts.shape[0]
-    kept[0] = 0
+def _map_doc(tokens, a, b, id_map, buf):
+    """Model ids of tokens a..b-1 into ``buf``, out-of-vocabulary ones removed; returns how many."""
     n = 0
-    for d in range(n_docs):
-        for i in range(starts[d], ends[d]):
-            x = id_map[tokens[i]]
-            ids[n] = x
-            n += x >= 0
-        kept[d + 1] = n
+    for i in range(a, b):
+        x = id_map[tokens[i]]
+        buf[n] = x
+        n += x >= 0
     return n
 
 
 @numba.njit(nogil=True, cache=True)
-def row_lengths(ids, kept, window, length):
-    """Add the pairs per row (the smaller id of the pair) to ``length``."""
-    n_docs = kept.shape[0] - 1
-    for d in range(n_docs):
-        a, b = kept[d], kept[d + 1]
-        for i in range(a, b):
-            x = ids[i]
-            e = min(i + window, b - 1)
+def row_lengths(tokens, starts, ends, id_map, window, buf, length):
+    """Add the pairs per row (the smaller id of the pair) of documents [starts, ends) to ``length``.
+
+    Each document is mapped into the small reused buffer ``buf`` (as long as the
+    longest document) just before it is windowed, so no corpus-sized array of
+    model ids is ever made.
+    """
+    for d in range(starts.shape[0]):
+        n = _map_doc(tokens, starts[d], ends[d], id_map, buf)
+        for i in range(n):
+            x = buf[i]
+            e = min(i + window, n - 1)
             for j in range(i + 1, e + 1):
-                length[min(x, ids[j])] += 1
+                length[min(x, buf[j])] += 1
 
 
 @numba.njit(nogil=True, cache=True)
-def scatter_pairs(ids, kept, doc_w, window, pos, code, pair_w, per_pair):
-    """Write each pair's code (and weight if ``per_pair``) at ``pos[row]``, advancing it."""
-    n_docs = kept.shape[0] - 1
-    for d in range(n_docs):
-        a, b = kept[d], kept[d + 1]
+def scatter_pairs(tokens, starts, ends, id_map, window, buf, doc_w, pos, narrow, code16, code32,
+                  per_pair, pair_w):
+    """Write each pair's code at ``pos[row]``, advancing it (and its weight if ``per_pair``).
+
+    Narrow codes (uint16, ``code16``) are the larger id alone; wide codes (uint32,
+    ``code32``) carry the distance - 1 in the top ``DIST_BITS`` bits as well.
+    """
+    for d in range(starts.shape[0]):
+        n = _map_doc(tokens, starts[d], ends[d], id_map, buf)
         w = doc_w[d]
-        for i in range(a, b):
-            x = ids[i]
-            e = min(i + window, b - 1)
+        for i in range(n):
+            x = buf[i]
+            e = min(i + window, n - 1)
             for j in range(i + 1, e + 1):
-                y = ids[j]
+                y = buf[j]
                 lo = min(x, y)
                 p = pos[lo]
-                code[p] = np.uint32(max(x, y)) | np.uint32((j - i - 1) << COL_BITS)
+                if narrow:
+                    code16[p] = np.uint16(max(x, y))
+                else:
+                    code32[p] = np.uint32(max(x, y)) | np.uint32((j - i - 1) << COL_BITS)
                 if per_pair:
                     pair_w[p] = w
                 pos[lo] = p + 1
 
 
 @numba.njit(nogil=True, cache=True)
-def reduce_rows(row_ptr, code, pair_w, dist_w, scale, r0, r1, per_pair, uniform,
-                acc, touched, row_start, row_end, out_idx, out_val):
-    """Sum the pairs of rows r0..r1-1 into ``out_idx``/``out_val`` from position ``row_ptr[r0]``.
+def distinct_columns(row_ptr, code, r0, r1, mark, n_cells):
+    """``n_cells[r]`` = the number of different columns among the pairs of row r, rows r0..r1-1.
 
-    The block can never hold more entries than pairs, so its output fits in the
-    space its pairs take; row r's entries end up in ``[row_start[r], row_end[r])``.
-    ``out_idx`` may be ``code`` itself: a row is written only after it is read, and
-    never beyond its own end.
+    ``mark`` (length n_words, all -1 on first use) remembers the last row that saw a column.
+    """
+    for r in range(r0, r1):
+        t = 0
+        for k in range(row_ptr[r], row_ptr[r + 1]):
+            c = code[k] & COL_MASK
+            if mark[c] != r:
+                mark[c] = r
+                t += 1
+        n_cells[r] = t
+
+
+@numba.njit(nogil=True, cache=True)
+def reduce_rows(row_ptr, code, pair_w, dist_w, scale, r0, r1, per_pair, uniform,
+                acc, touched, out_ptr, out_idx, out_val):
+    """Sum the pairs of rows r0..r1-1 into CSR arrays: row r goes to ``out_ptr[r]`` onwards.
+
+    ``out_ptr`` comes from ``distinct_columns``, so every row has exactly its
+    room and blocks of rows can be reduced by different threads.
     Columns come in order of first appearance, not sorted: sorting here cost more
     than the whole reduction, and the symmetrize passes put rows in order with
     two linear scatters. Every pair's value is positive (zero-weight documents
     are never counted), so a zero in the accumulator ``acc`` (all zeros on entry
     and on exit) means "not seen in this row yet".
     """
-    m = row_ptr[r0]
     for r in range(r0, r1):
-        row_start[r] = m
+        m = out_ptr[r]
         t = 0
         for k in range(row_ptr[r], row_ptr[r + 1]):
             c = code[k] & COL_MASK
@@ -115,7 +141,6 @@ def reduce_rows(row_ptr, code, pair_w, dist_w, scale, r0, r1, per_pair, uniform,
             out_val[m] = acc[c] * scale
             acc[c] = 0.0
             m += 1
-        row_end[r] = m
 
 
 @numba.njit(nogil=True, cache=True)

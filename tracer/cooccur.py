@@ -27,6 +27,7 @@ take the shards.
 from __future__ import annotations
 
 import dataclasses
+import mmap
 import os
 import typing
 from concurrent.futures import ThreadPoolExecutor
@@ -213,6 +214,9 @@ class _Rows(typing.NamedTuple):
 
     def to_csr(self, n_words: int) -> sp.csr_array:
         """Compact into a CSR matrix, in place (the arrays are consumed)."""
+        if len(self.row_start) and self.row_start[0] == 0 and np.array_equal(self.row_start[1:], self.row_end[:-1]):
+            indptr = np.append(self.row_start, self.row_end[-1])  # already contiguous
+            return to_csr((indptr, self.indices[:indptr[-1]], self.data[:indptr[-1]]), n_words)
         indptr = np.zeros(n_words + 1, np.int64)
         m = _k.compact_rows(self.row_start, self.row_end, self.indices, self.data, indptr)
         return to_csr((indptr, self.indices[:m], self.data[:m]), n_words)
@@ -236,9 +240,35 @@ class _Pool:
             self._exec.shutdown()
 
 
+_PLAIN_PAGES_FROM = 1 << 22
+
+
+def big_empty(n: int, dtype) -> np.ndarray:
+    """An uninitialised 1-d array for the counter's large arrays, in ordinary (not huge) pages.
+
+    numpy asks the kernel for transparent huge pages on large arrays. On the
+    virtual machines this was measured on, the first touch of such memory costs
+    3-6 times more than of ordinary pages (a fresh 350 MB array: about 1.0 s
+    against 0.2-0.7 s; the kernel compacts memory to find each 2 MB page), and
+    first touches are most of the counting time. An anonymous mapping without
+    that request avoids it; small arrays come from numpy as usual. The memory
+    is freed when the array (and every view of it) is gone.
+    """
+    dtype = np.dtype(dtype)
+    nbytes = int(n) * dtype.itemsize
+    if nbytes < _PLAIN_PAGES_FROM:
+        return np.empty(n, dtype)
+    return np.frombuffer(mmap.mmap(-1, nbytes), dtype=dtype, count=int(n))
+
+
 def _scratch(n_words: int):
     """A zeroed accumulator and a column list for one thread's reductions."""
     return np.zeros(n_words, np.float64), np.empty(n_words, np.int32)
+
+
+def narrow_codes(n_words: int, settings: CountSettings) -> bool:
+    """Whether pairs fit in uint16 codes: few enough words, and no distance to keep."""
+    return n_words <= _k.NARROW_MAX_WORDS and settings.weighting == "uniform"
 
 
 def count_shard(tokens: np.ndarray, doc_offsets: np.ndarray, shard: Shard, doc_weights: np.ndarray,
@@ -248,44 +278,58 @@ def count_shard(tokens: np.ndarray, doc_offsets: np.ndarray, shard: Shard, doc_w
     Returns
     -------
     _Rows, shape (n_words, n_words), columns within a row unsorted
-        ``C = U + U.T`` once all shards are summed.
+        ``C = U + U.T`` once all shards are summed. Its rows are contiguous (a CSR matrix).
     """
     tokens = np.asarray(tokens)
     doc_w = np.asarray(doc_weights, dtype=np.float64)
     window = settings.window
     per_pair = shard.weight is None
+    narrow = narrow_codes(n_words, settings)
     n_shard_tokens = int((doc_offsets[shard.docs + 1] - doc_offsets[shard.docs]).sum())
-    parts = _split_by_tokens(doc_offsets, shard.docs, -(-n_shard_tokens // pool.workers))
-
-    def map_part(docs):
-        starts, ends = doc_offsets[docs], doc_offsets[docs + 1]
-        ids, kept = np.empty(int((ends - starts).sum()), np.int32), np.empty(len(docs) + 1, np.int64)
-        n = _k.map_ids(tokens, starts, ends, id_map, ids, kept)
-        length = np.zeros(n_words, np.int64)
-        _k.row_lengths(ids[:n], kept, window, length)
-        return ids[:n], kept, length
-
-    mapped = pool.map(map_part, [(d,) for d in parts])
-    row_ptr = np.zeros(n_words + 1, np.int64)
-    np.cumsum(np.sum([m[2] for m in mapped], axis=0), out=row_ptr[1:])
-    code = np.empty(row_ptr[-1], np.uint32)
-    pair_w = np.empty(row_ptr[-1] if per_pair else 0, np.float64)
-    # each part writes its pairs of row r after those of the parts before it
-    pool.map(_k.scatter_pairs, [(ids, kept, doc_w[d], window, start, code, pair_w, per_pair) for (ids, kept, _), d, start
-                                in zip(mapped, parts, _block_offsets(row_ptr[:-1], [m[2] for m in mapped]))])
-    del mapped
-    # a row's sums never outnumber its pairs and are written after the row is read,
-    # so the column ids can overwrite the pair codes in place (no second array to touch)
-    out = _Rows(np.zeros(n_words, np.int64), np.zeros(n_words, np.int64),
-                code.view(np.int32), np.empty(row_ptr[-1], np.float64))
-    scale = 1.0 if per_pair else shard.weight
-    uniform = settings.weighting == "uniform"
     dist_w = settings.distance_weights()
+    uniform = settings.weighting == "uniform"
+    parts = []
+    for docs in _split_by_tokens(doc_offsets, shard.docs, -(-n_shard_tokens // pool.workers)):
+        starts, ends = doc_offsets[docs], doc_offsets[docs + 1]
+        # each thread maps one document at a time into its own buffer
+        parts.append((starts, ends, doc_w[docs], np.empty(int((ends - starts).max(initial=0)), np.int32)))
+
+    def lengths(starts, ends, _w, buf):
+        length = np.zeros(n_words, np.int64)
+        _k.row_lengths(tokens, starts, ends, id_map, window, buf, length)
+        return length
+
+    part_lengths = pool.map(lengths, parts)
+    row_ptr = np.zeros(n_words + 1, np.int64)
+    np.cumsum(np.sum(part_lengths, axis=0), out=row_ptr[1:])
+    n_pairs = int(row_ptr[-1])
+    # the pair array is written at random places: huge pages spare it TLB misses
+    code16 = np.empty(n_pairs if narrow else 0, np.uint16)
+    code32 = np.empty(0 if narrow else n_pairs, np.uint32)
+    pair_w = np.empty(n_pairs if per_pair else 0, np.float64)
+    # each part writes its pairs of row r after those of the parts before it
+    pool.map(_k.scatter_pairs, [(tokens, starts, ends, id_map, window, buf, w, start, narrow, code16, code32,
+                                 per_pair, pair_w)
+                                for (starts, ends, w, buf), start in zip(parts, _block_offsets(row_ptr[:-1],
+                                                                                              part_lengths))])
+    code = code16 if narrow else code32
+    blocks = _row_blocks(row_ptr, 2 * pool.workers)
+    n_cells = np.zeros(n_words, np.int64)
+
+    def count_block(r0, r1):
+        _k.distinct_columns(row_ptr, code, r0, r1, np.full(n_words, -1, np.int32), n_cells)
+
+    pool.map(count_block, blocks)
+    out_ptr = np.zeros(n_words + 1, np.int64)
+    np.cumsum(n_cells, out=out_ptr[1:])
+    out = _Rows(out_ptr[:-1], out_ptr[1:], big_empty(out_ptr[-1], np.int32), big_empty(out_ptr[-1], np.float64))
+    scale = 1.0 if per_pair else shard.weight
 
     def reduce_block(r0, r1):
-        _k.reduce_rows(row_ptr, code, pair_w, dist_w, scale, r0, r1, per_pair, uniform, *_scratch(n_words), *out)
+        _k.reduce_rows(row_ptr, code, pair_w, dist_w, scale, r0, r1, per_pair, uniform, *_scratch(n_words),
+                       out_ptr, out.indices, out.data)
 
-    pool.map(reduce_block, _row_blocks(row_ptr, 2 * pool.workers))
+    pool.map(reduce_block, blocks)
     return out
 
 
@@ -301,7 +345,7 @@ def sum_upper(parts: list[_Rows], n_words: int, pool: _Pool) -> _Rows:
     combined = np.zeros(n_words + 1, np.int64)
     np.cumsum((ends - starts).sum(axis=0), out=combined[1:])
     out = _Rows(np.zeros(n_words, np.int64), np.zeros(n_words, np.int64),
-                np.empty(combined[-1], np.int32), np.empty(combined[-1], np.float64))
+                big_empty(combined[-1], np.int32), big_empty(combined[-1], np.float64))
 
     def sum_block(r0, r1):
         _k.sum_rows(starts, ends, indices, data, r0, r1, combined[r0], *_scratch(n_words), *out)
@@ -328,8 +372,8 @@ def symmetrize_arrays(upper: _Rows, n_words: int, pool: _Pool) -> tuple:
     lower_len = np.sum(col_counts, axis=0)
     full_ptr = np.zeros(n_words + 1, np.int64)
     np.cumsum(lower_len + upper_len, out=full_ptr[1:])
-    out_idx = np.empty(full_ptr[-1], np.int32)
-    out_val = np.empty(full_ptr[-1], np.float64)
+    out_idx = big_empty(full_ptr[-1], np.int32)
+    out_val = big_empty(full_ptr[-1], np.float64)
     diag = np.zeros(n_words, np.float64)
     pool.map(_k.symmetrize_lower, [(upper.row_start, upper.row_end, upper.indices, upper.data, r0, r1, start,
                                     out_idx, out_val, diag)

@@ -8,7 +8,12 @@ Run on demand (not part of the test suite):
 
 Everything is measured in one run, interleaved, each measurement in a fresh process
 (so peak memory is that run's own); the table shows medians and the ratios the
-targets speak of. The corpus comes from ../shared/bench/gen_zipf_corpus.py and the
+targets speak of. Every measured process starts after a pause (``--pause``,
+default 5 s): on these virtual machines memory a process frees goes back to the
+host within about two seconds, and touching it again is then several times
+slower than counting (a fresh 350 MB array takes about 1 s to fill, a reused one
+0.03 s). Without the pause, whichever counter runs just after a large one gets
+cheap memory, and the order of the rows decides the ratios. The corpus comes from ../shared/bench/gen_zipf_corpus.py and the
 C counter from ../shared/bench/cooc_ref.c (built here into the cache folder).
 
 Counting rules: the C reference skips out-of-vocabulary tokens in place, tracer
@@ -111,7 +116,11 @@ def child_word2vec(data: str, vocab_size: int, window: int, workers: int) -> dic
     return {"t_count": time.perf_counter() - t0}
 
 
+PAUSE = [5.0]  # seconds; set from --pause
+
+
 def run_child(kind: str, **kw) -> dict:
+    time.sleep(PAUSE[0])
     code = (f"import json,resource,sys; sys.path.insert(0, {str(Path(__file__).parent)!r}); import bench_counting as b; "
             f"r = b.child_{kind}(**{kw!r}); r['peak_rss_mb'] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss/1024; "
             f"print(json.dumps(r))")
@@ -120,6 +129,7 @@ def run_child(kind: str, **kw) -> dict:
 
 
 def run_c(binary: Path, data: Path, vocab_size: int, window: int, out: Path | None = None) -> dict:
+    time.sleep(PAUSE[0])
     cmd = [str(binary), str(data / "tokens.npy"), str(data / "doc_offsets.npy"), "--vocab", str(vocab_size),
            "--window", str(window), "--mode", "rows"] + (["--out", str(out)] if out else [])
     r = json.loads(subprocess.run(cmd, check=True, capture_output=True, text=True).stdout.strip())
@@ -175,8 +185,10 @@ def main():
     ap.add_argument("--repeats", type=int, default=5)
     ap.add_argument("--python-prefix", type=int, default=1_000_000)
     ap.add_argument("--skip-word2vec", action="store_true")
+    ap.add_argument("--pause", type=float, default=5.0, help="seconds of rest before each measured process")
     ap.add_argument("--cache", type=Path, default=ROOT / "bench-data")
     args = ap.parse_args()
+    PAUSE[0] = args.pause
     data, binary = ensure_inputs(args.cache, args.tokens)
     kw = dict(data=str(data), vocab_size=args.vocab, window=args.window)
     run_child("tracer", workers=1, symmetric=False, **kw)  # compile and cache the kernels first
