@@ -93,6 +93,37 @@ def test_first_order_values_equal_a_recount_without_the_document(demo_ws):
         assert loo[d] == pytest.approx(expected, rel=1e-10)
 
 
+@pytest.mark.parametrize("weighting", ["uniform", "harmonic"])
+def test_one_pass_linear_score_equals_the_per_document_matrices(demo_ws, weighting):
+    """The fused one-pass score against -<K, C^d> + <u, r^d> written out with the per-document
+    matrices (C^d of the probe rows, r^d), on resampling-style weights 0, 1, 2."""
+    rng = np.random.default_rng(3)
+    w = rng.integers(0, 3, demo_ws.n_documents).astype(float)
+    s = CountSettings(weighting=weighting)
+    c = count_slice(demo_ws, w, s)
+    sl = slice_from_spec(demo_ws, "all")
+    emb = embedding_from_counts(demo_ws, sl, c, PpmiSvdSettings())
+    attr = Attribution(demo_ws, w, c, emb, TESTS["gazette_outlet"], alpha=0.75, shift=1, eig_power=0.5)
+    for which in ("gap", "effect_size"):
+        g = attr._dB_dM(which)
+        act = attr.M_P.tocoo()
+        gv = g[act.row, act.col]
+        expected = np.zeros(demo_ws.n_documents)
+        for i in range(len(attr.probe_ids)):
+            K_i = np.zeros(len(attr.r))
+            sel = act.row == i
+            K_i[act.col[sel]] = gv[sel] / attr.C_P.toarray()[i, act.col[sel]]
+            expected -= attr.P[i] @ K_i
+        u = np.zeros(len(attr.r))
+        np.add.at(u, attr.probe_ids[act.row], gv / attr.r[attr.probe_ids[act.row]])
+        np.add.at(u, act.col, 0.75 * gv / attr.r[act.col])
+        u -= 0.75 * gv.sum() * attr.r ** -0.25 / np.exp(attr.log_z)
+        expected += attr.R @ u
+        got = attr.linear(which)
+        assert np.count_nonzero(expected) > 100 and np.all(got[w == 0] == 0)
+        np.testing.assert_allclose(got, expected, rtol=1e-9, atol=1e-12 * np.abs(expected).max())
+
+
 def test_linear_estimates_track_the_exact_rerank(traced, demo_ws):
     d = traced["gazette_outlet"].documents
     assert np.corrcoef(d.estimate, d.exact)[0, 1] > 0.9

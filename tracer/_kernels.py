@@ -1,4 +1,5 @@
-"""Compiled kernels of the co-occurrence counter (numba, nogil: threads run them in parallel).
+"""Compiled kernels (numba, nogil: threads run them in parallel): the co-occurrence counter, and
+at the end the linear influence score of ``tracer.attribute``.
 
 The counter works in four steps, each split so that threads share the work:
 
@@ -234,3 +235,38 @@ def compact_rows(row_start, row_end, indices, data, indptr):
             m += 1
         indptr[r + 1] = m
     return m
+
+
+# ---- the linear influence score of tracer.attribute ----------------------------------------
+
+@numba.njit(nogil=True, cache=True)
+def linear_scores(tokens, starts, ends, id_map, doc_w, dist_w, cum_w, probe_row, K, u, buf, out):
+    """``out[d] = w_d * (sum_t nb(t) u[id_t] - sum_{t a probe word} sum_k dist_w[|k|-1] K[row(t), id_{t+k}])``.
+
+    One pass over the tokens: for each document, its in-vocabulary tokens (mapped
+    into ``buf``), each token's windowed neighbour weight ``nb(t)`` (its share of
+    the row sums), and for each probe-word occurrence its neighbours within the
+    window on both sides (its share of the probe rows of the counts). That is
+    ``<u, r^d> - <K, C^d>`` without ever building ``r^d`` or ``C^d``.
+    ``cum_w[k]`` is the sum of the first k distance weights.
+    """
+    window = dist_w.shape[0]
+    for d in range(starts.shape[0]):
+        w = doc_w[d]
+        if w == 0.0:
+            out[d] = 0.0
+            continue
+        n = _map_doc(tokens, starts[d], ends[d], id_map, buf)
+        s_rows = 0.0
+        s_probe = 0.0
+        for i in range(n):
+            x = buf[i]
+            s_rows += (cum_w[min(window, i)] + cum_w[min(window, n - 1 - i)]) * u[x]
+            k = probe_row[x]
+            if k >= 0:
+                for dd in range(1, window + 1):
+                    if i - dd >= 0:
+                        s_probe += dist_w[dd - 1] * K[k, buf[i - dd]]
+                    if i + dd < n:
+                        s_probe += dist_w[dd - 1] * K[k, buf[i + dd]]
+        out[d] = w * (s_rows - s_probe)

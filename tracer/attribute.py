@@ -22,7 +22,8 @@ import functools
 import numpy as np
 import scipy.sparse as sp
 
-from .cooccur import Counts, token_mask
+from . import _kernels as _k
+from .cooccur import Counts, ThreadPool, split_by_tokens, default_workers, token_mask
 from .embed.vectors import Embedding
 from .pmi import Marginals
 from .tests_file import AssociationTest
@@ -144,11 +145,6 @@ class Attribution:
         self.probe_words = list(dict.fromkeys(self.sets["x"] + self.sets["y"] + self.sets["a"] + self.sets["b"]))
         self.probe_ids = np.array([idx[w] for w in self.probe_words], dtype=np.int64)
         self.row_of = {w: k for k, w in enumerate(self.probe_words)}
-        n_docs, n_words = ws.n_documents, len(counts.vocab)
-        dist_w = counts.settings.distance_weights()
-        self.stream = kept_stream(ws, self.weights, counts)
-        self.R = document_row_sums(self.stream, self.weights, dist_w, n_docs, n_words)
-        self.P = document_probe_rows(self.stream, self.weights, dist_w, self.probe_ids, n_docs, n_words)
         self.r = counts.row_sums
         self.C_P = sp.csr_array(counts.matrix[self.probe_ids])
         self.S = emb.extras["singular_values"].astype(np.float64)
@@ -158,6 +154,23 @@ class Attribution:
         self.W_P = self.M_P @ self.proj
         self.base = self.effect(self.W_P)
         self._dB_dM_cache: dict[str, np.ndarray] = {}
+
+    # ---- per-document counts, built when an exact step needs them ---------------------------
+    @functools.cached_property
+    def stream(self) -> Stream:
+        return kept_stream(self.ws, self.weights, self.counts)
+
+    @functools.cached_property
+    def R(self) -> sp.csr_array:
+        """r^d for every document, shape (n_docs, n_words)."""
+        return document_row_sums(self.stream, self.weights, self.counts.settings.distance_weights(),
+                                 self.ws.n_documents, len(self.counts.vocab))
+
+    @functools.cached_property
+    def P(self) -> list[sp.csr_array]:
+        """C^d of each probe word's row for every document: one (n_docs, n_words) matrix per probe word."""
+        return document_probe_rows(self.stream, self.weights, self.counts.settings.distance_weights(),
+                                   self.probe_ids, self.ws.n_documents, len(self.counts.vocab))
 
     # ---- the association as a function of the probe vectors ----------------------------------
     def _scores(self, W):
@@ -208,24 +221,44 @@ class Attribution:
         return self._dB_dM_cache[which]
 
     def linear(self, which: str = "gap") -> np.ndarray:
-        """Estimated change of B when each document is removed, shape (n_docs,) (tier 2)."""
+        """Estimated change of B when each document is removed, shape (n_docs,) (tier 2).
+
+        ``dB(d) = -<K, C^d> + <u, r^d>``, summed in one pass over the tokens
+        (``tracer._kernels.linear_scores``) without building ``C^d`` or ``r^d``.
+        """
         g = self._dB_dM(which)
         act = self.M_P.tocoo()
         gv = g[act.row, act.col]                                 # only cells above the threshold move
-        k_vals = gv / self.C_P[act.row, act.col]
-        change = np.zeros(self.ws.n_documents)
-        for i in range(len(self.probe_ids)):
-            sel = act.row == i
-            if sel.any():
-                K_i = np.zeros(len(self.r))
-                K_i[act.col[sel]] = k_vals[sel]
-                change -= self.P[i] @ K_i
+        n_words = len(self.r)
+        K = np.zeros((len(self.probe_ids), n_words))
+        K[act.row, act.col] = gv / self.C_P[act.row, act.col]
         r = np.where(self.r > 0, self.r, 1.0)
-        u = np.zeros(len(self.r))
-        np.add.at(u, self.probe_ids[act.row], gv / r[self.probe_ids[act.row]])
-        np.add.at(u, act.col, self.alpha * gv / r[act.col])
-        u -= self.alpha * gv.sum() * r ** (self.alpha - 1.0) / np.exp(self.log_z)
-        return change + self.R @ u
+        rows = self.probe_ids[act.row]
+        u = (np.bincount(rows, weights=gv / r[rows], minlength=n_words)
+             + np.bincount(act.col, weights=self.alpha * gv / r[act.col], minlength=n_words)
+             - self.alpha * gv.sum() * r ** (self.alpha - 1.0) / np.exp(self.log_z))
+        probe_row = np.full(n_words, -1, np.int64)
+        probe_row[self.probe_ids] = np.arange(len(self.probe_ids))
+        dist_w = self.counts.settings.distance_weights()
+        offsets, tokens = self.ws.doc_offsets, np.asarray(self.ws.tokens)
+        id_map, cum_w = self.counts.vocab.id_map(len(self.ws.vocab)), np.concatenate([[0.0], np.cumsum(dist_w)])
+        out = np.zeros(self.ws.n_documents)
+
+        def score(docs):
+            starts, ends = offsets[docs], offsets[docs + 1]
+            part = np.empty(len(docs))
+            _k.linear_scores(tokens, starts, ends, id_map, self.weights[docs], dist_w, cum_w, probe_row, K, u,
+                             np.empty(int((ends - starts).max(initial=0)), np.int32), part)
+            out[docs] = part
+
+        docs = np.flatnonzero(self.weights > 0)
+        pool = ThreadPool(default_workers())
+        try:
+            n_tokens = int((offsets[docs + 1] - offsets[docs]).sum())
+            pool.map(score, [(part,) for part in split_by_tokens(offsets, docs, -(-n_tokens // pool.workers))])
+        finally:
+            pool.close()
+        return out
 
     def pair_parts(self, doc: int, which: str = "gap", top: int = 3) -> list[tuple[str, str, float]]:
         """The probe-row cells of one document that carry most of its joint-count term."""

@@ -181,11 +181,11 @@ def make_shards(doc_offsets: np.ndarray, doc_weights: np.ndarray,
         groups = [(docs, None)]
     shards = []
     for members, weight in groups:
-        shards.extend(Shard(part, weight) for part in _split_by_tokens(doc_offsets, members, shard_tokens))
+        shards.extend(Shard(part, weight) for part in split_by_tokens(doc_offsets, members, shard_tokens))
     return shards
 
 
-def _split_by_tokens(doc_offsets: np.ndarray, docs: np.ndarray, size: int) -> list[np.ndarray]:
+def split_by_tokens(doc_offsets: np.ndarray, docs: np.ndarray, size: int) -> list[np.ndarray]:
     """Consecutive runs of ``docs`` holding about ``size`` tokens each (whole documents)."""
     lengths = doc_offsets[docs + 1] - doc_offsets[docs]
     part_of = (np.cumsum(lengths) - 1) // max(1, size)
@@ -222,7 +222,7 @@ class _Rows(typing.NamedTuple):
         return to_csr((indptr, self.indices[:m], self.data[:m]), n_words)
 
 
-class _Pool:
+class ThreadPool:
     """Runs kernel calls on ``workers`` threads (the kernels release the GIL)."""
 
     def __init__(self, workers: int):
@@ -272,7 +272,7 @@ def narrow_codes(n_words: int, settings: CountSettings) -> bool:
 
 
 def count_shard(tokens: np.ndarray, doc_offsets: np.ndarray, shard: Shard, doc_weights: np.ndarray,
-                id_map: np.ndarray, n_words: int, settings: CountSettings, pool: _Pool) -> _Rows:
+                id_map: np.ndarray, n_words: int, settings: CountSettings, pool: ThreadPool) -> _Rows:
     """Upper triangle (with the diagonal) of the weighted counts of one shard of documents.
 
     Returns
@@ -289,7 +289,7 @@ def count_shard(tokens: np.ndarray, doc_offsets: np.ndarray, shard: Shard, doc_w
     dist_w = settings.distance_weights()
     uniform = settings.weighting == "uniform"
     parts = []
-    for docs in _split_by_tokens(doc_offsets, shard.docs, -(-n_shard_tokens // pool.workers)):
+    for docs in split_by_tokens(doc_offsets, shard.docs, -(-n_shard_tokens // pool.workers)):
         starts, ends = doc_offsets[docs], doc_offsets[docs + 1]
         # each thread maps one document at a time into its own buffer
         parts.append((starts, ends, doc_w[docs], np.empty(int((ends - starts).max(initial=0)), np.int32)))
@@ -333,7 +333,7 @@ def count_shard(tokens: np.ndarray, doc_offsets: np.ndarray, shard: Shard, doc_w
     return out
 
 
-def sum_upper(parts: list[_Rows], n_words: int, pool: _Pool) -> _Rows:
+def sum_upper(parts: list[_Rows], n_words: int, pool: ThreadPool) -> _Rows:
     """Sum matrices of one shape into one (columns unsorted)."""
     if len(parts) == 1:
         return parts[0]
@@ -354,7 +354,7 @@ def sum_upper(parts: list[_Rows], n_words: int, pool: _Pool) -> _Rows:
     return out
 
 
-def symmetrize_arrays(upper: _Rows, n_words: int, pool: _Pool) -> tuple:
+def symmetrize_arrays(upper: _Rows, n_words: int, pool: ThreadPool) -> tuple:
     """From the upper triangle U (rows in any order) to CSR arrays of U + U^T, rows sorted.
 
     Row x of the result is its lower part (columns < x, the mirror of U's
@@ -470,7 +470,7 @@ def count_matrix(tokens: np.ndarray, doc_offsets: np.ndarray, doc_weights: np.nd
     tokens = np.asarray(tokens)
     if len(tokens) and int(tokens.max()) >= n_full:  # the kernels index id_map without bounds checks
         raise SettingError(f"token ids reach {int(tokens.max())}, beyond the vocabulary size given ({n_full})")
-    pool = _Pool(workers or default_workers())
+    pool = ThreadPool(workers or default_workers())
     try:
         parts = []
         with tqdm(total=len(shards), desc="count", unit=" shards", disable=not progress, leave=False) as bar:
