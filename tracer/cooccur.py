@@ -29,6 +29,7 @@ from __future__ import annotations
 import dataclasses
 import mmap
 import os
+import threading
 import typing
 from concurrent.futures import ThreadPoolExecutor
 from functools import cached_property
@@ -223,21 +224,30 @@ class _Rows(typing.NamedTuple):
 
 
 class ThreadPool:
-    """Runs kernel calls on ``workers`` threads (the kernels release the GIL)."""
+    """Runs kernel calls on ``workers`` threads (the kernels release the GIL).
+
+    The threads are started once per process and kept: a command may count
+    hundreds of small slices or replicates, and starting threads for each took
+    longer than counting a small slice. Tasks must not submit tasks of their own.
+    """
+
+    _shared: dict[int, ThreadPoolExecutor] = {}
+    _lock = threading.Lock()
 
     def __init__(self, workers: int):
         self.workers = workers
-        self._exec = ThreadPoolExecutor(max_workers=workers) if workers > 1 else None
+        self._exec = None
+        if workers > 1:
+            with self._lock:
+                if workers not in self._shared:
+                    self._shared[workers] = ThreadPoolExecutor(max_workers=workers, thread_name_prefix="tracer")
+                self._exec = self._shared[workers]
 
     def map(self, fn, items):
         items = list(items)
         if self._exec is None or len(items) == 1:
             return [fn(*i) for i in items]
         return list(self._exec.map(lambda args: fn(*args), items))
-
-    def close(self):
-        if self._exec is not None:
-            self._exec.shutdown()
 
 
 _PLAIN_PAGES_FROM = 1 << 22
@@ -471,16 +481,13 @@ def count_matrix(tokens: np.ndarray, doc_offsets: np.ndarray, doc_weights: np.nd
     if len(tokens) and int(tokens.max()) >= n_full:  # the kernels index id_map without bounds checks
         raise SettingError(f"token ids reach {int(tokens.max())}, beyond the vocabulary size given ({n_full})")
     pool = ThreadPool(workers or default_workers())
-    try:
-        parts = []
-        with tqdm(total=len(shards), desc="count", unit=" shards", disable=not progress, leave=False) as bar:
-            for shard in shards:
-                parts.append(count_shard(tokens, doc_offsets, shard, doc_weights, id_map, n, settings, pool))
-                bar.update()
-        upper = sum_upper(parts, n, pool)
-        return to_csr(symmetrize_arrays(upper, n, pool), n) if symmetric else upper.to_csr(n)
-    finally:
-        pool.close()
+    parts = []
+    with tqdm(total=len(shards), desc="count", unit=" shards", disable=not progress, leave=False) as bar:
+        for shard in shards:
+            parts.append(count_shard(tokens, doc_offsets, shard, doc_weights, id_map, n, settings, pool))
+            bar.update()
+    upper = sum_upper(parts, n, pool)
+    return to_csr(symmetrize_arrays(upper, n, pool), n) if symmetric else upper.to_csr(n)
 
 
 @dataclasses.dataclass(frozen=True)
