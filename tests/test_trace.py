@@ -124,6 +124,20 @@ def test_one_pass_linear_score_equals_the_per_document_matrices(demo_ws, weighti
         np.testing.assert_allclose(got, expected, rtol=1e-9, atol=1e-12 * np.abs(expected).max())
 
 
+def test_batched_exact_rerank_equals_one_document_at_a_time(demo_ws):
+    sl = slice_from_spec(demo_ws, "all")
+    c = count_slice(demo_ws, sl.weights, CountSettings())
+    emb = embedding_from_counts(demo_ws, sl, c, PpmiSvdSettings())
+    attr = Attribution(demo_ws, sl.weights, c, emb, TESTS["gazette_outlet"], alpha=0.75, shift=1, eig_power=0.5)
+    docs = np.argsort(-np.abs(attr.linear("gap")))[:7]
+    one = [attr.exact([d]) for d in docs]
+    for max_cells in (1, 4_000_000):  # one document per batch, and all in one
+        each = attr.exact_each(docs, max_cells=max_cells)
+        np.testing.assert_allclose([e.gap for e in each], [e.gap for e in one], rtol=1e-10)
+        np.testing.assert_allclose([e.effect_size for e in each], [e.effect_size for e in one], rtol=1e-10)
+    assert max(abs(e.gap - attr.base.gap) for e in one) > 1e-3  # the removals do move the gap
+
+
 def test_linear_estimates_track_the_exact_rerank(traced, demo_ws):
     d = traced["gazette_outlet"].documents
     assert np.corrcoef(d.estimate, d.exact)[0, 1] > 0.9

@@ -150,7 +150,7 @@ class Attribution:
         self.S = emb.extras["singular_values"].astype(np.float64)
         self.V = emb.extras["context_vectors"].astype(np.float64)
         self.proj = self.V * (self.S ** (self.p - 1.0))            # W_i = M_i @ proj
-        self.M_P = self._probe_ppmi(self.C_P, self.r)
+        self.M_P = sp.csr_array(self._probe_ppmi(self.C_P.toarray(), self.r))
         self.W_P = self.M_P @ self.proj
         self.base = self.effect(self.W_P)
         self._dB_dM_cache: dict[str, np.ndarray] = {}
@@ -276,28 +276,47 @@ class Attribution:
         return parts[:top]
 
     # ---- tier 3 -----------------------------------------------------------------------------
-    def _probe_ppmi(self, C_P: sp.csr_array, r: np.ndarray) -> sp.csr_array:
-        C_P = sp.csr_array(C_P)
-        C_P.eliminate_zeros()
-        coo = C_P.tocoo()
-        pos = r > 0
-        log_z = np.log(np.sum(r[pos] ** self.alpha))
-        with np.errstate(divide="ignore"):
-            pmi = (np.log(coo.data) - np.log(r[self.probe_ids[coo.row]]) - self.alpha * np.log(r[coo.col]) + log_z)
-        vals = np.maximum(pmi - self.log_shift, 0.0)
-        out = sp.csr_array((vals, (coo.row, coo.col)), shape=C_P.shape)
-        out.eliminate_zeros()
-        return out
+    def _probe_ppmi(self, C: np.ndarray, r: np.ndarray) -> np.ndarray:
+        """PPMI of the probe rows from counts ``C`` (shape (..., n_probe, n_words)) and row sums
+        ``r`` (shape (..., n_words)), dense; ``log Z`` from ``r`` (so it moves with a removal)."""
+        C = np.asarray(C, dtype=np.float64)
+        r = np.asarray(r, dtype=np.float64)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            log_r = np.where(r > 0, np.log(r), 0.0)
+            log_z = np.log(np.sum(np.where(r > 0, r, 0.0) ** self.alpha, axis=-1))
+            pmi = (np.log(C) - log_r[..., self.probe_ids][..., :, None] - self.alpha * log_r[..., None, :]
+                   + log_z[..., None, None])
+        return np.where(C > 0, np.maximum(pmi - self.log_shift, 0.0), 0.0)
+
+    def _effects_without(self, removed: np.ndarray, removed_r: np.ndarray) -> list[Effect]:
+        """B after each removal: ``removed`` (shape (k, n_probe, n_words)) leaves the probe rows,
+        ``removed_r`` (shape (k, n_words)) the row sums; the probe rows of M are recomputed
+        exactly (thresholds included) and projected on the same subspace."""
+        C_new = self.C_P.toarray()[None] - removed
+        C_new[np.abs(C_new) < 1e-9] = 0.0  # a pair that only these documents had
+        r_new = self.r[None] - removed_r
+        r_new[np.abs(r_new) < 1e-9] = 0.0
+        W = self._probe_ppmi(C_new, r_new) @ self.proj
+        return [self.effect(w) for w in W]
 
     def exact(self, docs) -> Effect:
-        """B with the documents removed: probe rows of M recomputed exactly, same subspace (tier 3)."""
+        """B with the documents removed together (tier 3)."""
         docs = np.atleast_1d(np.asarray(docs, dtype=np.int64))
         removed = np.vstack([rows_sum(p, docs) for p in self.P])
-        C_new = self.C_P.toarray() - removed
-        C_new[np.abs(C_new) < 1e-9] = 0.0  # a pair that only this document had
-        r_new = self.r - rows_sum(self.R, docs)
-        r_new = np.where(np.abs(r_new) < 1e-9, 0.0, r_new)
-        return self.effect(self._probe_ppmi(C_new, r_new) @ self.proj)
+        return self._effects_without(removed[None], rows_sum(self.R, docs)[None])[0]
+
+    def exact_each(self, docs, *, max_cells: int = 4_000_000) -> list[Effect]:
+        """B with each document removed on its own (tier 3), in batches of at most ``max_cells``
+        dense probe-row cells."""
+        docs = np.asarray(docs, dtype=np.int64)
+        n_probe, n_words = len(self.probe_ids), len(self.r)
+        step = max(1, max_cells // max(1, n_probe * n_words))
+        out = []
+        for k in range(0, len(docs), step):
+            batch = docs[k:k + step]
+            removed = np.stack([p[batch].toarray() for p in self.P], axis=1)
+            out += self._effects_without(removed, self.R[batch].toarray())
+        return out
 
     # ---- tier 1 -----------------------------------------------------------------------------
     @functools.cached_property

@@ -136,7 +136,7 @@ def trace(ws, test: AssociationTest, model: str, sl: Slice, counts: CountSetting
     # documents: linear estimate for all, exact re-rank of the strongest candidates
     cand = np.flatnonzero(in_slice)
     cand = cand[np.argsort(-_support(lin[cand], rank_base), kind="stable")[: settings.candidates]]
-    exact = {int(d): attr.exact([d]) for d in tqdm(cand, desc="re-rank", disable=not progress, leave=False)}
+    exact = dict(zip(cand.tolist(), attr.exact_each(cand)))
     ex_rank = np.array([getattr(exact[int(d)], settings.rank_by) - rank_base for d in cand])
     order = cand[np.argsort(-_support(ex_rank, rank_base), kind="stable")][: settings.top]
     doc_rows = []
