@@ -18,8 +18,8 @@ Memory is the cost that matters most: on the virtual machines this runs on,
 touching fresh memory costs more than the counting itself, so the pair array is
 kept as small as the settings allow. A pair is stored as one uint16 (the larger
 id) when the vocabulary has at most 65,536 words and the weighting is uniform
-(so the distance need not be kept); otherwise as one uint32: the larger id, with the distance - 1 in the top
-``DIST_BITS`` bits. ``symmetrize_lower`` and ``symmetrize_upper`` turn the summed
+(so the distance need not be kept); otherwise as one uint32: the larger id, with
+the distance - 1 in the top ``DIST_BITS`` bits. ``symmetrize_lower`` and ``symmetrize_upper`` turn the summed
 upper triangle U into U + U^T with sorted rows: two mirror passes, each a
 counting-sort scatter, in row blocks.
 """
