@@ -138,6 +138,23 @@ def test_batched_exact_rerank_equals_one_document_at_a_time(demo_ws):
     assert max(abs(e.gap - attr.base.gap) for e in one) > 1e-3  # the removals do move the gap
 
 
+@pytest.mark.parametrize("which", ["gap", "effect_size"])
+def test_gradient_matches_central_differences(demo_ws, which):
+    # checking an analytic derivative against central differences is common practice
+    sl = slice_from_spec(demo_ws, "source=Gazette")
+    c = count_slice(demo_ws, sl.weights, CountSettings())
+    emb = embedding_from_counts(demo_ws, sl, c, PpmiSvdSettings())
+    attr = Attribution(demo_ws, sl.weights, c, emb, TESTS["gazette_outlet"], alpha=0.75, shift=1, eig_power=0.5)
+    G = attr.gradient(which)
+    rng = np.random.default_rng(5)
+    for _ in range(6):
+        D = rng.standard_normal(attr.W_P.shape)
+        h = 1e-6 * np.linalg.norm(attr.W_P) / np.linalg.norm(D)
+        up, down = attr.effect(attr.W_P + h * D), attr.effect(attr.W_P - h * D)
+        numeric = (getattr(up, which) - getattr(down, which)) / (2 * h)
+        assert np.sum(G * D) == pytest.approx(numeric, rel=1e-5, abs=1e-9)
+
+
 def test_linear_estimates_track_the_exact_rerank(traced, demo_ws):
     d = traced["gazette_outlet"].documents
     assert np.corrcoef(d.estimate, d.exact)[0, 1] > 0.9

@@ -147,10 +147,11 @@ class Attribution:
         self.row_of = {w: k for k, w in enumerate(self.probe_words)}
         self.r = counts.row_sums
         self.C_P = sp.csr_array(counts.matrix[self.probe_ids])
+        self._C_P_dense = self.C_P.toarray()
         self.S = emb.extras["singular_values"].astype(np.float64)
         self.V = emb.extras["context_vectors"].astype(np.float64)
         self.proj = self.V * (self.S ** (self.p - 1.0))            # W_i = M_i @ proj
-        self.M_P = sp.csr_array(self._probe_ppmi(self.C_P.toarray(), self.r))
+        self.M_P = sp.csr_array(self._probe_ppmi(self._C_P_dense, self.r))
         self.W_P = self.M_P @ self.proj
         self.base = self.effect(self.W_P)
         self._dB_dM_cache: dict[str, np.ndarray] = {}
@@ -204,13 +205,12 @@ class Attribution:
         G = np.zeros_like(self.W_P)
         inv = 1.0 / np.where(norms > 0, norms, 1.0)
         for attr_rows, sign in ((rows["a"], 1.0), (rows["b"], -1.0)):
-            m = len(attr_rows)
-            for t_pos, t in enumerate(targets):
-                cos = unit[attr_rows] @ unit[t]
-                e = coef[t_pos] * sign / m
-                # d cos(t, a) / d W_t = (u_a - cos u_t) / |W_t|, and symmetrically for W_a
-                G[t] += e * (unit[attr_rows] - cos[:, None] * unit[t]).sum(0) * inv[t]
-                np.add.at(G, attr_rows, e * (unit[t][None, :] - cos[:, None] * unit[attr_rows]) * inv[attr_rows, None])
+            U_t, U_a = unit[targets], unit[attr_rows]
+            cos = U_t @ U_a.T                                    # (targets, attributes)
+            E = np.outer(coef * sign / len(attr_rows), np.ones(len(attr_rows)))
+            # d cos(t, a) / d W_t = (u_a - cos u_t) / |W_t|, and symmetrically for W_a
+            np.add.at(G, targets, (E @ U_a - (E * cos).sum(1)[:, None] * U_t) * inv[targets, None])
+            np.add.at(G, attr_rows, (E.T @ U_t - (E * cos).sum(0)[:, None] * U_a) * inv[attr_rows, None])
         return G
 
     # ---- tier 2 -----------------------------------------------------------------------------
@@ -231,7 +231,7 @@ class Attribution:
         gv = g[act.row, act.col]                                 # only cells above the threshold move
         n_words = len(self.r)
         K = np.zeros((len(self.probe_ids), n_words))
-        K[act.row, act.col] = gv / self.C_P[act.row, act.col]
+        K[act.row, act.col] = gv / self._C_P_dense[act.row, act.col]
         r = np.where(self.r > 0, self.r, 1.0)
         rows = self.probe_ids[act.row]
         u = (np.bincount(rows, weights=gv / r[rows], minlength=n_words)
@@ -293,7 +293,7 @@ class Attribution:
         """B after each removal: ``removed`` (shape (k, n_probe, n_words)) leaves the probe rows,
         ``removed_r`` (shape (k, n_words)) the row sums; the probe rows of M are recomputed
         exactly (thresholds included) and projected on the same subspace."""
-        C_new = self.C_P.toarray()[None] - removed
+        C_new = self._C_P_dense[None] - removed
         C_new[np.abs(C_new) < 1e-9] = 0.0  # a pair that only these documents had
         r_new = self.r[None] - removed_r
         r_new[np.abs(r_new) < 1e-9] = 0.0
