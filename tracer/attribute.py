@@ -272,7 +272,7 @@ class Attribution:
             active = set(act.col[act.row == i].tolist())
             for j, c in zip(row.col, row.data):
                 if j in active:
-                    parts.append((self.probe_words[i], words[j], float(-g[i, j] * c / self.C_P[i, j])))
+                    parts.append((self.probe_words[i], words[j], float(-g[i, j] * c / self._C_P_dense[i, j])))
         parts.sort(key=lambda t: -abs(t[2]))
         return parts[:top]
 
