@@ -240,33 +240,48 @@ def compact_rows(row_start, row_end, indices, data, indptr):
 # ---- the linear influence score of tracer.attribute ----------------------------------------
 
 @numba.njit(nogil=True, cache=True)
-def linear_scores(tokens, starts, ends, id_map, doc_w, dist_w, cum_w, probe_row, K, u, buf, out):
+def linear_scores(tokens, starts, ends, id_map, doc_w, dist_w, cum_w, probe_row, K, u, buf, probe_pos, out):
     """``out[d] = w_d * (sum_t nb(t) u[id_t] - sum_{t a probe word} sum_k dist_w[|k|-1] K[row(t), id_{t+k}])``.
 
-    One pass over the tokens: for each document, its in-vocabulary tokens (mapped
-    into ``buf``), each token's windowed neighbour weight ``nb(t)`` (its share of
-    the row sums), and for each probe-word occurrence its neighbours within the
-    window on both sides (its share of the probe rows of the counts). That is
-    ``<u, r^d> - <K, C^d>`` without ever building ``r^d`` or ``C^d``.
-    ``cum_w[k]`` is the sum of the first k distance weights.
+    One pass over the tokens: for each document, its in-vocabulary tokens are
+    mapped into ``buf`` while ``u`` is summed over them and the places of probe
+    words are noted in ``probe_pos``; then the few tokens near either end, whose
+    windowed neighbour weight ``nb(t)`` (their share of the row sums) is below a
+    full window's, are corrected, and each probe-word occurrence adds its
+    neighbours within the window on both sides (its share of the probe rows of
+    the counts). That is ``<u, r^d> - <K, C^d>`` without ever building ``r^d``
+    or ``C^d``. ``cum_w[k]`` is the sum of the first k distance weights.
     """
     window = dist_w.shape[0]
+    full = cum_w[window]
     for d in range(starts.shape[0]):
         w = doc_w[d]
         if w == 0.0:
             out[d] = 0.0
             continue
-        n = _map_doc(tokens, starts[d], ends[d], id_map, buf)
-        s_rows = 0.0
+        n = 0
+        n_probe = 0
+        s_u = 0.0
+        for t in range(starts[d], ends[d]):
+            x = id_map[tokens[t]]
+            if x >= 0:
+                buf[n] = x
+                s_u += u[x]
+                if probe_row[x] >= 0:
+                    probe_pos[n_probe] = n
+                    n_probe += 1
+                n += 1
+        s_rows = 2.0 * full * s_u
+        for i in range(min(n, window)):                      # short of a full window on the left
+            s_rows -= (full - cum_w[i]) * u[buf[i]]
+        for i in range(max(0, n - window), n):               # and on the right
+            s_rows -= (full - cum_w[n - 1 - i]) * u[buf[i]]
         s_probe = 0.0
-        for i in range(n):
-            x = buf[i]
-            s_rows += (cum_w[min(window, i)] + cum_w[min(window, n - 1 - i)]) * u[x]
-            k = probe_row[x]
-            if k >= 0:
-                for dd in range(1, window + 1):
-                    if i - dd >= 0:
-                        s_probe += dist_w[dd - 1] * K[k, buf[i - dd]]
-                    if i + dd < n:
-                        s_probe += dist_w[dd - 1] * K[k, buf[i + dd]]
+        for q in range(n_probe):
+            i = probe_pos[q]
+            row = K[probe_row[buf[i]]]
+            for dd in range(1, min(window, i) + 1):
+                s_probe += dist_w[dd - 1] * row[buf[i - dd]]
+            for dd in range(1, min(window, n - 1 - i) + 1):
+                s_probe += dist_w[dd - 1] * row[buf[i + dd]]
         out[d] = w * (s_rows - s_probe)

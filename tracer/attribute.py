@@ -247,8 +247,9 @@ class Attribution:
         def score(docs):
             starts, ends = offsets[docs], offsets[docs + 1]
             part = np.empty(len(docs))
+            longest = int((ends - starts).max(initial=0))
             _k.linear_scores(tokens, starts, ends, id_map, self.weights[docs], dist_w, cum_w, probe_row, K, u,
-                             np.empty(int((ends - starts).max(initial=0)), np.int32), part)
+                             np.empty(longest, np.int32), np.empty(longest, np.int64), part)
             out[docs] = part
 
         docs = np.flatnonzero(self.weights > 0)
