@@ -74,42 +74,45 @@ def document_row_sums(stream: Stream, weights: np.ndarray, dist_w: np.ndarray, n
 
 
 def document_probe_rows(stream: Stream, weights: np.ndarray, dist_w: np.ndarray, probe_ids: np.ndarray,
-                        n_docs: int, n_words: int) -> list[sp.csr_array]:
-    """C^d for each probe word's row: one (n_docs, n_words) matrix per probe word.
+                        n_docs: int, n_words: int) -> sp.csr_array:
+    """C^d of the probe words' rows for every document, shape (n_probe * n_docs, n_words):
+    row ``k * n_docs + d`` is document d's part of probe word k's row.
 
     One pass over the probe words' occurrences: each occurrence adds the weight of
     every neighbour within the window (a neighbour of the same word adds to the
     diagonal twice over, once from each side, as in the symmetric counts).
     """
     window = len(dist_w)
-    order = np.argsort(stream.ids, kind="stable")
-    bounds = np.searchsorted(stream.ids[order], np.stack([probe_ids, probe_ids + 1]))
-    out = []
-    for k in range(len(probe_ids)):
-        q = order[bounds[0, k]:bounds[1, k]]
-        rows, cols, vals = [], [], []
-        for delta in range(1, window + 1):
-            for side in (q + delta, q - delta):
-                ok = (side >= stream.start[q]) & (side < stream.end[q])
-                src = q[ok]
-                rows.append(stream.doc[src])
-                cols.append(stream.ids[side[ok]])
-                vals.append(dist_w[delta - 1] * weights[stream.doc[src]])
-        out.append(sp.csr_array((np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))),
-                                shape=(n_docs, n_words)))
-    return out
+    probe_row = np.full(n_words, -1, np.int64)
+    probe_row[probe_ids] = np.arange(len(probe_ids))
+    q = np.flatnonzero(probe_row[stream.ids] >= 0)
+    block = probe_row[stream.ids[q]] * n_docs
+    rows, cols, vals = [], [], []
+    for delta in range(1, window + 1):
+        for side in (q + delta, q - delta):
+            ok = (side >= stream.start[q]) & (side < stream.end[q])
+            src = q[ok]
+            doc = stream.doc[src]
+            rows.append(block[ok] + doc)
+            cols.append(stream.ids[side[ok]])
+            vals.append(dist_w[delta - 1] * weights[doc])
+    return sp.csr_array((np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))),
+                        shape=(len(probe_ids) * n_docs, n_words))
 
 
-def rows_sum(m: sp.csr_array, rows: np.ndarray) -> np.ndarray:
-    """Sum of the given rows of a CSR matrix as a dense vector (vectorised over the row ranges)."""
+def rows_sum(m: sp.csr_array, rows: np.ndarray, groups: np.ndarray | None = None, n_groups: int = 1) -> np.ndarray:
+    """Sums of the given rows of a CSR matrix, dense, vectorised over the row ranges: one vector
+    (shape (n_cols,)), or with ``groups`` (one label per row, below ``n_groups``) one per group."""
     starts, ends = m.indptr[rows], m.indptr[rows + 1]
     lengths = ends - starts
     total = int(lengths.sum())
-    if total == 0:
-        return np.zeros(m.shape[1])
+    n_cols = m.shape[1]
     offsets = np.cumsum(lengths) - lengths
     pos = np.repeat(starts - offsets, lengths) + np.arange(total)
-    return np.bincount(m.indices[pos], weights=m.data[pos], minlength=m.shape[1])
+    if groups is None:
+        return np.bincount(m.indices[pos], weights=m.data[pos], minlength=n_cols)
+    key = np.repeat(np.asarray(groups, np.int64) * n_cols, lengths) + m.indices[pos]
+    return np.bincount(key, weights=m.data[pos], minlength=n_groups * n_cols).reshape(n_groups, n_cols)
 
 
 @dataclasses.dataclass(frozen=True)
@@ -146,12 +149,11 @@ class Attribution:
         self.probe_ids = np.array([idx[w] for w in self.probe_words], dtype=np.int64)
         self.row_of = {w: k for k, w in enumerate(self.probe_words)}
         self.r = counts.row_sums
-        self.C_P = sp.csr_array(counts.matrix[self.probe_ids])
-        self._C_P_dense = self.C_P.toarray()
+        self.C_P = counts.matrix[self.probe_ids].toarray()         # probe rows of the counts, dense
         self.S = emb.extras["singular_values"].astype(np.float64)
         self.V = emb.extras["context_vectors"].astype(np.float64)
         self.proj = self.V * (self.S ** (self.p - 1.0))            # W_i = M_i @ proj
-        self.M_P = sp.csr_array(self._probe_ppmi(self._C_P_dense, self.r))
+        self.M_P = self._probe_ppmi(self.C_P, self.r)              # probe rows of the PPMI matrix, dense
         self.W_P = self.M_P @ self.proj
         self.base = self.effect(self.W_P)
         self._dB_dM_cache: dict[str, np.ndarray] = {}
@@ -168,8 +170,9 @@ class Attribution:
                                  self.ws.n_documents, len(self.counts.vocab))
 
     @functools.cached_property
-    def P(self) -> list[sp.csr_array]:
-        """C^d of each probe word's row for every document: one (n_docs, n_words) matrix per probe word."""
+    def P(self) -> sp.csr_array:
+        """C^d of the probe words' rows, shape (n_probe * n_docs, n_words); row ``k * n_docs + d`` is
+        document d's part of probe word k's row (:func:`document_probe_rows`)."""
         return document_probe_rows(self.stream, self.weights, self.counts.settings.distance_weights(),
                                    self.probe_ids, self.ws.n_documents, len(self.counts.vocab))
 
@@ -227,16 +230,13 @@ class Attribution:
         (``tracer._kernels.linear_scores``) without building ``C^d`` or ``r^d``.
         """
         g = self._dB_dM(which)
-        act = self.M_P.tocoo()
-        gv = g[act.row, act.col]                                 # only cells above the threshold move
+        active = self.M_P > 0                                    # only cells above the threshold move
         n_words = len(self.r)
-        K = np.zeros((len(self.probe_ids), n_words))
-        K[act.row, act.col] = gv / self._C_P_dense[act.row, act.col]
+        gv = np.where(active, g, 0.0)
+        K = np.divide(gv, self.C_P, out=np.zeros_like(gv), where=active)
         r = np.where(self.r > 0, self.r, 1.0)
-        rows = self.probe_ids[act.row]
-        u = (np.bincount(rows, weights=gv / r[rows], minlength=n_words)
-             + np.bincount(act.col, weights=self.alpha * gv / r[act.col], minlength=n_words)
-             - self.alpha * gv.sum() * r ** (self.alpha - 1.0) / np.exp(self.log_z))
+        u = self.alpha * gv.sum(0) / r - self.alpha * gv.sum() * r ** (self.alpha - 1.0) / np.exp(self.log_z)
+        u[self.probe_ids] += gv.sum(1) / r[self.probe_ids]
         probe_row = np.full(n_words, -1, np.int64)
         probe_row[self.probe_ids] = np.arange(len(self.probe_ids))
         dist_w = self.counts.settings.distance_weights()
@@ -263,17 +263,14 @@ class Attribution:
     def pair_parts(self, doc: int, which: str = "gap", top: int = 3) -> list[tuple[str, str, float]]:
         """The probe-row cells of one document that carry most of its joint-count term."""
         g = self._dB_dM(which)
-        act = self.M_P.tocoo()
         words = self.counts.vocab.words
         parts = []
+        n_docs = self.ws.n_documents
         for i in range(len(self.probe_ids)):
-            row = self.P[i][[doc]].tocoo()
-            if row.nnz == 0:
-                continue
-            active = set(act.col[act.row == i].tolist())
-            for j, c in zip(row.col, row.data):
-                if j in active:
-                    parts.append((self.probe_words[i], words[j], float(-g[i, j] * c / self._C_P_dense[i, j])))
+            a, b = self.P.indptr[i * n_docs + doc], self.P.indptr[i * n_docs + doc + 1]
+            for j, c in zip(self.P.indices[a:b], self.P.data[a:b]):
+                if self.M_P[i, j] > 0:
+                    parts.append((self.probe_words[i], words[j], float(-g[i, j] * c / self.C_P[i, j])))
         parts.sort(key=lambda t: -abs(t[2]))
         return parts[:top]
 
@@ -294,7 +291,7 @@ class Attribution:
         """B after each removal: ``removed`` (shape (k, n_probe, n_words)) leaves the probe rows,
         ``removed_r`` (shape (k, n_words)) the row sums; the probe rows of M are recomputed
         exactly (thresholds included) and projected on the same subspace."""
-        C_new = self._C_P_dense[None] - removed
+        C_new = self.C_P[None] - removed
         C_new[np.abs(C_new) < 1e-9] = 0.0  # a pair that only these documents had
         r_new = self.r[None] - removed_r
         r_new[np.abs(r_new) < 1e-9] = 0.0
@@ -304,7 +301,9 @@ class Attribution:
     def exact(self, docs) -> Effect:
         """B with the documents removed together (tier 3)."""
         docs = np.atleast_1d(np.asarray(docs, dtype=np.int64))
-        removed = np.vstack([rows_sum(p, docs) for p in self.P])
+        n_probe, n_docs = len(self.probe_ids), self.ws.n_documents
+        rows = (np.arange(n_probe)[:, None] * n_docs + docs[None, :]).ravel()
+        removed = rows_sum(self.P, rows, np.repeat(np.arange(n_probe), len(docs)), n_probe)
         return self._effects_without(removed[None], rows_sum(self.R, docs)[None])[0]
 
     def exact_each(self, docs, *, max_cells: int = 4_000_000) -> list[Effect]:
@@ -316,7 +315,8 @@ class Attribution:
         out = []
         for k in range(0, len(docs), step):
             batch = docs[k:k + step]
-            removed = np.stack([p[batch].toarray() for p in self.P], axis=1)
+            rows = (np.arange(n_probe)[:, None] * self.ws.n_documents + batch[None, :]).ravel()
+            removed = self.P[rows].toarray().reshape(n_probe, len(batch), n_words).transpose(1, 0, 2)
             out += self._effects_without(removed, self.R[batch].toarray())
         return out
 
@@ -338,10 +338,18 @@ class Attribution:
     def _R_csc(self) -> sp.csc_array:
         return sp.csc_array(self.R)
 
-    def _column(self, m: sp.csc_array, j: int) -> np.ndarray:
-        out = np.zeros(m.shape[0])
+    @functools.cached_property
+    def _P_csc(self) -> sp.csc_array:
+        return sp.csc_array(self.P)
+
+    def _column(self, m: sp.csc_array, j: int, first_row: int = 0) -> np.ndarray:
+        """Rows ``first_row`` .. ``first_row + n_docs - 1`` of column j, dense."""
+        n = self.ws.n_documents
+        out = np.zeros(n)
         a, b = m.indptr[j], m.indptr[j + 1]
-        out[m.indices[a:b]] = m.data[a:b]
+        rows = m.indices[a:b] - first_row
+        keep = (rows >= 0) & (rows < n)
+        out[rows[keep]] = m.data[a:b][keep]
         return out
 
     def leave_one_out_pmi(self, w: str, a: str) -> tuple[float, np.ndarray]:
@@ -351,7 +359,7 @@ class Attribution:
         i, j = idx[w], idx[a]
         c = float(self.counts.matrix[i, j])
         full = np.log(c) - np.log(self.r[i]) - self.alpha * np.log(self.r[j]) + self.log_z if c > 0 else -np.inf
-        cd = self._column(sp.csc_array(self.P[self.row_of[w]][:, [j]]), 0)
+        cd = self._column(self._P_csc, j, self.row_of[w] * self.ws.n_documents)
         ri, rj = self._column(self._R_csc, i), self._column(self._R_csc, j)
         with np.errstate(divide="ignore", invalid="ignore"):
             loo = (np.log(c - cd) - np.log(self.r[i] - ri) - self.alpha * np.log(self.r[j] - rj)

@@ -179,13 +179,22 @@ def _first_order(attr: Attribution, docs: pd.DataFrame, settings: TraceSettings)
                 continue
             full, loo = attr.leave_one_out_pmi(t, a)
             change = loo - full
-            movers = np.flatnonzero(np.isfinite(change) & (change != 0) | np.isneginf(loo))
-            movers = movers[np.argsort(-np.abs(np.nan_to_num(change[movers], neginf=-1e9)), kind="stable")]
-            for d in movers[: settings.first_order_docs]:
+            for d in _largest(np.where(np.isneginf(loo), np.inf, np.abs(np.nan_to_num(change))),
+                              settings.first_order_docs):
                 rows.append({**base, "pmi": full, "doc_id": docs.at[d, "doc_id"],
                              "pmi_without": float(loo[d]) if np.isfinite(loo[d]) else None,
                              "change": float(change[d]) if np.isfinite(change[d]) else None})
     return pd.DataFrame(rows, columns=["target", "attribute", "set", "count", "pmi", "doc_id", "pmi_without", "change"])
+
+
+def _largest(values: np.ndarray, k: int) -> np.ndarray:
+    """Indices of the k largest positive values, largest first, ties in index order (no full sort)."""
+    k = min(k, len(values))
+    if k == 0:
+        return np.zeros(0, np.int64)
+    cut = np.partition(values, len(values) - k)[len(values) - k]
+    top = np.flatnonzero((values >= cut) & (values > 0))
+    return top[np.argsort(-values[top], kind="stable")][:k]
 
 
 def find_passages(ws, counts, stream, doc_indices, targets: list[str], attributes: list[str],
@@ -318,7 +327,7 @@ def pair_passages(ws, word: str, contexts: list[str], sl: Slice, counts: CountSe
 
     stream = kept_stream(ws, sl.weights, c)
     probe = np.array([c.vocab.index[word]])
-    rows = document_probe_rows(stream, sl.weights, counts.distance_weights(), probe, ws.n_documents, len(c.vocab))[0]
+    rows = document_probe_rows(stream, sl.weights, counts.distance_weights(), probe, ws.n_documents, len(c.vocab))
     cols = [c.vocab.index[w] for w in contexts]
     per_doc_count = np.asarray(rows[:, cols].sum(axis=1)).ravel()
     order = np.argsort(-per_doc_count, kind="stable")

@@ -97,6 +97,7 @@ def main():
     p = np.array([pred[s] for s in sources])
     a = np.array([actual[s] - base for s in sources])
     med = {k: statistics.median(v) for k, v in times.items()}
+    print({k: [round(x, 4) for x in v] for k, v in times.items()})
     n_docs = int((sl.weights > 0).sum())
     what = f"Zipf corpus, {args.zipf_tokens:,} tokens" if args.zipf_tokens else f"demo archive, test {args.test}"
     print(f"\n{what}, slice {args.slice}: {n_docs} documents, {len(sources)} sources, {len(c.vocab)} words; "
