@@ -25,7 +25,6 @@ import scipy.sparse as sp
 from . import _kernels as _k
 from .cooccur import Counts, ThreadPool, split_by_tokens, default_workers, token_mask
 from .embed.vectors import Embedding
-from .pmi import Marginals
 from .tests_file import AssociationTest
 
 
@@ -149,7 +148,8 @@ class Attribution:
         self.probe_ids = np.array([idx[w] for w in self.probe_words], dtype=np.int64)
         self.row_of = {w: k for k, w in enumerate(self.probe_words)}
         self.r = counts.row_sums
-        self.C_P = counts.matrix[self.probe_ids].toarray()         # probe rows of the counts, dense
+        n_probe = len(self.probe_ids)                                # probe rows of the counts, dense:
+        self.C_P = rows_sum(counts.matrix, self.probe_ids, np.arange(n_probe), n_probe)
         self.S = emb.extras["singular_values"].astype(np.float64)
         self.V = emb.extras["context_vectors"].astype(np.float64)
         self.proj = self.V * (self.S ** (self.p - 1.0))            # W_i = M_i @ proj
@@ -323,8 +323,10 @@ class Attribution:
     # ---- tier 1 -----------------------------------------------------------------------------
     @functools.cached_property
     def log_z(self) -> float:
-        """log Z of the slice's counts, ``Z = sum_k r_k ** alpha``."""
-        return Marginals.of(self.counts.matrix, self.alpha).log_z
+        """log Z of the slice's counts, ``Z = sum_k r_k ** alpha`` (the counts are symmetric, so
+        column sums are the row sums)."""
+        r = self.r[self.r > 0]
+        return float(np.log(np.sum(r ** self.alpha))) if len(r) else 0.0
 
     @functools.cached_property
     def _z_without(self) -> np.ndarray:
