@@ -147,6 +147,7 @@ class Attribution:
         self.probe_words = list(dict.fromkeys(self.sets["x"] + self.sets["y"] + self.sets["a"] + self.sets["b"]))
         self.probe_ids = np.array([idx[w] for w in self.probe_words], dtype=np.int64)
         self.row_of = {w: k for k, w in enumerate(self.probe_words)}
+        self._rows = {k: np.array([self.row_of[w] for w in v], dtype=np.int64) for k, v in self.sets.items()}
         self.r = counts.row_sums
         n_probe = len(self.probe_ids)                                # probe rows of the counts, dense:
         self.C_P = rows_sum(counts.matrix, self.probe_ids, np.arange(n_probe), n_probe)
@@ -155,7 +156,8 @@ class Attribution:
         self.proj = self.V * (self.S ** (self.p - 1.0))            # W_i = M_i @ proj
         self.M_P = self._probe_ppmi(self.C_P, self.r)              # probe rows of the PPMI matrix, dense
         self.W_P = self.M_P @ self.proj
-        self.base = self.effect(self.W_P)
+        self._scores_P = self._scores(self.W_P)                    # kept for the gradient
+        self.base = self._effect_of(self._scores_P)
         self._dB_dM_cache: dict[str, np.ndarray] = {}
 
     # ---- per-document counts, built when an exact step needs them ---------------------------
@@ -180,13 +182,16 @@ class Attribution:
     def _scores(self, W):
         norms = np.linalg.norm(W, axis=1)
         unit = W / np.where(norms > 0, norms, 1.0)[:, None]
-        rows = {k: np.array([self.row_of[w] for w in v], dtype=np.int64) for k, v in self.sets.items()}
+        rows = self._rows
         targets = np.concatenate([rows["x"], rows["y"]])
         s = (unit[targets] @ unit[rows["a"]].T).mean(1) - (unit[targets] @ unit[rows["b"]].T).mean(1)
         return unit, norms, rows, targets, s
 
     def effect(self, W) -> Effect:
-        _, _, rows, _, s = self._scores(W)
+        return self._effect_of(self._scores(W))
+
+    def _effect_of(self, scores) -> Effect:
+        _, _, rows, _, s = scores
         nx = len(rows["x"])
         sx, sy = s[:nx], s[nx:]
         if len(sy) == 0:
@@ -197,7 +202,7 @@ class Attribution:
 
     def gradient(self, which: str) -> np.ndarray:
         """d B / d W for the probe rows, shape (n_probe, dim); B is "effect_size" or "gap"."""
-        unit, norms, rows, targets, s = self._scores(self.W_P)
+        unit, norms, rows, targets, s = self._scores_P
         nx, ny = len(rows["x"]), len(rows["y"])
         coef = np.concatenate([np.full(nx, 1.0 / nx), np.full(ny, -1.0 / ny if ny else 0.0)])
         if which == "effect_size" and ny:
@@ -242,22 +247,21 @@ class Attribution:
         dist_w = self.counts.settings.distance_weights()
         offsets, tokens = self.ws.doc_offsets, np.asarray(self.ws.tokens)
         id_map, cum_w = self.counts.vocab.id_map(len(self.ws.vocab)), np.concatenate([[0.0], np.cumsum(dist_w)])
-        out = np.zeros(self.ws.n_documents)
+        lengths = np.diff(offsets)
+        longest = int(lengths.max(initial=0))
+        out = np.empty(self.ws.n_documents)
 
-        def score(docs):
-            starts, ends = offsets[docs], offsets[docs + 1]
-            part = np.empty(len(docs))
-            longest = int((ends - starts).max(initial=0))
-            _k.linear_scores(tokens, starts, ends, id_map, self.weights[docs], dist_w, cum_w, probe_row, K, u,
-                             np.empty(longest, np.int32), np.empty(longest, np.int64), part)
-            out[docs] = part
+        def score(a, b):  # documents a..b-1; the kernel skips those of weight 0 without reading them
+            _k.linear_scores(tokens, offsets[a:b], offsets[a + 1:b + 1], id_map, self.weights[a:b], dist_w, cum_w,
+                             probe_row, K, u, np.empty(longest, np.int32), np.empty(longest, np.int64), out[a:b])
 
-        docs = np.flatnonzero(self.weights > 0)
-        n_tokens = int((offsets[docs + 1] - offsets[docs]).sum())
-        # a pass costs about 3 ns a token; at 0.8M tokens a second thread gained nothing (measured: waking
+        n_tokens = int(lengths @ (self.weights > 0))
+        # a pass costs 1.5-3 ns a token; at 0.8M tokens a second thread gained nothing (measured: waking
         # it cost what it saved); 4M is a round figure above that, not a measured break-even
         pool = ThreadPool(default_workers() if n_tokens > 4_000_000 else 1)
-        pool.map(score, [(part,) for part in split_by_tokens(offsets, docs, -(-n_tokens // pool.workers))])
+        cuts = [0] + [int(p[-1]) + 1 for p in split_by_tokens(offsets, np.arange(self.ws.n_documents),
+                                                              -(-int(offsets[-1]) // pool.workers))]
+        pool.map(score, list(zip(cuts[:-1], cuts[1:])))
         return out
 
     def pair_parts(self, doc: int, which: str = "gap", top: int = 3) -> list[tuple[str, str, float]]:
