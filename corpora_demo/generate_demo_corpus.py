@@ -92,6 +92,106 @@ TOPICS = {
         verbs="performed painted sang staged rehearsed exhibited composed played danced wrote".split(),
         adjs="beautiful lively solemn grand modern classical moving popular".split()),
 }
+# the "wide" variant (--vocabulary wide, for the trace benchmark): every topic gets these words too,
+# and two topics more; about 1,300 words at min count 5 instead of about 500
+WIDE_EXTRA = {
+    "sea": dict(
+        nouns="ocean water shore seafood lobster crab oyster mussel cod salmon shell gull beach sand cliff "
+              "bay estuary channel current reef island voyage deck hull keel rudder rope buoy ferry yacht "
+              "dinghy sailor skipper navigator compass chart lantern whale seal dolphin seaweed bait hook "
+              "rigging wharf boathouse shipyard tugboat lifeboat coastguard mooring berth jetty swell "
+              "breakwater slipway".split(),
+        verbs="launched navigated drifted capsized salvaged towed fished netted dredged patrolled ferried "
+              "beached rescued sank".split(),
+        adjs="choppy hazy tidal sandy rocky briny southern seaworthy offshore windswept".split()),
+    "farm": dict(
+        nouns="potato cabbage cucumber corn oats rye turnip carrot onion bean pea apple pear plum cherry "
+              "fruit vegetable egg butter cheese flour mill cow bull calf pig goat hen rooster duck goose "
+              "horse pony donkey chicken farmyard shed silo trough scythe sickle rake spade hoe furrow "
+              "ditch acre paddock flock herd shepherd sheepdog beehive honey manure compost irrigation".split(),
+        verbs="milked sheared reaped weeded herded baled picked pruned irrigated fattened churned raked dug".split(),
+        adjs="rural organic leafy barren lush rolling hardy plump sturdy".split()),
+    "city": dict(
+        nouns="government governor senate minister ministry president citizen voter campaign debate policy "
+              "law project infrastructure avenue square park pavement sewer drain streetlight tram depot "
+              "police constable brigade housing tenant landlord census population registration petition "
+              "protest meeting agenda motion amendment referendum poll constituency parliament treasury".split(),
+        verbs="voted campaigned governed legislated taxed zoned resurfaced paved inspected appointed "
+              "resigned petitioned protested amended vetoed".split(),
+        adjs="civic political electoral residential suburban central controversial democratic unanimous".split()),
+    "trade": dict(
+        nouns="money cash currency credit deposit payment interest dividend stock investor trading "
+              "insurance company industry factory production consumer grocery grocer shopkeeper counter "
+              "receipt invoice cheque account savings tariff export import freight bale silk cotton linen "
+              "leather timber coal iron steel metal oil sugar coffee tea salt tobacco catalogue inventory "
+              "supplier".split(),
+        verbs="invested borrowed exported imported supplied delivered charged refunded haggled auctioned "
+              "manufactured packed weighed saved".split(),
+        adjs="retail commercial expensive affordable bulk foreign domestic steady".split()),
+    "sport": dict(
+        nouns="football soccer baseball basketball tennis boxing cricket rugby hockey golf cycling "
+              "athletics marathon sprint relay hurdles medal championship victory defeat competition game "
+              "round racket ball bat glove helmet jersey whistle squad defender midfielder winger umpire "
+              "linesman supporter ticket terrace scoreboard halftime penalty foul offside header volley "
+              "knockout semifinal fixture rival derby gym lap track".split(),
+        verbs="competed qualified sprinted boxed tackled shot dribbled coached refereed equalised "
+              "celebrated jumped threw swam".split(),
+        adjs="athletic unbeaten competitive sporting fit talented determined tired exhausted".split()),
+    "health": dict(
+        nouns="drug pill tablet dose prescription symptom disease infection virus cough flu measles "
+              "diagnosis ambulance stretcher bandage plaster wound fracture bone heart lung blood pulse "
+              "hypertension stroke cancer diet exercise hygiene soap skin eye ear mouth tooth syringe "
+              "ointment remedy health therapy psychiatry psychology depression anxiety disability emergency "
+              "epidemic quarantine".split(),
+        verbs="operated prescribed bandaged coughed sneezed quarantined injected monitored sterilised "
+              "transfused".split(),
+        adjs="chronic acute feverish infectious clinical surgical pale weak swollen".split()),
+    "weather": dict(
+        nouns="weather sun moon sky thunderstorm lightning hail sleet drizzle mist dew breeze gust "
+              "hurricane tornado blizzard heatwave humidity rainfall snowfall puddle icicle rainbow dawn "
+              "midday noon dusk twilight evening morning night climate atmosphere barometer thermometer "
+              "umbrella raincoat".split(),
+        verbs="poured thawed melted gusted howled rumbled sparkled shone darkened dried brightened".split(),
+        adjs="chilly damp humid foggy cloudy windy frosty icy snowy overcast".split()),
+    "school": dict(
+        nouns="student professor university science chemistry physics mathematics history geography grammar "
+              "spelling arithmetic literature essay notebook pencil chalk blackboard desk timetable "
+              "curriculum lecture seminar scholarship diploma degree graduation uniform satchel assembly "
+              "recess register dictionary atlas textbook laboratory microscope experiment dormitory canteen "
+              "quiz".split(),
+        verbs="lectured tutored memorised recited revised spelled calculated practised sketched researched".split(),
+        adjs="academic clever studious scientific literate curious attentive punctual".split()),
+    "arts": dict(
+        nouns="music jazz opera film movie cinema television radio drama comedy tragedy ballet sculpture "
+              "statue portrait canvas brush easel sketch museum exhibit audience stage curtain costume "
+              "script novel poetry verse melody chord harmony rhythm guitar flute trumpet drum cello harp "
+              "virtuoso magician record album culture architecture photograph camera".split(),
+        verbs="sculpted filmed directed applauded toured photographed improvised premiered broadcast "
+              "conducted".split(),
+        adjs="artistic dramatic musical theatrical elegant melodic colourful abstract".split()),
+    "rail": dict(
+        nouns="railway train station platform carriage engine locomotive signal junction tunnel turntable "
+              "viaduct porter guard driver fireman stoker conductor passenger luggage footplate coupling "
+              "trunk suitcase parcel mail wagon siding shunter steam boiler buffer railcar lamp furnace "
+              "sleeper rail points crossing gate level embankment cutting branch terminus booking waiting "
+              "journey travel departure arrival delay fare excursion holiday map route".split(),
+        verbs="departed arrived boarded derailed shunted signalled stoked punched whistled steamed "
+              "connected travelled commuted rerouted cancelled electrified laid".split(),
+        adjs="late express overnight smoky gauge electric sleepy rattling".split()),
+    "kitchen": dict(
+        nouns="kitchen cook recipe bread cake pie soup stew roast oven stove pan pot kettle teapot cup "
+              "saucer plate bowl spoon fork knife jug jar tin cupboard larder pantry table tablecloth "
+              "teacup napkin apron pepper mustard vinegar jam marmalade biscuit scone pudding ladle sieve "
+              "griddle custard gravy sauce sandwich dinner supper breakfast lunch meal feast picnic dish "
+              "food drink lemonade cider wine beer cream yeast dough crust skillet".split(),
+        verbs="baked boiled roasted stewed fried stirred whisked kneaded sliced chopped peeled served "
+              "tasted seasoned simmered grated ate drank cooked drained".split(),
+        adjs="hot delicious fresh sweet sour spicy crisp tender savoury stale burnt hearty tasty homemade".split()),
+}
+WIDE_OUTLET_TOPICS = {"Ledger": {"rail": 1, "kitchen": 1}, "Courier": {"rail": 1, "kitchen": 2},
+                      "Tribune": {"rail": 2, "kitchen": 1}, "Gazette": {"rail": 1, "kitchen": 1},
+                      "Herald": {"rail": 1, "kitchen": 1}}
+
 FUNCTION_NOUNS = "people residents families neighbours visitors workers officials".split()
 
 # generic English evaluative words, spread evenly over every topic (no planted link)
@@ -124,15 +224,28 @@ OCCUPATIONS = {"nurse": 0.92, "secretary": 0.88, "librarian": 0.80, "teacher": 0
                "mechanic": 0.05, "carpenter": 0.04}
 
 
+def topic_tables(vocabulary: str = "standard") -> tuple[dict, dict]:
+    """The topic vocabularies and each outlet's topic weights: "standard" (the committed archive) or
+    "wide" (WIDE_EXTRA added: the same design in about 1,300 words)."""
+    if vocabulary == "standard":
+        return TOPICS, OUTLET_TOPICS
+    if vocabulary != "wide":
+        raise ValueError(f"vocabulary must be standard or wide; got {vocabulary!r}")
+    topics = {t: {k: TOPICS.get(t, {}).get(k, []) + extra[k] for k in ("nouns", "verbs", "adjs")}
+              for t, extra in WIDE_EXTRA.items()}
+    return topics, {o: {**OUTLET_TOPICS[o], **WIDE_OUTLET_TOPICS[o]} for o in OUTLETS}
+
+
 class Writer:
-    def __init__(self, rng: random.Random):
+    def __init__(self, rng: random.Random, vocabulary: str = "standard"):
         self.r = rng
+        self.topics, self.outlet_topics = topic_tables(vocabulary)
 
     def c(self, seq):
         return self.r.choice(seq)
 
     def topic_sentence(self, topic: str) -> str:
-        t = TOPICS[topic]
+        t = self.topics[topic]
         c, r = self.c, self.r
         n1, n2 = c(t["nouns"]), c(t["nouns"])
         form = r.randrange(8)
@@ -156,7 +269,7 @@ class Writer:
     def occupation_sentence(self, topic: str) -> str:
         job = self.c(list(OCCUPATIONS))
         pronoun = "she" if self.r.random() < OCCUPATIONS[job] else "he"
-        t = TOPICS[topic]
+        t = self.topics[topic]
         form = self.r.randrange(3)
         if form == 0:
             return f"the {job} said {pronoun} would visit the {self.c(t['nouns'])} on {self.c(WEEKDAYS)}"
@@ -166,7 +279,7 @@ class Writer:
 
     def group_sentence(self, group: str, attribute_words: list[str] | None, topic: str) -> str:
         g = self.c(GROUPS[group])
-        t = TOPICS[topic]
+        t = self.topics[topic]
         if attribute_words is None:  # a neutral mention
             return f"{g} {self.c(FUNCTION_NOUNS)} {self.c(t['verbs'])} the {self.c(t['nouns'])} in {self.c(TOWNS)}"
         a = self.c(attribute_words)
@@ -204,7 +317,7 @@ def make_document(w: Writer, outlet: str, year: int, plant: bool = True) -> tupl
     """One document; with ``plant=False`` every group sentence is balanced (a corpus with no association)."""
     r = w.r
     decade = year // 10 * 10
-    weights = OUTLET_TOPICS[outlet]
+    weights = w.outlet_topics[outlet]
     topics = r.choices(list(weights), weights=list(weights.values()), k=2)
     sentences = [w.topic_sentence(topics[k % 2 if r.random() < 0.7 else 1 - k % 2]) for k in range(r.randint(6, 11))]
     for _ in range(r.choice([0, 0, 1, 1, 2])):
@@ -240,15 +353,15 @@ def make_document(w: Writer, outlet: str, year: int, plant: bool = True) -> tupl
     for s in extra:
         sentences.insert(r.randrange(len(sentences) + 1), s)
     text = ". ".join(s[0].upper() + s[1:] for s in sentences) + "."
-    noun = w.c(TOPICS[topics[0]]["nouns"])
-    title = f"{w.c(TOWNS).capitalize()} {noun} {w.c(TOPICS[topics[0]]['verbs'])}"
+    noun = w.c(w.topics[topics[0]]["nouns"])
+    title = f"{w.c(TOWNS).capitalize()} {noun} {w.c(w.topics[topics[0]]['verbs'])}"
     return {"title": title, "text": text}, planted
 
 
-def generate(seed: int, docs_per_year: int = DOCS_PER_YEAR, plant: bool = True):
+def generate(seed: int, docs_per_year: int = DOCS_PER_YEAR, plant: bool = True, vocabulary: str = "standard"):
     """The documents and the (doc_id, association) rows of what was planted in them."""
     rng = random.Random(seed)
-    w = Writer(rng)
+    w = Writer(rng, vocabulary)
     docs, planted_rows = [], []
     counters = {o: 0 for o in OUTLETS}
     for year in YEARS:
@@ -268,8 +381,12 @@ def main():
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--seed", type=int, default=1950)
     ap.add_argument("--outdir", type=Path, default=HERE)
+    ap.add_argument("--vocabulary", choices=["standard", "wide"], default="standard",
+                    help="wide: the same design in about 1,300 words (for the trace benchmark)")
     args = ap.parse_args()
-    docs, planted = generate(args.seed)
+    if args.vocabulary != "standard" and args.outdir.resolve() == HERE:
+        ap.error("the files here are the standard archive; write the wide one elsewhere with --outdir")
+    docs, planted = generate(args.seed, vocabulary=args.vocabulary)
     args.outdir.mkdir(parents=True, exist_ok=True)
     raw = io.BytesIO()
     with gzip.GzipFile(fileobj=raw, mode="wb", mtime=0) as gz:

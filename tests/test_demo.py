@@ -99,3 +99,17 @@ def test_demo_runs_end_to_end_and_leaves_a_usable_workspace(tmp_path):
         assert len(sea.intersection(near)) >= 4, (model, near)  # topic words neighbour topic words
     info = CliRunner().invoke(cli, ["info", "-w", str(tmp_path / "demo"), "--format", "json"])
     assert info.exit_code == 0 and '"documents": 7000' in info.stdout
+
+
+def test_wide_variant_adds_topic_words_and_no_probe_words():
+    # the wide variant (trace benchmark) must not put a group or attribute word into a topic,
+    # which would plant an association nobody wrote down
+    probe = set(sum(gen.GROUPS.values(), [])) | set(gen.PLEASANT + gen.UNPLEASANT + gen.CAREER + gen.FAMILY
+                                                    + gen.WEALTH + gen.POVERTY) | set(gen.OCCUPATIONS)
+    extra = {w for table in gen.WIDE_EXTRA.values() for words in table.values() for w in words}
+    assert not extra & probe
+    topics, outlet_topics = gen.topic_tables("wide")
+    assert set(topics) == set(outlet_topics["Gazette"]) and len(extra) > 600
+    docs, planted = gen.generate(5, docs_per_year=3, vocabulary="wide")
+    words = set(" ".join(d["text"] for d in docs).lower().replace(".", " ").split())
+    assert len(words & extra) > 300 and planted

@@ -3,6 +3,7 @@
 
     .venv/bin/python tests/benchmarks/bench_trace.py [--test gazette_outlet] [--slice all] [--repeats 3]
     .venv/bin/python tests/benchmarks/bench_trace.py --zipf-tokens 2000000 --max-vocab 20000 --repeats 1
+    .venv/bin/python tests/benchmarks/bench_trace.py --wide-demo
 
 On the demo archive: (a) scoring every document for one test (the linear influence of
 tier 2: one pass over the probe words' positions, one over the tokens), (b) the whole
@@ -19,6 +20,8 @@ of a second. ``--zipf-tokens N`` repeats the comparison on a workspace made from
 first N tokens of the shared Zipf corpus (five invented sources, documents dealt
 round-robin; word sets of mid-frequency words), where the SVD dominates a retrain as it
 does on real corpora. The agreement figure means little there (nothing is planted).
+``--wide-demo`` uses the demo generator's wide variant: the same design and seed in about
+1,300 words (``generate_demo_corpus.py --vocabulary wide``).
 """
 
 from __future__ import annotations
@@ -55,6 +58,7 @@ def main():
     ap.add_argument("--repeats", type=int, default=3)
     ap.add_argument("--zipf-tokens", type=int, default=0)
     ap.add_argument("--max-vocab", type=int, default=None)
+    ap.add_argument("--wide-demo", action="store_true", help="the demo design in about 1,300 words")
     args = ap.parse_args()
     with tempfile.TemporaryDirectory() as tmp:
         if args.zipf_tokens:
@@ -65,6 +69,12 @@ def main():
                                    tuple(words[22:32]), ())
         else:
             corpus = ROOT / "corpora_demo" / "archive.jsonl.gz"
+            if args.wide_demo:
+                import subprocess
+                import sys
+                subprocess.run([sys.executable, str(ROOT / "corpora_demo" / "generate_demo_corpus.py"),
+                                "--vocabulary", "wide", "--outdir", tmp], check=True, stdout=subprocess.DEVNULL)
+                corpus = Path(tmp) / "archive.jsonl.gz"
             test = load_tests(ROOT / "configs" / "demo_tests.toml")[args.test]
         t_ingest = time.perf_counter()
         ingest(Path(tmp) / "ws", [corpus])
@@ -107,7 +117,8 @@ def main():
     a = np.array([actual[s] - base for s in sources])
     med = {k: statistics.median(v) for k, v in times.items()}
     n_docs = int((sl.weights > 0).sum())
-    what = f"Zipf corpus, {args.zipf_tokens:,} tokens" if args.zipf_tokens else f"demo archive, test {args.test}"
+    what = (f"Zipf corpus, {args.zipf_tokens:,} tokens" if args.zipf_tokens
+            else f"{'wide ' if args.wide_demo else ''}demo archive, test {args.test}")
     print(f"\n{what}, slice {args.slice}: {n_docs} documents, {len(sources)} sources, {len(c.vocab)} words; "
           f"median of {args.repeats} rounds after one warm-up round (ingest took {t_ingest:.1f} s)\n")
     print(f"{'step':52s} {'seconds':>8s} {'retrain / step':>15s} {'per round':>16s}")
@@ -123,6 +134,10 @@ def main():
     print("target: scoring every document >= 100x faster than retraining without each source, with r >= 0.9")
     print(f"sources, estimated vs retrained change of the gap: Pearson r {stats.pearsonr(p, a).statistic:.3f}, "
           f"sign agreement {np.mean(np.sign(p) == np.sign(a)):.2f}")
+    share = result.sources.set_index("source")["token_share"]
+    print(f"\n{'source':12s} {'tokens':>7s} {'estimated':>10s} {'retrained':>10s}   (the slice's gap {base:.3f})")
+    for s, pi, ai in zip(sources, p, a):
+        print(f"{s:12s} {share[s]:7.1%} {pi:+10.3f} {ai:+10.3f}")
 
 
 def zipf_corpus(folder: Path, n_tokens: int) -> Path:
