@@ -16,6 +16,7 @@ from tracer.corpus.slices import slice_from_spec
 from tracer.corpus.workspace import Workspace
 from tracer.embed.ppmi_svd import PpmiSvdSettings
 from tracer.embed.train import embedding_from_counts
+from tracer import attribute
 from tracer.attribute import Attribution
 from tracer.pmi import Marginals
 from tracer.tests_file import AssociationTest, load_tests
@@ -95,7 +96,7 @@ def test_first_order_values_equal_a_recount_without_the_document(demo_ws):
 
 
 @pytest.mark.parametrize("weighting", ["uniform", "harmonic"])
-def test_one_pass_linear_score_equals_the_per_document_matrices(demo_ws, weighting):
+def test_one_pass_linear_score_equals_the_per_document_matrices(demo_ws, weighting, monkeypatch):
     """The fused one-pass score against -<K, C^d> + <u, r^d> written out with the per-document
     matrices (C^d of the probe rows, r^d), on resampling-style weights 0, 1, 2."""
     rng = np.random.default_rng(3)
@@ -123,6 +124,10 @@ def test_one_pass_linear_score_equals_the_per_document_matrices(demo_ws, weighti
         got = attr.linear(which)
         assert np.count_nonzero(expected) > 100 and np.all(got[w == 0] == 0)
         np.testing.assert_allclose(got, expected, rtol=1e-9, atol=1e-12 * np.abs(expected).max())
+        with monkeypatch.context() as m:  # the pass split over three threads gives the same numbers
+            m.setattr(attribute, "LINEAR_THREADS_FROM", 0)
+            m.setattr(attribute, "default_workers", lambda: 3)
+            np.testing.assert_array_equal(attr.linear(which), got)
 
 
 def test_batched_exact_rerank_equals_one_document_at_a_time(demo_ws):

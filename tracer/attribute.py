@@ -23,9 +23,14 @@ import numpy as np
 import scipy.sparse as sp
 
 from . import _kernels as _k
-from .cooccur import Counts, ThreadPool, split_by_tokens, default_workers, token_mask
+from .cooccur import Counts, ThreadPool, default_workers, token_mask
 from .embed.vectors import Embedding
 from .tests_file import AssociationTest
+
+
+# The linear pass costs 1.5-3 ns a token; at 0.8M tokens a second thread gained nothing (measured:
+# waking it cost what it saved). 4M is a round figure above that, not a measured break-even.
+LINEAR_THREADS_FROM = 4_000_000
 
 
 @dataclasses.dataclass(frozen=True)
@@ -255,12 +260,11 @@ class Attribution:
             _k.linear_scores(tokens, offsets[a:b], offsets[a + 1:b + 1], id_map, self.weights[a:b], dist_w, cum_w,
                              probe_row, K, u, np.empty(longest, np.int32), np.empty(longest, np.int64), out[a:b])
 
-        n_tokens = int(lengths @ (self.weights > 0))
-        # a pass costs 1.5-3 ns a token; at 0.8M tokens a second thread gained nothing (measured: waking
-        # it cost what it saved); 4M is a round figure above that, not a measured break-even
-        pool = ThreadPool(default_workers() if n_tokens > 4_000_000 else 1)
-        cuts = [0] + [int(p[-1]) + 1 for p in split_by_tokens(offsets, np.arange(self.ws.n_documents),
-                                                              -(-int(offsets[-1]) // pool.workers))]
+        read = np.cumsum(lengths * (self.weights > 0))          # tokens the pass reads, up to each document
+        n_tokens = int(read[-1]) if len(read) else 0
+        pool = ThreadPool(default_workers() if n_tokens > LINEAR_THREADS_FROM else 1)
+        cuts = np.searchsorted(read, np.arange(1, pool.workers) * n_tokens / pool.workers)
+        cuts = np.unique(np.concatenate([[0], cuts, [self.ws.n_documents]])).tolist()
         pool.map(score, list(zip(cuts[:-1], cuts[1:])))
         return out
 
