@@ -156,10 +156,10 @@ WIDE_EXTRA = {
     "school": dict(
         nouns="student professor university science chemistry physics mathematics history geography grammar "
               "spelling arithmetic literature essay notebook pencil chalk blackboard desk timetable "
-              "curriculum lecture seminar scholarship diploma degree graduation uniform satchel assembly "
+              "curriculum tutorial seminar scholarship diploma degree graduation uniform satchel assembly "
               "recess register dictionary atlas textbook laboratory microscope experiment dormitory canteen "
               "quiz".split(),
-        verbs="lectured tutored memorised recited revised spelled calculated practised sketched researched".split(),
+        verbs="instructed tutored memorised recited revised spelled calculated practised sketched researched".split(),
         adjs="academic clever studious scientific literate curious attentive punctual".split()),
     "arts": dict(
         nouns="music jazz opera film movie cinema television radio drama comedy tragedy ballet sculpture "
