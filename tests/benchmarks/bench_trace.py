@@ -59,6 +59,7 @@ def main():
     ap.add_argument("--zipf-tokens", type=int, default=0)
     ap.add_argument("--max-vocab", type=int, default=None)
     ap.add_argument("--wide-demo", action="store_true", help="the demo design in about 1,300 words")
+    ap.add_argument("--dim", type=int, default=PpmiSvdSettings().dim)
     args = ap.parse_args()
     with tempfile.TemporaryDirectory() as tmp:
         if args.zipf_tokens:
@@ -84,7 +85,7 @@ def main():
         # ``tracer run``; the retrains use a workspace without the cache, so each one really retrains
         cached = Workspace(Path(tmp) / "ws", cache=True)
         sl = slice_from_spec(ws, args.slice)
-        settings = PpmiSvdSettings()
+        settings = PpmiSvdSettings(dim=args.dim)
         counts = CountSettings(max_vocab=args.max_vocab)
         c = count_slice(cached, sl.weights, counts)
         emb = embedding_from_counts(cached, sl, c, settings)
@@ -119,7 +120,8 @@ def main():
     n_docs = int((sl.weights > 0).sum())
     what = (f"Zipf corpus, {args.zipf_tokens:,} tokens" if args.zipf_tokens
             else f"{'wide ' if args.wide_demo else ''}demo archive, test {args.test}")
-    print(f"\n{what}, slice {args.slice}: {n_docs} documents, {len(sources)} sources, {len(c.vocab)} words; "
+    print(f"\n{what}, slice {args.slice}: {n_docs} documents, {len(sources)} sources, {len(c.vocab)} words, "
+          f"dim {args.dim}; "
           f"median of {args.repeats} rounds after one warm-up round (ingest took {t_ingest:.1f} s)\n")
     print(f"{'step':52s} {'seconds':>8s} {'retrain / step':>15s} {'per round':>16s}")
     for key, label in (("score", "score every document (tier 2)"),
