@@ -145,3 +145,33 @@ def test_a_changed_experiment_reuses_cached_counts_and_models(run_dir):
     first = json.loads((run_dir / "tables" / "measure.json").read_text())
     second = json.loads((again.folder / "tables" / "measure.json").read_text())
     assert [r["effect_size"] for r in first] == [r["effect_size"] for r in second]
+
+
+def test_other_commands_read_the_cache_and_store_nothing(run_dir, tmp_path, monkeypatch):
+    from tracer.cache import ResultCache
+    from tracer.cooccur import CountSettings, count_slice
+    from tracer.corpus.slices import slice_from_spec
+    from tracer.corpus.workspace import Workspace
+
+    ws_path = run_dir.parent.parent
+    entries = sorted(p.name for p in (ws_path / "cache").iterdir())
+    ws = Workspace(ws_path, cache="read")
+    sl = slice_from_spec(ws, "all")
+    count_slice(ws, sl.weights, CountSettings())
+    assert (ws.cache.hits, ws.cache.misses) == (1, 0)  # the run counted this slice
+    src = ws.documents["source"].to_numpy()
+    count_slice(ws, sl.weights * ~((src == "Herald") | (src == "Ledger")), CountSettings())
+    assert ws.cache.misses == 1
+    args = ["trace", "--tests", str(ws_path.parent / "tests.toml"), "--test", "gazette_outlet", "--dim", "50",
+            "--format", "json"]
+    found = []
+    get = ResultCache.get_embedding
+    monkeypatch.setattr(ResultCache, "get_embedding", lambda self, key: found.append(get(self, key)) or found[-1])
+    cached = CliRunner().invoke(cli, args[:1] + ["-w", str(ws_path)] + args[1:])
+    assert cached.exit_code == 0, cached.output
+    assert found and found[0] is not None  # the trace used the run's model of the slice
+    assert sorted(p.name for p in (ws_path / "cache").iterdir()) == entries  # nothing stored
+    plain = tmp_path / "ws"
+    shutil.copytree(ws_path, plain, ignore=shutil.ignore_patterns("cache", "runs"))
+    fresh = CliRunner().invoke(cli, args[:1] + ["-w", str(plain)] + args[1:])
+    assert fresh.exit_code == 0 and json.loads(fresh.stdout) == json.loads(cached.stdout)

@@ -24,10 +24,12 @@ def cacheable(weights: np.ndarray) -> bool:
 
 
 class ResultCache:
-    """Counts and embeddings stored under ``folder``; ``hits`` and ``misses`` count lookups."""
+    """Counts and embeddings stored under ``folder``; ``hits`` and ``misses`` count lookups.
+    With ``write=False`` entries made before are used and nothing is stored."""
 
-    def __init__(self, folder: str | os.PathLike):
+    def __init__(self, folder: str | os.PathLike, *, write: bool = True):
         self.folder = Path(folder)
+        self.write = write
         self.hits = 0
         self.misses = 0
 
@@ -61,6 +63,8 @@ class ResultCache:
         return Counts(matrix, ModelVocab(words, a["ids"], a["counts"]), CountSettings(**meta["settings"]), meta["slice"])
 
     def put_counts(self, key: str, counts) -> None:
+        if not self.write:
+            return
         final = self.folder / f"counts-{key}"
         tmp = self.folder / f".tmp-counts-{key}-{os.getpid()}"
         tmp.mkdir(parents=True, exist_ok=True)
@@ -84,6 +88,8 @@ class ResultCache:
         return Embedding.load(f)
 
     def put_embedding(self, key: str, emb) -> None:
+        if not self.write:
+            return
         final = self.folder / f"model-{key}"
         tmp = self.folder / f".tmp-model-{key}-{os.getpid()}"
         emb.save(tmp)

@@ -127,7 +127,9 @@ def _emit_table(df, fmt: str, out: Path | None, ctx: click.Context) -> None:
 
 def _open(workspace: Path):
     from .corpus.workspace import Workspace
-    return Workspace(workspace)
+    # counts and models that tracer run stored are reused (same corpus, documents and settings);
+    # the other commands store nothing there
+    return Workspace(workspace, cache="read")
 
 
 def _words(value: str) -> list[str]:

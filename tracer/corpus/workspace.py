@@ -95,14 +95,16 @@ class Workspace:
     Open with ``Workspace(path)``; raises :class:`WorkspaceNotFound` if no corpus
     was ingested there. Writing is done by :func:`tracer.corpus.ingest.ingest`.
     ``Workspace(path, cache=True)`` reuses counts and models of slices made before
-    (see :mod:`tracer.cache`); ``tracer run`` opens workspaces that way.
+    and keeps new ones (see :mod:`tracer.cache`); ``tracer run`` opens workspaces that
+    way. ``cache="read"`` reuses them and keeps nothing new: the other commands.
     """
 
-    def __init__(self, path: str | os.PathLike, *, cache: bool = False):
+    def __init__(self, path: str | os.PathLike, *, cache: bool | str = False):
         self.path = Path(path)
-        # with cache=True, counts and models of slices are kept in WORKSPACE/cache and reused
+        if cache not in (False, True, "read"):
+            raise ValueError(f"cache must be False, True or 'read'; got {cache!r}")
         from ..cache import ResultCache
-        self.cache = ResultCache(self.path / "cache") if cache else None
+        self.cache = ResultCache(self.path / "cache", write=cache is True) if cache else None
         current = self.path / CURRENT_FILE
         if not current.is_file():
             raise WorkspaceNotFound(
