@@ -52,6 +52,20 @@ def test_reingesting_is_idempotent_and_a_new_file_appends(tmp_path, small_jsonl)
     assert list(ws.positions("cat"))[-1] == ws.n_tokens - 2
 
 
+def test_a_workspace_opened_before_an_append_says_so(tmp_path, small_jsonl):
+    ws_path = tmp_path / "ws"
+    ingest(ws_path, [small_jsonl])
+    old = Workspace(ws_path)
+    assert old.texts([0])[0] == SMALL_RECORDS[0]["text"]
+    more = write_jsonl(tmp_path / "more.jsonl", [{"id": "d5", "text": "A new cat arrives", "source": "Gamma"}])
+    ingest(ws_path, [more])
+    with pytest.raises(WorkspaceError, match=r"changed after it was opened .* open it again"):
+        old.texts([0])
+    with pytest.raises(WorkspaceError, match="changed after it was opened"):
+        old.documents
+    assert Workspace(ws_path).texts([4])[4] == "A new cat arrives"
+
+
 def test_bad_records_are_counted_and_written_to_the_rejects_file(tmp_path):
     p = tmp_path / "mixed.jsonl"
     p.write_bytes(b'{"id": "a", "text": "good text here", "time": 1990}\n'

@@ -133,11 +133,18 @@ class Workspace:
     def models_dir(self) -> Path:
         return self.path / "models"
 
+    def _file(self, name: str) -> Path:
+        """A file of the store this object opened; a clear error if a later ingest replaced the store."""
+        if not self.store.is_dir():
+            raise WorkspaceError(f"workspace {self.path} changed after it was opened (an ingest replaced its "
+                                 f"store); open it again")
+        return self.store / name
+
     # ---- arrays ---------------------------------------------------------------------------
     @cached_property
     def tokens(self) -> np.ndarray:
         """All tokens as full-vocabulary ids, shape (n_tokens,), uint32, memory-mapped."""
-        path = self.store / TOKENS_FILE
+        path = self._file(TOKENS_FILE)
         if path.stat().st_size == 0:
             return np.zeros(0, dtype=np.uint32)
         return np.memmap(path, dtype="<u4", mode="r")
@@ -145,7 +152,7 @@ class Workspace:
     @cached_property
     def doc_offsets(self) -> np.ndarray:
         """Token start of each document and the total, shape (n_docs + 1,), int64."""
-        return np.fromfile(self.store / OFFSETS_FILE, dtype="<i8")
+        return np.fromfile(self._file(OFFSETS_FILE), dtype="<i8")
 
     @property
     def n_documents(self) -> int:
@@ -160,7 +167,7 @@ class Workspace:
         words: list[str] = []
         counts: list[int] = []
         ids: list[int] = []
-        with open(self.store / VOCAB_FILE, encoding="utf-8") as f:
+        with open(self._file(VOCAB_FILE), encoding="utf-8") as f:
             next(f)  # header
             for line in f:
                 i, w, c = line.rstrip("\n").split("\t")
@@ -172,8 +179,8 @@ class Workspace:
 
     @cached_property
     def _postings(self) -> tuple[np.ndarray, np.ndarray]:
-        ptr = np.fromfile(self.store / POSTINGS_PTR_FILE, dtype="<i8")
-        pos_path = self.store / POSTINGS_POS_FILE
+        ptr = np.fromfile(self._file(POSTINGS_PTR_FILE), dtype="<i8")
+        pos_path = self._file(POSTINGS_POS_FILE)
         pos = (np.memmap(pos_path, dtype="<i8", mode="r") if pos_path.stat().st_size
                else np.zeros(0, dtype=np.int64))
         return ptr, pos
@@ -190,7 +197,7 @@ class Workspace:
 
     # ---- documents ------------------------------------------------------------------------
     def _connect(self) -> sqlite3.Connection:
-        return sqlite3.connect(f"file:{self.store / DB_FILE}?mode=ro", uri=True)
+        return sqlite3.connect(f"file:{self._file(DB_FILE)}?mode=ro", uri=True)
 
     @cached_property
     def documents(self) -> pd.DataFrame:
