@@ -8,6 +8,7 @@ import subprocess
 from html.parser import HTMLParser
 from pathlib import Path
 
+import numpy as np
 import pytest
 from click.testing import CliRunner
 
@@ -175,3 +176,13 @@ def test_other_commands_read_the_cache_and_store_nothing(run_dir, tmp_path, monk
     shutil.copytree(ws_path, plain, ignore=shutil.ignore_patterns("cache", "runs"))
     fresh = CliRunner().invoke(cli, args[:1] + ["-w", str(plain)] + args[1:])
     assert fresh.exit_code == 0 and json.loads(fresh.stdout) == json.loads(cached.stdout)
+
+
+def test_cache_keys_change_with_the_tracer_version(monkeypatch):
+    import tracer.cache
+    from tracer.cache import ResultCache
+    w = np.ones(4)
+    before = ResultCache.key("abc", w, "counts", {"window": 5})
+    assert ResultCache.key("abc", w, "counts", {"window": 5}) == before
+    monkeypatch.setattr(tracer.cache, "__version__", "9.9.9")
+    assert ResultCache.key("abc", w, "counts", {"window": 5}) != before

@@ -1,7 +1,8 @@
 """A cache of counts and models inside the workspace, keyed by what made them.
 
 Key: the corpus hash, the document weights, the counting settings, the vocabulary
-given (if any) and the model settings. Only slices (weights of 0 and 1) are cached:
+given (if any), the model settings and the versions of tracer, numpy and scipy (an
+entry made by another version, whose counting or SVD may differ, is never reused). Only slices (weights of 0 and 1) are cached:
 bootstrap replicates and reweighted periods are made once and thrown away. Entries
 are written atomically (a temporary folder renamed into place) and never pickled.
 """
@@ -15,7 +16,10 @@ import shutil
 from pathlib import Path
 
 import numpy as np
+import scipy
 import scipy.sparse as sp
+
+from . import __version__
 
 
 def cacheable(weights: np.ndarray) -> bool:
@@ -36,6 +40,7 @@ class ResultCache:
     @staticmethod
     def key(corpus_hash: str, weights: np.ndarray, *parts) -> str:
         h = hashlib.sha256(corpus_hash.encode())
+        h.update(f"tracer {__version__} numpy {np.__version__} scipy {scipy.__version__}".encode())
         h.update(np.packbits(np.asarray(weights) > 0).tobytes())
         for p in parts:
             h.update(json.dumps(p, sort_keys=True, default=str).encode())
