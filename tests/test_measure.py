@@ -126,3 +126,19 @@ def test_word2vec_seeds_report_a_spread(demo_ws):
     r = measure(demo_ws, {"gazette_outlet": TESTS["gazette_outlet"]}, "word2vec", [sl], CountSettings(),
                 Word2VecSettings(dim=30, epochs=3), MeasureSettings(seeds=3)).summary.iloc[0]
     assert r.seeds == 3 and r.effect_size_seed_sd >= 0 and r.effect_size > 0.8
+
+
+def test_a_result_does_not_depend_on_the_other_tests_or_slices_measured_with_it(demo_ws):
+    # each slice's bootstrap and each test's sampled permutations have their own random stream
+    tests = TESTS
+    gazette, herald = slice_from_spec(demo_ws, "source=Gazette"), slice_from_spec(demo_ws, "source=Herald")
+    settings = MeasureSettings(bootstrap=3, exact_budget=10, permutations=200)  # p-values sampled, not exact
+    svd = PpmiSvdSettings(dim=50)
+    alone = measure(demo_ws, {"gazette_outlet": tests["gazette_outlet"]}, "ppmi-svd", [herald], model_settings=svd,
+                    settings=settings).summary
+    together = measure(demo_ws, {"control_groups": tests["control_groups"], "gazette_outlet": tests["gazette_outlet"]},
+                       "ppmi-svd", [gazette, herald], model_settings=svd, settings=settings).summary
+    cols = ["effect_size", "p_value", "ci_low", "ci_high", "gap_ci_low", "gap_ci_high"]
+    a = alone.set_index(["test", "slice"]).loc[("gazette_outlet", "source=Herald"), cols]
+    b = together.set_index(["test", "slice"]).loc[("gazette_outlet", "source=Herald"), cols]
+    assert alone.loc[0, "p_method"] != "exact" and a.tolist() == b.tolist()

@@ -11,6 +11,7 @@ sizes show which words carry a result.
 from __future__ import annotations
 
 import dataclasses
+import hashlib
 import logging
 
 import numpy as np
@@ -101,6 +102,13 @@ def log_odds_ratio(c: Counts, word: str, a_words: list[str], b_words: list[str])
             "lor_ci_high": lor + Z95 * se, "lor_zero_cell_corrected": corrected}
 
 
+def _stream(seed: int, *names: str) -> np.random.Generator:
+    """A random stream of its own for each named step (a slice's bootstrap, a test's permutations in a
+    slice), so that adding a test or a slice leaves every other result as it was."""
+    keys = [int.from_bytes(hashlib.sha256(n.encode("utf-8")).digest()[:8], "little") for n in names]
+    return np.random.default_rng([seed, *keys])
+
+
 def _bootstrap_weights(sl: Slice, rng: np.random.Generator) -> np.ndarray:
     """Multinomial resample of the slice's documents: how often each is drawn, times its weight."""
     members = np.flatnonzero(sl.weights > 0)
@@ -131,7 +139,6 @@ def measure(ws, tests: dict[str, AssociationTest], model: str, slices: list[Slic
     """
     if model_settings is None:
         model_settings = PpmiSvdSettings() if model == "ppmi-svd" else Word2VecSettings()
-    rng = np.random.default_rng(settings.seed)
     rows, word_rows, loo_rows, rep_rows = [], [], [], []
     # trained models slice by slice, then the outside vectors if given: side by side in one table
     for sl in list(slices) + ([None] if vectors is not None else []):
@@ -139,7 +146,8 @@ def measure(ws, tests: dict[str, AssociationTest], model: str, slices: list[Slic
         c = count_slice(ws, sl.weights, counts, slice_name=sl.name) if sl is not None else None
         embs = _embeddings(ws, sl, c, model, counts, model_settings, settings) if sl is not None else [vectors]
         model_name = model if sl is not None else "external"
-        boot = _bootstrap(ws, sl, c, tests, model, counts, model_settings, settings, embs[0], rng, progress) \
+        boot = _bootstrap(ws, sl, c, tests, model, counts, model_settings, settings, embs[0],
+                          _stream(settings.seed, "bootstrap", sl.name), progress) \
             if sl is not None and settings.bootstrap > 0 else {}
         ppmi = ppmi_matrix(c.matrix, alpha=settings.alpha).tocsr() if c is not None else None
         for name, (ds, gaps) in boot.items():
@@ -163,7 +171,8 @@ def measure(ws, tests: dict[str, AssociationTest], model: str, slices: list[Slic
             if reason:
                 rows.append({**base, "measured": False, "reason": reason})
                 continue
-            one = _measure_one(test, wsets, embs, c, ppmi, boot.get(test.name), settings, rng)
+            one = _measure_one(test, wsets, embs, c, ppmi, boot.get(test.name), settings,
+                               _stream(settings.seed, "permutations", slice_name, test.name))
             row_warning = warning
             if one.get("n_bootstrap") and not (one["gap_ci_low"] <= one["gap"] <= one["gap_ci_high"]):
                 row_warning = "; ".join(filter(None, [warning, OUTSIDE_INTERVAL]))
