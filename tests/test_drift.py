@@ -4,6 +4,7 @@ import json
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import pytest
 from click.testing import CliRunner
 from scipy.linalg import orthogonal_procrustes
@@ -12,7 +13,7 @@ from tracer.cli import cli
 from tracer.corpus.ingest import ingest
 from tracer.corpus.slices import slices_by
 from tracer.corpus.workspace import Workspace
-from tracer.drift import aligned, drift, procrustes_rotation, reweight_to, source_shares, word_drift
+from tracer.drift import aligned, drift, drift_tests, procrustes_rotation, reweight_to, source_shares, word_drift
 from tracer.embed.ppmi_svd import PpmiSvdSettings
 from tracer.embed.vectors import Embedding
 from tracer.measure import MeasureSettings
@@ -45,6 +46,16 @@ def drifts(demo_ws):
     periods = slices_by(demo_ws, "time:10y")
     return {name: drift(demo_ws, TESTS[name], "ppmi-svd", periods, settings=MeasureSettings(bootstrap=5))
             for name in ("rise_and_fall", "tribune_mix")}
+
+
+def test_several_tests_at_once_give_what_each_gives_alone(demo_ws, drifts):
+    together = drift_tests(demo_ws, {n: TESTS[n] for n in drifts}, "ppmi-svd", slices_by(demo_ws, "time:10y"),
+                           settings=MeasureSettings(bootstrap=5))
+    for name, alone in drifts.items():
+        both = together[name]
+        for part in ("periods", "changes", "source_parts"):
+            pd.testing.assert_frame_equal(getattr(both, part), getattr(alone, part))
+        assert both.trend == alone.trend and both.notes == alone.notes
 
 
 def test_rise_and_fall_peaks_inside_the_planted_peak(drifts):

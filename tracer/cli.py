@@ -720,7 +720,7 @@ def drift(ctx, workspace, tests_file, test_names, words, by, window, min_count, 
     import pandas as pd
 
     from .corpus.slices import slices_by
-    from .drift import drift as run_drift, word_drift
+    from .drift import drift_tests, word_drift
     from .embed.ppmi_svd import PpmiSvdSettings
     from .errors import InputError
     from .measure import MeasureSettings
@@ -745,9 +745,10 @@ def drift(ctx, workspace, tests_file, test_names, words, by, window, min_count, 
     tests = _load_tests(tests_file, test_names)
     chosen = list(tests.values()) if test_names else [t for t in tests.values() if t.two_target]
     settings = MeasureSettings(bootstrap=bootstrap, seed=0 if seed is None else seed, alpha=alpha)
-    results = [run_drift(ws, t, model, periods, counts, _model_settings(model, dim, seed, eig_power, alpha, shift,
-                                                                          cbow, negative, epochs, workers),
-                         settings, min_tokens=min_tokens, progress=_progress(ctx)) for t in chosen]
+    results = list(drift_tests(ws, {t.name: t for t in chosen}, model, periods, counts,
+                               _model_settings(model, dim, seed, eig_power, alpha, shift, cbow, negative, epochs,
+                                               workers),
+                               settings, min_tokens=min_tokens, progress=_progress(ctx)).values())
     if fmt == "json":
         doc = [{"test": r.test, "model": r.model, "periods": to_records(r.periods), "trend": r.trend,
                 "changes": to_records(r.changes), "source_shares": to_records(r.source_parts), "notes": r.notes}

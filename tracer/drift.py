@@ -87,14 +87,32 @@ def drift(ws, test: AssociationTest, model: str, periods: list[Slice], counts: C
           model_settings=None, settings: MeasureSettings = MeasureSettings(bootstrap=20), *,
           min_tokens: int = DEFAULT_MIN_TOKENS, progress: bool = False) -> DriftResult:
     """Trajectory, trend and decomposition of one two-target test over consecutive periods."""
-    if not test.two_target:
-        raise SettingError(f"test {test.name} has one target set; drift takes two-target tests")
+    return drift_tests(ws, {test.name: test}, model, periods, counts, model_settings, settings,
+                       min_tokens=min_tokens, progress=progress)[test.name]
+
+
+def drift_tests(ws, tests: dict[str, AssociationTest], model: str, periods: list[Slice],
+                counts: CountSettings = CountSettings(), model_settings=None,
+                settings: MeasureSettings = MeasureSettings(bootstrap=20), *, min_tokens: int = DEFAULT_MIN_TOKENS,
+                progress: bool = False) -> dict[str, DriftResult]:
+    """:func:`drift` of several tests, by name: each period's models, bootstrap replicates and
+    reweighted counterparts are made once for all of them (the results are those of one test at
+    a time: every test and slice draws from its own random stream)."""
+    for test in tests.values():
+        if not test.two_target:
+            raise SettingError(f"test {test.name} has one target set; drift takes two-target tests")
     if len(periods) < 2:
         raise SettingError("drift needs at least two periods (e.g. --by time:10y)")
-    notes = []
     usable = [p for p in periods if p.n_tokens >= min_tokens]
-    res = measure(ws, {test.name: test}, model, usable, counts, model_settings, settings, progress=progress)
-    by_name = res.summary.set_index("slice")
+    res = measure(ws, tests, model, usable, counts, model_settings, settings, progress=progress)
+    shared = _Reweighted(ws, tests, model, counts, model_settings, settings)
+    return {name: _one_drift(ws, test, model, periods, res, shared, min_tokens) for name, test in tests.items()}
+
+
+def _one_drift(ws, test, model, periods, res, shared, min_tokens) -> DriftResult:
+    notes = []
+    summary = res.summary[res.summary["test"] == test.name]
+    by_name = summary.set_index("slice")
     rows = []
     for p in periods:
         base = {"period": p.name, "tokens": p.n_tokens, "documents": p.n_documents}
@@ -108,7 +126,8 @@ def drift(ws, test: AssociationTest, model: str, periods: list[Slice], counts: C
                      "gap_ci_high": r.gap_ci_high, "dropped_words": r.dropped_words})
     table = pd.DataFrame(rows, columns=["period", "measured", "reason", "effect_size", "ci_low", "ci_high", "gap",
                                         "gap_ci_low", "gap_ci_high", "tokens", "documents", "dropped_words"])
-    reps = {name: g.sort_values("replicate")["gap"].to_numpy() for name, g in res.replicates.groupby("slice")}
+    replicates = res.replicates[res.replicates["test"] == test.name]
+    reps = {name: g.sort_values("replicate")["gap"].to_numpy() for name, g in replicates.groupby("slice")}
     measured = [p for p in periods if table.set_index("period").loc[p.name, "measured"]]
     sig = {}
     for a, b in zip(measured[:-1], measured[1:]):
@@ -118,7 +137,7 @@ def drift(ws, test: AssociationTest, model: str, periods: list[Slice], counts: C
             sig[b.name] = bool(lo > 0 or hi < 0)
     table["change_significant"] = table["period"].map(sig)
     trend = _trend(table[table["measured"] == True], reps)  # noqa: E712 - a column of bools
-    changes, parts = _decompose(ws, test, model, measured, table, counts, model_settings, settings, notes)
+    changes, parts = _decompose(ws, test, measured, table, shared, notes)
     return DriftResult(test.name, model, table, trend, changes, parts, notes)
 
 
@@ -142,18 +161,49 @@ def _trend(measured: pd.DataFrame, reps: dict) -> dict:
             "tau": float(tau.statistic), "periods_used": len(measured)}
 
 
-def _decompose(ws, test, model, measured, table, counts, model_settings, settings, notes):
+class _Reweighted:
+    """The later period of each pair reweighted to the earlier one's source mix: measured for every
+    test, and counted and factorised for the per-source split, once per pair."""
+
+    def __init__(self, ws, tests, model, counts, model_settings, settings: MeasureSettings):
+        self.ws, self.tests, self.model, self.counts = ws, tests, model, counts
+        self.model_settings = model_settings
+        self.svd = model_settings if isinstance(model_settings, PpmiSvdSettings) else PpmiSvdSettings(
+            dim=getattr(model_settings, "dim", 100))
+        self.one = MeasureSettings(min_words=settings.min_words, bootstrap=0, seeds=settings.seeds,
+                                   permutations=settings.permutations, exact_budget=settings.exact_budget,
+                                   seed=settings.seed, alpha=settings.alpha)
+        self._pairs: dict = {}
+        self._models: dict = {}
+
+    def pair(self, a: Slice, b: Slice):
+        """(the reweighted slice, sources only in b, sources only in a, its measure summary by test)."""
+        if (a.name, b.name) not in self._pairs:
+            rw, only_b, only_a = reweight_to(self.ws, b, a)
+            summary = measure(self.ws, self.tests, self.model, [rw], self.counts, self.model_settings,
+                              self.one).summary.set_index("test")
+            self._pairs[a.name, b.name] = (rw, only_b, only_a, summary)
+        return self._pairs[a.name, b.name]
+
+    def counts_and_model(self, period: Slice):
+        """The PPMI-SVD counts and model of a period (for trace's machinery), made once."""
+        from .cooccur import count_slice
+        from .embed.train import embedding_from_counts
+        if period.name not in self._models:
+            c = count_slice(self.ws, period.weights, self.counts, slice_name=period.name)
+            self._models[period.name] = (c, embedding_from_counts(self.ws, period, c, self.svd))
+        return self._models[period.name]
+
+
+def _decompose(ws, test, measured, table, shared: _Reweighted, notes):
     gaps = table.set_index("period")["gap"]
     rows, parts = [], []
     pairs = list(zip(measured[:-1], measured[1:]))
     if len(measured) > 2:
         pairs.append((measured[0], measured[-1]))
-    one = MeasureSettings(min_words=settings.min_words, bootstrap=0, seeds=settings.seeds,
-                          permutations=settings.permutations, exact_budget=settings.exact_budget,
-                          seed=settings.seed, alpha=settings.alpha)
     for a, b in pairs:
-        rw, only_b, only_a = reweight_to(ws, b, a)
-        r = measure(ws, {test.name: test}, model, [rw], counts, model_settings, one).summary.iloc[0]
+        rw, only_b, only_a, summary = shared.pair(a, b)
+        r = summary.loc[test.name]
         total = float(gaps[b.name] - gaps[a.name])
         within = float(r.gap - gaps[a.name]) if r.measured else float("nan")
         mix = total - within
@@ -165,7 +215,7 @@ def _decompose(ws, test, model, measured, table, counts, model_settings, setting
             notes.append(f"{a.name} -> {b.name}: sources in one period only: "
                          + ", ".join([f"{s} ({a.name})" for s in only_a] + [f"{s} ({b.name})" for s in only_b]))
         sa, sb = source_shares(ws, a.weights), source_shares(ws, b.weights)
-        within_by_source = _within_by_source(ws, test, a, rw, counts, model_settings) if r.measured else {}
+        within_by_source = _within_by_source(ws, test, a, rw, shared) if r.measured else {}
         for s in sorted(set(sa.index) | set(sb.index)):
             parts.append({"from": a.name, "to": b.name, "source": s, "share_from": float(sa.get(s, 0.0)),
                           "share_to": float(sb.get(s, 0.0)), "within_contribution": within_by_source.get(s)})
@@ -174,7 +224,7 @@ def _decompose(ws, test, model, measured, table, counts, model_settings, setting
             pd.DataFrame(parts, columns=["from", "to", "source", "share_from", "share_to", "within_contribution"]))
 
 
-def _within_by_source(ws, test, earlier: Slice, reweighted: Slice, counts, model_settings) -> dict:
+def _within_by_source(ws, test, earlier: Slice, reweighted: Slice, shared: _Reweighted) -> dict:
     """Each source's share of the within-source change, with trace's machinery on the difference.
 
     within = gap(later, reweighted) - gap(earlier). Without source s in both periods it would be
@@ -182,16 +232,12 @@ def _within_by_source(ws, test, earlier: Slice, reweighted: Slice, counts, model
     exactly on the probe rows with the period's subspace held fixed (an estimate, like trace's).
     """
     from .attribute import Attribution
-    from .cooccur import count_slice
-    from .embed.train import embedding_from_counts
 
-    svd = model_settings if isinstance(model_settings, PpmiSvdSettings) else PpmiSvdSettings(
-        dim=getattr(model_settings, "dim", 100))
+    svd = shared.svd
     src = ws.documents["source"].to_numpy()
     attrs = []
     for period in (earlier, reweighted):
-        c = count_slice(ws, period.weights, counts, slice_name=period.name)
-        emb = embedding_from_counts(ws, period, c, svd)
+        c, emb = shared.counts_and_model(period)
         attrs.append(Attribution(ws, period.weights, c, emb, test, alpha=svd.alpha, shift=svd.shift,
                                  eig_power=svd.eig_power))
     early, late = attrs

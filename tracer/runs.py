@@ -47,7 +47,7 @@ class RunResult:
 def run_experiment(exp: Experiment, *, progress: bool = False, say: Callable[[str], None] = lambda s: None,
                    command: str = "") -> RunResult:
     """Ingest (if needed), measure, trace, drift; store every table; render the report."""
-    from .drift import drift, word_drift
+    from .drift import drift_tests, word_drift
     from .report.html import save_figures, write_report
     from .trace import TraceSettings, trace
 
@@ -101,17 +101,19 @@ def run_experiment(exp: Experiment, *, progress: bool = False, say: Callable[[st
                                                                      spearman_rho=v.spearman_rho,
                                                                      sign_agreement=v.sign_agreement)
             timings[f"trace {name}"] = time.perf_counter() - t0
-        for name, test in select_tests(tests, list(exp.drift_tests), exp.tests_file).items() if exp.drift_tests else []:
+        if exp.drift_tests:
+            chosen = select_tests(tests, list(exp.drift_tests), exp.tests_file)
             t0 = time.perf_counter()
-            say(f"drift of {name} by {exp.drift_by}")
-            d = drift(ws, test, "ppmi-svd", slices_by(ws, exp.drift_by), exp.counts, exp.ppmi_svd,
-                      MeasureSettings(bootstrap=exp.drift_bootstrap, seed=exp.seed, min_words=exp.min_words,
-                                      alpha=exp.ppmi_svd.alpha), progress=progress)
-            tables[f"drift_{name}_periods"] = d.periods
-            tables[f"drift_{name}_trend"] = pd.DataFrame([d.trend])
-            tables[f"drift_{name}_changes"] = d.changes
-            tables[f"drift_{name}_sources"] = d.source_parts
-            timings[f"drift {name}"] = time.perf_counter() - t0
+            say(f"drift of {', '.join(chosen)} by {exp.drift_by}")
+            drifts = drift_tests(ws, chosen, "ppmi-svd", slices_by(ws, exp.drift_by), exp.counts, exp.ppmi_svd,
+                                 MeasureSettings(bootstrap=exp.drift_bootstrap, seed=exp.seed, min_words=exp.min_words,
+                                                 alpha=exp.ppmi_svd.alpha), progress=progress)
+            for name, d in drifts.items():
+                tables[f"drift_{name}_periods"] = d.periods
+                tables[f"drift_{name}_trend"] = pd.DataFrame([d.trend])
+                tables[f"drift_{name}_changes"] = d.changes
+                tables[f"drift_{name}_sources"] = d.source_parts
+            timings["drift"] = time.perf_counter() - t0
         if exp.drift_words:
             change, near, _ = word_drift(ws, list(exp.drift_words), slices_by(ws, exp.drift_by), exp.counts,
                                          exp.ppmi_svd)
