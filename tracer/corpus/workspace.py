@@ -104,7 +104,7 @@ class Workspace:
         if cache not in (False, True, "read"):
             raise ValueError(f"cache must be False, True or 'read'; got {cache!r}")
         from ..cache import ResultCache
-        self.cache = ResultCache(self.path / "cache", write=cache is True) if cache else None
+        self.cache = ResultCache(self.path / "cache", write=cache != "read") if cache else None
         current = self.path / CURRENT_FILE
         if not current.is_file():
             raise WorkspaceNotFound(
