@@ -4,8 +4,8 @@ Key: the corpus hash, the document weights, the counting settings, the vocabular
 given (if any), the model settings and the versions of tracer, numpy and scipy (an
 entry made by another version, whose counting or SVD may differ, is never reused).
 Only slices (weights of 0 and 1) are cached: bootstrap replicates and reweighted
-periods are made once and thrown away. Entries
-are written atomically (a temporary folder renamed into place) and never pickled.
+periods are made once and thrown away. Entries are written atomically (a temporary
+folder renamed into place) and never pickled.
 """
 
 from __future__ import annotations
