@@ -11,9 +11,9 @@ tier 2: one pass over the probe words' positions, one over the tokens), (b) the 
 (c) retraining PPMI-SVD without each source in turn and re-measuring. All start from the
 slice's counts and model, which every approach needs (trace reads them from the
 workspace cache, as it does inside ``tracer run``). The "per round" column gives the
-lowest and highest ratio of single rounds: this machine's timings move by 2x. Also prints how well the source
-estimates agree with the retrained changes, and what scoring every document by retraining
-would cost at the measured rate (an extrapolation, marked as one).
+lowest and highest ratio of single rounds: this machine's timings move by 2x. Also prints
+how well the source estimates agree with the retrained changes, and what scoring every
+document by retraining would cost at the measured rate (an extrapolation, marked as one).
 
 The demo's vocabulary is small (about 500 words), so a retrain there costs a fraction
 of a second. ``--zipf-tokens N`` repeats the comparison on a workspace made from the

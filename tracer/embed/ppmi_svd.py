@@ -8,6 +8,7 @@ sign is fixed so that the largest entry of its left vector is positive.
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 import functools
 
@@ -43,17 +44,25 @@ def _blas_controller() -> ThreadpoolController:
     return ThreadpoolController()
 
 
-def one_blas_thread():
-    """A context in which BLAS and LAPACK run on one thread.
+# Below this many rows the SVD routines run BLAS on one thread (see blas_threads_for).
+ONE_BLAS_THREAD_BELOW = 5_000
 
-    The SVD routines below make many BLAS calls on blocks of a few hundred columns.
-    On the 2-core machines this was measured on, a second BLAS thread never paid
-    for its synchronisation there: subspace iteration of 500-5,000 words ran 2x
-    faster on one thread (about even at 10,000-20,000), ARPACK was even within
-    the noise from 2,000 to 20,000 words, and the demo used 59 s of CPU for 35 s
-    of wall time on two threads against 34 s for 32 s on one. Many-core machines
-    were not measured.
+
+def blas_threads_for(n_rows: int):
+    """A context for the SVD routines' BLAS calls on a matrix of ``n_rows`` rows: one thread below
+    ``ONE_BLAS_THREAD_BELOW``, the libraries' own setting above.
+
+    The routines make many BLAS calls on blocks of about a hundred columns. On the 2-core
+    machines this was measured on (Householder QR, medians of noisy runs), a second
+    OpenBLAS thread cost more in synchronisation than it saved on small matrices:
+    subspace iteration on 493 rows took 0.04-0.05 s on one thread and 0.09-0.12 s on two,
+    was even at 2,000-5,000 rows, and was faster on two threads at 10,000 (1.4-2.3 s
+    against 2.1-3.4 s); ARPACK was even within the noise up to 5,000 rows and about 10%
+    faster on two threads at 10,000. The demo used 59 s of CPU for 35 s of wall time on
+    two threads against 34 s for 32 s on one. Many-core machines were not measured.
     """
+    if n_rows >= ONE_BLAS_THREAD_BELOW:
+        return contextlib.nullcontext()
     return _blas_controller().limit(limits=1, user_api="blas")
 
 
@@ -71,7 +80,7 @@ def truncated_svd(matrix, k: int, seed: int = 0) -> tuple[np.ndarray, np.ndarray
         raise SettingError(f"dim {k} is too large for a vocabulary of {n} words; use a dim below {n}")
     rng = np.random.default_rng(seed)
     v0 = rng.standard_normal(n)
-    with one_blas_thread():
+    with blas_threads_for(matrix.shape[0]):
         u, s, vt = svds(sp.csr_array(matrix, dtype=np.float64), k=k, v0=v0, solver="arpack")
     order = np.argsort(-s, kind="stable")
     u, s, vt = u[:, order], s[order], vt[order]
@@ -102,7 +111,7 @@ def warm_truncated_svd(matrix, k: int, start: np.ndarray, *, n_iter: int = 4, ov
     m = sp.csr_array(matrix, dtype=np.float64)
     rng = np.random.default_rng(seed)
     extra = rng.standard_normal((m.shape[1], oversample))
-    with one_blas_thread():
+    with blas_threads_for(m.shape[0]):
         q, _ = np.linalg.qr(m @ np.hstack([start, extra]))
         for _ in range(n_iter):
             z, _ = np.linalg.qr(m.T @ q)
