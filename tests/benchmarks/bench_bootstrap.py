@@ -26,14 +26,15 @@ ROOT = Path(__file__).resolve().parents[2]
 
 
 def main():
-    from tracer.associate import unit_rows, weat
-    from tracer.cooccur import CountSettings, count_slice
+    from tracer.core.association import unit_rows, weat
+    from tracer.core.counting import CountSettings
+    from tracer.provenance.counts import count_slice
     from tracer.corpus.ingest import ingest
     from tracer.corpus.slices import slice_from_spec
     from tracer.corpus.workspace import Workspace
-    from tracer.embed.ppmi_svd import PpmiSvdSettings, ppmi_svd_vectors, ppmi_svd_vectors_warm
-    from tracer.measure import _bootstrap_weights
-    from tracer.tests_file import load_tests
+    from tracer.core.ppmi_svd import PpmiSvdSettings, ppmi_svd_vectors, ppmi_svd_vectors_warm
+    from tracer.analysis.measure import _bootstrap_weights
+    from tracer.provenance.specs import load_tests
 
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--replicates", type=int, default=20)
@@ -86,9 +87,9 @@ def zipf(args):
     import subprocess
     import sys
 
-    from tracer.cooccur import CountSettings, build_vocab, count_matrix
-    from tracer.embed.ppmi_svd import truncated_svd, warm_truncated_svd
-    from tracer.pmi import ppmi_matrix
+    from tracer.core.counting import CountSettings, build_vocab, count_matrix
+    from tracer.core.ppmi_svd import truncated_svd, warm_truncated_svd
+    from tracer.core.pmi import ppmi_matrix
 
     data = ROOT / "bench-data" / f"zipf-{args.zipf_tokens}"
     if not (data / "tokens.npy").is_file():

@@ -54,7 +54,7 @@ def ensure_inputs(cache: Path, n_tokens: int) -> tuple[Path, Path]:
 # ---- one measurement per process ------------------------------------------------------------
 
 def child_tracer(data: str, vocab_size: int, window: int, workers: int, symmetric: bool) -> dict:
-    from tracer.cooccur import CountSettings, ModelVocab, build_vocab, count_matrix
+    from tracer.core.counting import CountSettings, ModelVocab, build_vocab, count_matrix
     # loaded into memory first, as the C reference does before its clock starts
     tokens = np.load(Path(data) / "tokens.npy")
     offsets = np.append(np.load(Path(data) / "doc_offsets.npy"), len(tokens))
@@ -161,7 +161,7 @@ def compacted_copy(data: Path, vocab_size: int) -> Path:
 
 
 def check_counts(binary: Path, data: Path, vocab_size: int, window: int) -> dict:
-    from tracer.cooccur import CountSettings, build_vocab, count_matrix
+    from tracer.core.counting import CountSettings, build_vocab, count_matrix
     compact = compacted_copy(data, vocab_size)
     ref = run_c(binary, compact, vocab_size, window)
     tokens = np.load(compact / "tokens.npy")

@@ -44,16 +44,18 @@ ROOT = Path(__file__).resolve().parents[2]
 def main():
     from scipy import stats
 
-    from tracer.associate import weat
-    from tracer.attribute import Attribution
-    from tracer.cooccur import CountSettings, count_slice
+    from tracer.core.association import weat
+    from tracer.analysis.influence import Attribution
+    from tracer.core.counting import CountSettings
+    from tracer.provenance.counts import count_slice
     from tracer.corpus.ingest import ingest
     from tracer.corpus.slices import Slice, slice_from_spec
     from tracer.corpus.workspace import Workspace
-    from tracer.embed.ppmi_svd import PpmiSvdSettings
-    from tracer.embed.train import embedding_from_counts, train_embedding
-    from tracer.tests_file import load_tests
-    from tracer.trace import TraceSettings, trace
+    from tracer.provenance.cache import open_workspace
+    from tracer.core.ppmi_svd import PpmiSvdSettings
+    from tracer.provenance.models import embedding_from_counts, train_embedding
+    from tracer.provenance.specs import load_tests
+    from tracer.analysis.trace import TraceSettings, trace
 
     ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     ap.add_argument("--test", default="gazette_outlet")
@@ -66,7 +68,7 @@ def main():
     args = ap.parse_args()
     with tempfile.TemporaryDirectory() as tmp:
         if args.zipf_tokens:
-            from tracer.tests_file import AssociationTest
+            from tracer.core.association import AssociationTest
             corpus = zipf_corpus(Path(tmp), args.zipf_tokens)
             words = [f"w{i}" for i in range(100, 132)]
             test = AssociationTest("zipf", tuple(words[:6]), tuple(words[6:12]), tuple(words[12:22]),
@@ -86,7 +88,7 @@ def main():
         ws = Workspace(Path(tmp) / "ws")
         # trace reads the slice's counts and model from the workspace cache, as it does inside
         # ``tracer run``; the retrains use a workspace without the cache, so each one really retrains
-        cached = Workspace(Path(tmp) / "ws", cache=True)
+        cached = open_workspace(Path(tmp) / "ws", cache=True)
         sl = slice_from_spec(ws, args.slice)
         settings = PpmiSvdSettings(dim=args.dim)
         counts = CountSettings(max_vocab=args.max_vocab)

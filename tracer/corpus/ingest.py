@@ -23,14 +23,14 @@ from typing import Iterable
 import numpy as np
 from tqdm.auto import tqdm
 
-from .. import __version__
-from ..errors import InputError, WorkspaceError
-from .readers import RawRecord, Reject, detect_format, read_records
-from .timeparse import TimeParseError, parse_time
-from .tokenize import Tokenizer, TokenizerSettings
-from .workspace import (CURRENT_FILE, DB_FILE, MANIFEST_FILE, OFFSETS_FILE, POSTINGS_POS_FILE,
-                        POSTINGS_PTR_FILE, REJECTS_FILE, TOKENS_FILE, VOCAB_FILE, Workspace,
-                        write_atomic)
+from tracer.errors import InputError, WorkspaceError
+from tracer.files import write_atomic
+from tracer.versions import package_versions
+from tracer.corpus.readers import RawRecord, Reject, detect_format, read_records
+from tracer.corpus.timeparse import TimeParseError, parse_time
+from tracer.corpus.tokenize import Tokenizer, TokenizerSettings
+from tracer.corpus.workspace import (CURRENT_FILE, DB_FILE, MANIFEST_FILE, OFFSETS_FILE, POSTINGS_POS_FILE,
+                        POSTINGS_PTR_FILE, REJECTS_FILE, TOKENS_FILE, VOCAB_FILE, Workspace)
 
 FORMAT_VERSION = 1
 _FLUSH_TOKENS = 1 << 20
@@ -113,16 +113,6 @@ def hash_input(path: Path) -> str:
             for block in iter(lambda: f.read(1 << 20), b""):
                 h.update(block)
     return h.hexdigest()
-
-
-def package_versions() -> dict[str, str]:
-    import gensim
-    import nltk
-    import numba
-    import scipy
-    return {"tracer": __version__, "python": sys.version.split()[0], "numpy": np.__version__,
-            "scipy": scipy.__version__, "nltk": nltk.__version__, "gensim": gensim.__version__,
-            "numba": numba.__version__}
 
 
 class _Validator:

@@ -17,7 +17,7 @@ import os
 from pathlib import Path
 from typing import Iterator
 
-from ..errors import InputError
+from tracer.errors import InputError
 
 FORMATS = ("jsonl", "csv", "txt", "parquet")
 

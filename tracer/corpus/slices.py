@@ -17,8 +17,8 @@ import re
 
 import numpy as np
 
-from ..errors import SliceError
-from .workspace import Workspace
+from tracer.errors import SliceError
+from tracer.corpus.workspace import Workspace
 
 _TIME_BY = re.compile(r"^time:(\d+)y$")
 _RANGE = re.compile(r"^(-?\d+)(?:\.\.(-?\d+))?$")

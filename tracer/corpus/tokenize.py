@@ -14,7 +14,7 @@ import unicodedata
 
 from nltk.tokenize import RegexpTokenizer
 
-from ..errors import SettingError
+from tracer.errors import SettingError
 
 DEFAULT_PATTERN = r"\w+(?:[-']\w+)*"
 NORMALIZATION_FORMS = ("NFC", "NFKC", "NFD", "NFKD", "none")

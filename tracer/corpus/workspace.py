@@ -30,8 +30,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ..errors import WordNotInVocabulary, WorkspaceError, WorkspaceNotFound
-from .tokenize import Tokenizer, TokenizerSettings
+from tracer.errors import WordNotInVocabulary, WorkspaceError, WorkspaceNotFound
+from tracer.corpus.tokenize import Tokenizer, TokenizerSettings
 
 TOKENS_FILE = "tokens.u32"
 OFFSETS_FILE = "doc_offsets.i64"
@@ -45,18 +45,6 @@ REJECTS_FILE = "rejects.jsonl"
 
 DOCUMENT_COLUMNS = ("doc_index", "doc_id", "source", "time", "year", "time_value", "title",
                     "n_tokens", "token_start")
-
-
-def write_atomic(path: Path, data: bytes | str) -> None:
-    """Write a file through a temporary name and a rename, so readers never see half of it."""
-    path = Path(path)
-    tmp = path.with_name(path.name + ".tmp")
-    mode = "wb" if isinstance(data, bytes) else "w"
-    with open(tmp, mode, **({} if isinstance(data, bytes) else {"encoding": "utf-8"})) as f:
-        f.write(data)
-        f.flush()
-        os.fsync(f.fileno())
-    os.replace(tmp, path)
 
 
 @dataclasses.dataclass(frozen=True)
@@ -94,17 +82,13 @@ class Workspace:
 
     Open with ``Workspace(path)``; raises :class:`WorkspaceNotFound` if no corpus
     was ingested there. Writing is done by :func:`tracer.corpus.ingest.ingest`.
-    ``Workspace(path, cache=True)`` reuses counts and models of slices made before
-    and keeps new ones (see :mod:`tracer.cache`); ``tracer run`` opens workspaces that
-    way. ``cache="read"`` reuses them and keeps nothing new: the other commands.
+    ``cache`` is a :class:`tracer.provenance.cache.ResultCache` or None; open a
+    workspace with its cache through :func:`tracer.provenance.cache.open_workspace`.
     """
 
-    def __init__(self, path: str | os.PathLike, *, cache: bool | str = False):
+    def __init__(self, path: str | os.PathLike, *, cache=None):
         self.path = Path(path)
-        if cache not in (False, True, "read"):
-            raise ValueError(f"cache must be False, True or 'read'; got {cache!r}")
-        from ..cache import ResultCache
-        self.cache = ResultCache(self.path / "cache", write=cache != "read") if cache else None
+        self.cache = cache
         current = self.path / CURRENT_FILE
         if not current.is_file():
             raise WorkspaceNotFound(

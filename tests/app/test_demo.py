@@ -1,0 +1,116 @@
+"""The demo archive holds what corpora_demo/README.md says was planted, and the demo runs end to end."""
+
+import csv
+import importlib.util
+from pathlib import Path
+
+import numpy as np
+from click.testing import CliRunner
+
+from tracer.app.cli import cli
+from tracer.core.counting import CountSettings
+from tracer.provenance.counts import count_slice
+from tracer.corpus.slices import slice_from_spec
+from tracer.app.demo import run_demo
+from tracer.provenance.models import load_embedding
+from tracer.corpus.workspace import Workspace
+
+DEMO = Path(__file__).resolve().parents[2] / "corpora_demo"
+_spec = importlib.util.spec_from_file_location("gen", DEMO / "generate_demo_corpus.py")
+gen = importlib.util.module_from_spec(_spec)
+_spec.loader.exec_module(gen)
+
+
+def block(counts, rows, cols):
+    idx = counts.vocab.index
+    r = [idx[w] for w in rows if w in idx]
+    c = [idx[w] for w in cols if w in idx]
+    return float(counts.matrix[np.ix_(r, c)].sum())
+
+
+def ratio_of_weights(ws, weights, group_a, group_b, attr_a, attr_b):
+    """(a with attr_a + b with attr_b) / (a with attr_b + b with attr_a): 1 means no association."""
+    c = count_slice(ws, weights, CountSettings())
+    aligned = block(c, gen.GROUPS[group_a], attr_a) + block(c, gen.GROUPS[group_b], attr_b)
+    crossed = block(c, gen.GROUPS[group_a], attr_b) + block(c, gen.GROUPS[group_b], attr_a)
+    return aligned / crossed
+
+
+def ratio(ws, slice_spec, *groups_and_attrs):
+    return ratio_of_weights(ws, slice_from_spec(ws, slice_spec).weights, *groups_and_attrs)
+
+
+def test_outlet_only_association_is_in_the_gazette_only(demo_ws):
+    assert ratio(demo_ws, "source=Gazette", "velmari", "osterin", gen.UNPLEASANT, gen.PLEASANT) > 5
+    for outlet in ("Ledger", "Courier", "Tribune", "Herald"):
+        assert 0.6 < ratio(demo_ws, f"source={outlet}", "velmari", "osterin", gen.UNPLEASANT, gen.PLEASANT) < 1.6
+
+
+def test_rise_and_fall_peaks_in_the_1980s(demo_ws):
+    r = {d: ratio(demo_ws, f"time={d}..{d + 9}", "dranik", "coravel", gen.CAREER, gen.FAMILY)
+         for d in range(1950, 2020, 10)}
+    assert max(r, key=r.get) in (1970, 1980)
+    assert r[1980] > 5 and r[1950] < 1.6 and r[2010] < 1.6
+
+
+def test_mix_only_change_is_constant_inside_the_tribune(demo_ws):
+    docs = demo_ws.documents
+    tribune = docs["source"].to_numpy() == "Tribune"
+    years = docs["year"].to_numpy(dtype=float)
+    early, late = (years < 1970), (years >= 2000)
+    args = ("halvin", "morrowick", gen.WEALTH, gen.POVERTY)
+    inside_early = ratio_of_weights(demo_ws, (tribune & early).astype(float), *args)
+    inside_late = ratio_of_weights(demo_ws, (tribune & late).astype(float), *args)
+    assert inside_early > 5 and inside_late > 5
+    assert 0.5 < inside_late / inside_early < 2  # steady inside the outlet (planted at one rate)
+    whole_early = ratio_of_weights(demo_ws, early.astype(float), *args)
+    whole_late = ratio_of_weights(demo_ws, late.astype(float), *args)
+    assert whole_late > whole_early * 1.5  # but growing in the archive as the Tribune's share grows
+
+
+def test_planted_documents_file_matches_the_archive(demo_ws):
+    with open(DEMO / "planted_documents.csv", encoding="utf-8") as f:
+        rows = list(csv.DictReader(f))
+    ids = set(demo_ws.documents["doc_id"])
+    assert all(r["doc_id"] in ids for r in rows)
+    gazette = {r["doc_id"] for r in rows if r["association"] == "outlet_gazette"}
+    assert len(gazette) == 411 and all(d.startswith("gazette-") for d in gazette)
+
+
+def test_generator_is_deterministic(tmp_path):
+    gen_a, _ = gen.generate(1950)
+    import gzip
+    import json
+    stored = [json.loads(line) for line in gzip.open(DEMO / "archive.jsonl.gz", "rt", encoding="utf-8")]
+    assert gen_a == stored
+
+
+def test_demo_runs_end_to_end_and_leaves_a_usable_workspace(tmp_path):
+    result = run_demo(tmp_path / "demo")
+    assert "Demo archive: 7000 documents" in result.text
+    assert f"Wrote the workspace to {tmp_path / 'demo'}" in result.text
+    assert "not proof of discrimination" in result.text
+    assert "Trace of gazette_outlet: the source that carries it most is Gazette" in result.text
+    assert (result.run_folder / "report.html").is_file()
+    ws = Workspace(tmp_path / "demo")
+    sea = set(gen.TOPICS["sea"]["nouns"])
+    for model in ("ppmi-svd", "word2vec"):
+        emb = load_embedding(ws, model, "all")
+        near = [w for w, _ in emb.neighbours("harbour", 6)]
+        assert len(sea.intersection(near)) >= 4, (model, near)  # topic words neighbour topic words
+    info = CliRunner().invoke(cli, ["info", "-w", str(tmp_path / "demo"), "--format", "json"])
+    assert info.exit_code == 0 and '"documents": 7000' in info.stdout
+
+
+def test_wide_variant_adds_topic_words_and_no_probe_words():
+    # the wide variant (trace benchmark) must not put a group or attribute word into a topic,
+    # which would plant an association nobody wrote down
+    probe = set(sum(gen.GROUPS.values(), [])) | set(gen.PLEASANT + gen.UNPLEASANT + gen.CAREER + gen.FAMILY
+                                                    + gen.WEALTH + gen.POVERTY) | set(gen.OCCUPATIONS)
+    extra = {w for table in gen.WIDE_EXTRA.values() for words in table.values() for w in words}
+    assert not extra & probe
+    topics, outlet_topics = gen.topic_tables("wide")
+    assert set(topics) == set(outlet_topics["Gazette"]) and len(extra) > 600
+    docs, planted = gen.generate(5, docs_per_year=3, vocabulary="wide")
+    words = set(" ".join(d["text"] for d in docs).lower().replace(".", " ").split())
+    assert len(words & extra) > 300 and planted

@@ -1,0 +1,45 @@
+import numpy as np
+import pytest
+import scipy.sparse as sp
+
+from tracer.core.counting import CountSettings
+from tracer.corpus.slices import slice_from_spec
+from tracer.core.ppmi_svd import PpmiSvdSettings, truncated_svd
+from tracer.provenance.models import train_embedding
+from tracer.errors import SettingError
+
+
+def test_truncated_svd_equals_numpy_full_svd():
+    rng = np.random.default_rng(7)
+    m = sp.random(60, 40, density=0.3, random_state=1, format="csr") + sp.diags(np.linspace(5, 1, 40), shape=(60, 40))
+    dense = m.toarray()
+    u, s, vt = truncated_svd(m, 8, seed=3)
+    U, S, Vt = np.linalg.svd(dense, full_matrices=False)
+    np.testing.assert_allclose(s, S[:8], rtol=1e-8)
+    # singular vectors agree up to sign; the reconstruction has no sign ambiguity
+    np.testing.assert_allclose(np.abs(np.sum(u * U[:, :8], axis=0)), 1, atol=1e-6)
+    np.testing.assert_allclose(u @ np.diag(s) @ vt, U[:, :8] @ np.diag(S[:8]) @ Vt[:8], atol=1e-8)
+    # fixed sign rule: the largest entry of each left vector is positive
+    assert np.all(u[np.argmax(np.abs(u), axis=0), np.arange(8)] > 0)
+    del rng
+
+
+def test_dim_too_large_is_refused():
+    with pytest.raises(SettingError, match="dim 10 is too large for a vocabulary of 10 words"):
+        truncated_svd(sp.eye(10, format="csr"), 10)
+
+
+def test_ppmi_svd_is_deterministic_and_meaningful(lee_ws):
+    sl = slice_from_spec(lee_ws, "all")
+    a = train_embedding(lee_ws, sl, "ppmi-svd", CountSettings(), PpmiSvdSettings(dim=50), save=False)
+    b = train_embedding(lee_ws, sl, "ppmi-svd", CountSettings(), PpmiSvdSettings(dim=50), save=False)
+    np.testing.assert_array_equal(a.vectors, b.vectors)
+    assert a.vectors.shape == (len(a.words), 50)
+    assert a.card["model"] == "ppmi-svd" and a.card["corpus_hash"] == lee_ws.corpus_hash
+    assert a.extras["singular_values"].shape == (50,)
+
+
+def test_slice_too_small_for_dim(lee_ws):
+    sl = slice_from_spec(lee_ws, "time=1990")
+    with pytest.raises(SettingError, match=r"slice time=1990 has \d+ words at min count 5; --dim 5000 must be below"):
+        train_embedding(lee_ws, sl, "ppmi-svd", CountSettings(), PpmiSvdSettings(dim=5000), save=False)

@@ -1,0 +1,313 @@
+"""Measure association tests per model and slice, with intervals that reflect the corpus.
+
+For every test, model and slice: the WEAT effect size and its permutation
+p-value, the same test on PMI rows (first order, no embedding), a document
+bootstrap interval (documents resampled as weights, models retrained), and for
+word2vec the spread across seeds. Per word: the association score, RIPA, and
+the PMI log odds ratio with its analytic interval. Leave-one-word-out effect
+sizes show which words carry a result.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import logging
+
+import numpy as np
+import pandas as pd
+from tqdm.auto import tqdm
+
+from tracer.core.association import (DEFAULT_EXACT_BUDGET, DEFAULT_MIN_WORDS, DEFAULT_PERMUTATIONS, STD_CONVENTION,
+                        association_scores, effect_size, permutation_p_value, ripa_direction, unit_rows, weat, word_sets)
+from tracer.core.counting import CountSettings, Counts
+from tracer.provenance.counts import count_slice
+from tracer.corpus.slices import Slice
+from tracer.core.ppmi_svd import PpmiSvdSettings, ppmi_svd_vectors_warm
+from tracer.provenance.models import embedding_from_counts, train_embedding
+from tracer.core.embedding import Embedding
+from tracer.core.word2vec import Word2VecSettings
+from tracer.errors import SettingError
+from tracer.core.pmi import ppmi_matrix
+from tracer.core.association import AssociationTest
+
+log = logging.getLogger(__name__)
+
+SMALL_SLICE_TOKENS = 100_000
+OUTSIDE_INTERVAL = ("the estimate lies outside its bootstrap interval: a replicate holds about 63% distinct "
+                    "documents, and embeddings of less text give smaller cosine gaps, so replicates run low; "
+                    "read the interval's width, not its position")
+Z95 = 1.959963984540054  # standard normal 97.5% quantile
+
+
+@dataclasses.dataclass(frozen=True)
+class MeasureSettings:
+    """How tests are measured (see the module docstring)."""
+
+    min_words: int = DEFAULT_MIN_WORDS
+    bootstrap: int = 0
+    seeds: int = 1
+    permutations: int = DEFAULT_PERMUTATIONS
+    exact_budget: int = DEFAULT_EXACT_BUDGET
+    seed: int = 0
+    alpha: float = 0.75
+
+    def __post_init__(self):
+        for name in ("min_words", "seeds"):
+            if getattr(self, name) < 1:
+                raise SettingError(f"{name} must be >= 1; got {getattr(self, name)}")
+        if self.bootstrap < 0:
+            raise SettingError(f"bootstrap must be >= 0; got {self.bootstrap}")
+
+
+@dataclasses.dataclass(frozen=True)
+class MeasureResult:
+    """Four tables; see :func:`measure` for their columns."""
+
+    summary: pd.DataFrame
+    words: pd.DataFrame
+    leave_one_out: pd.DataFrame
+    replicates: pd.DataFrame
+
+
+def _pmi_scores(c: Counts, ppmi, rows_t, rows_a, rows_b) -> np.ndarray:
+    """First-order association: mean PPMI with the a words minus mean PPMI with the b words."""
+    sub = ppmi[rows_t]
+    return (np.asarray(sub[:, rows_a].sum(axis=1)).ravel() / len(rows_a)
+            - np.asarray(sub[:, rows_b].sum(axis=1)).ravel() / len(rows_b))
+
+
+def log_odds_ratio(c: Counts, word: str, a_words: list[str], b_words: list[str]) -> dict:
+    """PMI difference of ``word`` towards the pooled a and b words, as a log odds ratio.
+
+    Table: [C(w, A), C(w, B); C(A) - C(w, A), C(B) - C(w, B)] with C(A) the summed
+    marginals of the a words. log OR = log(n11 n22 / (n12 n21)); the Woolf interval
+    uses SE = sqrt(sum 1/n); a zero cell adds 0.5 to every cell (Haldane-Anscombe).
+    """
+    idx = c.vocab.index
+    i = idx[word]
+    ra = [idx[w] for w in a_words]
+    rb = [idx[w] for w in b_words]
+    row = c.matrix[[i]]
+    n11 = float(row[:, ra].sum())
+    n12 = float(row[:, rb].sum())
+    n21 = float(c.row_sums[ra].sum()) - n11
+    n22 = float(c.row_sums[rb].sum()) - n12
+    cells = np.array([n11, n12, n21, n22])
+    corrected = bool((cells == 0).any())
+    if corrected:
+        cells = cells + 0.5
+    lor = float(np.log(cells[0] * cells[3] / (cells[1] * cells[2])))
+    se = float(np.sqrt((1.0 / cells).sum()))
+    return {"count_a": n11, "count_b": n12, "log_odds_ratio": lor, "lor_ci_low": lor - Z95 * se,
+            "lor_ci_high": lor + Z95 * se, "lor_zero_cell_corrected": corrected}
+
+
+def _stream(seed: int, *names: str) -> np.random.Generator:
+    """A random stream of its own for each named step (a slice's bootstrap, a test's permutations in a
+    slice), so that adding a test or a slice leaves every other result as it was."""
+    keys = [int.from_bytes(hashlib.sha256(n.encode("utf-8")).digest()[:8], "little") for n in names]
+    return np.random.default_rng([seed, *keys])
+
+
+def _bootstrap_weights(sl: Slice, rng: np.random.Generator) -> np.ndarray:
+    """Multinomial resample of the slice's documents: how often each is drawn, times its weight."""
+    members = np.flatnonzero(sl.weights > 0)
+    w = np.zeros_like(sl.weights)
+    w[members] = rng.multinomial(len(members), np.full(len(members), 1.0 / len(members))) * sl.weights[members]
+    return w
+
+
+def measure(ws, tests: dict[str, AssociationTest], model: str, slices: list[Slice],
+            counts: CountSettings = CountSettings(), model_settings=None,
+            settings: MeasureSettings = MeasureSettings(), *, vectors: Embedding | None = None,
+            progress: bool = False) -> MeasureResult:
+    """Measure every test on every slice with one model, and on ``vectors`` trained elsewhere if given.
+
+    Returns
+    -------
+    MeasureResult
+        ``summary``: one row per test, model and slice with test, kind, model, slice, measured,
+        reason, effect_size, gap (mean s over x minus over y, undivided), statistic, p_value,
+        p_method, n_partitions, ci_low, ci_high, gap_ci_low, gap_ci_high, n_bootstrap, seeds,
+        effect_size_seed_sd, pmi_effect_size, pmi_p_value, mean_score (one-target tests),
+        n_targets_x, n_targets_y, n_attributes_a, n_attributes_b, dropped_words, slice_tokens,
+        warning, std_convention.
+        ``words``: one row per target word: test, model, slice, word, set, score, ripa, pmi_score,
+        count_a, count_b, log_odds_ratio, lor_ci_low, lor_ci_high, lor_zero_cell_corrected.
+        ``leave_one_out``: test, model, slice, left_out, set, effect_size, change.
+        ``replicates``: the bootstrap distribution itself: test, model, slice, replicate, effect_size, gap.
+    """
+    if model_settings is None:
+        model_settings = PpmiSvdSettings() if model == "ppmi-svd" else Word2VecSettings()
+    rows, word_rows, loo_rows, rep_rows = [], [], [], []
+    # trained models slice by slice, then the outside vectors if given: side by side in one table
+    for sl in list(slices) + ([None] if vectors is not None else []):
+        slice_name = sl.name if sl is not None else "external"
+        c = count_slice(ws, sl.weights, counts, slice_name=sl.name) if sl is not None else None
+        embs = _embeddings(ws, sl, c, model, counts, model_settings, settings) if sl is not None else [vectors]
+        model_name = model if sl is not None else "external"
+        boot = _bootstrap(ws, sl, c, tests, model, counts, model_settings, settings, embs[0],
+                          _stream(settings.seed, "bootstrap", sl.name), progress) \
+            if sl is not None and settings.bootstrap > 0 else {}
+        ppmi = ppmi_matrix(c.matrix, alpha=settings.alpha).tocsr() if c is not None else None
+        for name, (ds, gaps) in boot.items():
+            rep_rows.extend({"test": name, "model": model, "slice": slice_name, "replicate": k, "effect_size": d,
+                             "gap": g} for k, (d, g) in enumerate(zip(ds, gaps)))
+        warning = ""
+        if sl is not None and sl.n_tokens < SMALL_SLICE_TOKENS:
+            warning = (f"slice {sl.name} has {sl.n_tokens} tokens, fewer than {SMALL_SLICE_TOKENS}: embeddings of so little "
+                       "text are unstable; read the interval, not the point estimate")
+        for test in tests.values():
+            base = {"test": test.name, "kind": "two-target" if test.two_target else "one-target",
+                    "model": model_name, "slice": slice_name, "slice_tokens": sl.n_tokens if sl else None,
+                    "std_convention": STD_CONVENTION, "warning": warning, "seeds": len(embs)}
+            known = set(embs[0].index)
+            if c is not None:
+                known &= set(c.vocab.index)
+            wsets = word_sets(test, known)
+            base.update(n_targets_x=len(wsets.x), n_targets_y=len(wsets.y) if test.two_target else None,
+                        n_attributes_a=len(wsets.a), n_attributes_b=len(wsets.b), dropped_words=wsets.dropped)
+            reason = wsets.reason_not_measured(test.two_target, settings.min_words)
+            if reason:
+                rows.append({**base, "measured": False, "reason": reason})
+                continue
+            one = _measure_one(test, wsets, embs, c, ppmi, boot.get(test.name), settings,
+                               _stream(settings.seed, "permutations", slice_name, test.name))
+            row_warning = warning
+            if one.get("n_bootstrap") and not (one["gap_ci_low"] <= one["gap"] <= one["gap_ci_high"]):
+                row_warning = "; ".join(filter(None, [warning, OUTSIDE_INTERVAL]))
+            rows.append({**base, "warning": row_warning, "measured": True, "reason": "", **one})
+            word_rows.extend({"test": test.name, "model": model_name, "slice": slice_name, **r}
+                             for r in _word_table(test, wsets, embs[0], c, ppmi))
+            loo_rows.extend({"test": test.name, "model": model_name, "slice": slice_name, **r}
+                            for r in _leave_one_out(test, wsets, embs, rows[-1]))
+    summary = pd.DataFrame(rows, columns=SUMMARY_COLUMNS)
+    return MeasureResult(summary, pd.DataFrame(word_rows, columns=WORD_COLUMNS),
+                         pd.DataFrame(loo_rows, columns=LOO_COLUMNS),
+                         pd.DataFrame(rep_rows, columns=["test", "model", "slice", "replicate", "effect_size", "gap"]))
+
+
+SUMMARY_COLUMNS = ["test", "kind", "model", "slice", "measured", "reason", "effect_size", "gap", "statistic",
+                   "p_value", "p_method", "n_partitions", "ci_low", "ci_high", "gap_ci_low", "gap_ci_high",
+                   "n_bootstrap", "seeds", "effect_size_seed_sd", "pmi_effect_size", "pmi_p_value", "mean_score",
+                   "n_targets_x", "n_targets_y", "n_attributes_a", "n_attributes_b", "dropped_words",
+                   "slice_tokens", "warning", "std_convention"]
+WORD_COLUMNS = ["test", "model", "slice", "word", "set", "score", "ripa", "pmi_score", "count_a", "count_b",
+                "log_odds_ratio", "lor_ci_low", "lor_ci_high", "lor_zero_cell_corrected"]
+LOO_COLUMNS = ["test", "model", "slice", "left_out", "set", "effect_size", "change"]
+
+
+def _embeddings(ws, sl, c, model, counts, model_settings, settings) -> list[Embedding]:
+    if model == "ppmi-svd":
+        return [embedding_from_counts(ws, sl, c, model_settings)]
+    return [train_embedding(ws, sl, model, counts, dataclasses.replace(model_settings, seed=model_settings.seed + k),
+                            save=False) for k in range(settings.seeds)]
+
+
+def _rows(index, words):
+    return np.array([index[w] for w in words], dtype=np.int64)
+
+
+def _measure_one(test, wsets, embs, c, ppmi, boot, settings, rng) -> dict:
+    out: dict = {}
+    if test.two_target:
+        results = [weat(unit_rows(e.vectors), e.index, test, rng=rng, exact_budget=settings.exact_budget,
+                        n_resamples=settings.permutations) for e in embs]
+        ds = np.array([r.effect_size for r in results])
+        out.update(effect_size=float(ds.mean()), gap=float(np.mean([r.gap for r in results])),
+                   statistic=float(np.mean([r.statistic for r in results])),
+                   # with several seeds the largest p-value is reported (the cautious choice)
+                   p_value=float(max(r.p_value for r in results)), p_method=results[0].p_method,
+                   n_partitions=results[0].n_partitions,
+                   effect_size_seed_sd=float(ds.std(ddof=1)) if len(ds) > 1 else None)
+        if c is not None:
+            idx = c.vocab.index
+            px = _pmi_scores(c, ppmi, _rows(idx, wsets.x), _rows(idx, wsets.a), _rows(idx, wsets.b))
+            py = _pmi_scores(c, ppmi, _rows(idx, wsets.y), _rows(idx, wsets.a), _rows(idx, wsets.b))
+            perm = permutation_p_value(px, py, exact_budget=settings.exact_budget, n_resamples=settings.permutations,
+                                       rng=rng)
+            out.update(pmi_effect_size=effect_size(px, py), pmi_p_value=perm.p_value)
+        if boot is not None:
+            d, gap = boot
+            out.update(ci_low=float(np.percentile(d, 2.5)), ci_high=float(np.percentile(d, 97.5)),
+                       gap_ci_low=float(np.percentile(gap, 2.5)), gap_ci_high=float(np.percentile(gap, 97.5)),
+                       n_bootstrap=len(d))
+        else:
+            out.update(n_bootstrap=0)
+    else:
+        e = embs[0]
+        scores = association_scores(unit_rows(e.vectors), _rows(e.index, wsets.x), _rows(e.index, wsets.a),
+                                    _rows(e.index, wsets.b))
+        out.update(mean_score=float(scores.mean()), n_bootstrap=0)
+    return out
+
+
+def _word_table(test, wsets, emb, c, ppmi) -> list[dict]:
+    unit = unit_rows(emb.vectors)
+    ra, rb = _rows(emb.index, wsets.a), _rows(emb.index, wsets.b)
+    direction = ripa_direction(emb, test.attribute_pairs)
+    out = []
+    for set_name, words in (("x", wsets.x), ("y", wsets.y)):
+        if not words:
+            continue
+        scores = association_scores(unit, _rows(emb.index, words), ra, rb)
+        for k, w in enumerate(words):
+            row = {"word": w, "set": set_name, "score": float(scores[k]),
+                   "ripa": float(emb.vector(w).astype(np.float64) @ direction) if direction is not None else None}
+            if c is not None:
+                idx = c.vocab.index
+                row["pmi_score"] = float(_pmi_scores(c, ppmi, _rows(idx, [w]), _rows(idx, wsets.a),
+                                                     _rows(idx, wsets.b))[0])
+                row.update(log_odds_ratio(c, w, wsets.a, wsets.b))
+            out.append(row)
+    return out
+
+
+def _leave_one_out(test, wsets, embs, summary_row) -> list[dict]:
+    """Effect size with each target or attribute word left out (two-target tests)."""
+    if not test.two_target:
+        return []
+    out = []
+    full = summary_row["effect_size"]
+    units = [unit_rows(e.vectors) for e in embs]
+    for set_name in ("x", "y", "a", "b"):
+        words = getattr(wsets, set_name)
+        if len(words) < 2:
+            continue
+        for w in words:
+            sets = {k: [v for v in getattr(wsets, k) if not (k == set_name and v == w)] for k in ("x", "y", "a", "b")}
+            ds = []
+            for e, unit in zip(embs, units):
+                rows = {k: _rows(e.index, v) for k, v in sets.items()}
+                ds.append(effect_size(association_scores(unit, rows["x"], rows["a"], rows["b"]),
+                                      association_scores(unit, rows["y"], rows["a"], rows["b"])))
+            d = float(np.mean(ds))
+            out.append({"left_out": w, "set": set_name, "effect_size": d, "change": d - full})
+    return out
+
+
+def _bootstrap(ws, sl, c, tests, model, counts, model_settings, settings, emb, rng, progress) -> dict:
+    """Effect sizes and gaps of every two-target test over document-bootstrap replicates."""
+    known = set(emb.index) & set(c.vocab.index)
+    two = [t for t in tests.values()
+           if t.two_target and word_sets(t, known).reason_not_measured(True, settings.min_words) is None]
+    if not two:
+        return {}
+    d = {t.name: [] for t in two}
+    gaps = {t.name: [] for t in two}
+    for _ in tqdm(range(settings.bootstrap), desc=f"bootstrap {sl.name}", disable=not progress, leave=False):
+        w = _bootstrap_weights(sl, rng)
+        if model == "ppmi-svd":
+            rc = count_slice(ws, w, counts, slice_name=sl.name, vocab=c.vocab)
+            reps = [Embedding(emb.words, ppmi_svd_vectors_warm(rc.matrix, model_settings,
+                                                               emb.extras["context_vectors"].astype(np.float64)),
+                              emb.card)]
+        else:
+            reps = [train_embedding(ws, sl, model, counts, dataclasses.replace(model_settings, seed=model_settings.seed + k),
+                                    weights=w, save=False) for k in range(settings.seeds)]
+        for t in two:
+            rs = [weat(unit_rows(e.vectors), e.index, t, with_p=False) for e in reps]
+            d[t.name].append(float(np.nanmean([r.effect_size for r in rs])))
+            gaps[t.name].append(float(np.mean([r.gap for r in rs])))
+    return {name: (np.array(d[name]), np.array(gaps[name])) for name in d}

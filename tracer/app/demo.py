@@ -1,0 +1,98 @@
+"""The demo: ``tracer run`` on the bundled demo experiment, plus stored models to explore afterwards."""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import time
+from pathlib import Path
+from typing import Callable
+
+import pandas as pd
+
+from tracer.errors import InputError
+from tracer.app.output import render
+from tracer.provenance.vectors_io import write_word2vec_format
+
+ROOT = Path(__file__).resolve().parents[2]
+DEMO_CORPUS = ROOT / "corpora_demo" / "archive.jsonl.gz"
+DEMO_EXPERIMENT = ROOT / "configs" / "demo.toml"
+
+
+@dataclasses.dataclass(frozen=True)
+class DemoResult:
+    workspace: Path
+    run_folder: Path
+    text: str
+    seconds: float
+
+
+def _table(folder: Path, name: str) -> pd.DataFrame:
+    return pd.DataFrame(json.loads((folder / "tables" / f"{name}.json").read_text(encoding="utf-8")))
+
+
+def run_demo(workspace: str | Path, *, progress: bool = False,
+             say: Callable[[str], None] = lambda s: None) -> DemoResult:
+    """Run the demo experiment with its workspace in ``workspace``; return a printable account."""
+    from tracer.provenance.experiment import load_experiment
+    from tracer.corpus.slices import slice_from_spec
+    from tracer.corpus.workspace import Workspace
+    from tracer.provenance.models import train_embedding
+    from tracer.core.word2vec import Word2VecSettings
+    from tracer.app.pipeline import run_experiment
+
+    if not DEMO_CORPUS.is_file() or not DEMO_EXPERIMENT.is_file():
+        raise InputError(f"the demo files are missing ({DEMO_CORPUS}, {DEMO_EXPERIMENT}); run tracer from a source "
+                         "checkout installed with  pip install -e .")
+    t0 = time.perf_counter()
+    workspace = Path(workspace).resolve()
+    exp = dataclasses.replace(load_experiment(DEMO_EXPERIMENT), workspace=workspace)
+    result = run_experiment(exp, progress=progress, say=say, command=f"tracer demo -w {workspace}")
+    ws = Workspace(workspace)
+    say("storing PPMI-SVD and word2vec models of the whole archive for tracer neighbours and export")
+    whole = slice_from_spec(ws, "all")
+    ppmi = train_embedding(ws, whole, "ppmi-svd", exp.counts, exp.ppmi_svd, progress=progress)
+    w2v = train_embedding(ws, whole, "word2vec", exp.counts, Word2VecSettings(dim=100, workers=2), progress=progress)
+    export_path = workspace / "exports" / "ppmi-svd-all.txt"
+    export_path.parent.mkdir(exist_ok=True)
+    write_word2vec_format(ppmi, export_path)
+
+    folder = result.folder
+    s = ws.summary()
+    out = [f"Demo archive: {s['documents']} documents, {s['tokens']} tokens, {s['sources']} outlets, "
+           f"{s['first_year']}-{s['last_year']} (invented; corpora_demo/README.md says what was planted).\n\n"]
+    m = _table(folder, "measure")
+    shown = m[(m.slice.isin(["all", "source=Gazette", "source=Tribune", "time=1980..1989"])) & (m.kind == "two-target")]
+    out.append("Effect sizes (WEAT d, population sd; bootstrap interval) in a few slices:\n")
+    out.append(render(shown[["test", "slice", "effect_size", "ci_low", "ci_high", "p_value", "gap"]]) + "\n")
+    for name in exp.trace_tests:
+        src = _table(folder, f"trace_{name}_sources")
+        ver = _table(folder, f"trace_{name}_verification")
+        out.append(f"Trace of {name}: the source that carries it most is {src.source.iloc[0]} "
+                   f"({src.token_share.iloc[0]:.0%} of the tokens); predicted vs retrained change, "
+                   f"Pearson r {ver.pearson_r.iloc[0]:.3f} over {len(ver)} retrains.\n")
+    for name in exp.drift_tests:
+        trend = _table(folder, f"drift_{name}_trend").iloc[0]
+        ch = _table(folder, f"drift_{name}_changes")
+        overall = ch[ch.overall.astype(bool)].iloc[0] if ch.overall.astype(bool).any() else None
+        line = f"Drift of {name}: gap slope {trend.slope:+.3f} per decade (Kendall p {trend.p_value:.3g})"
+        if overall is not None:
+            line += (f"; first to last period {overall.total:+.3f}, of which the mix of sources "
+                     f"{overall.mix_part:+.3f} and change within the sources {overall.within_part:+.3f}")
+        out.append(line + ".\n")
+    out.append("\nNearest neighbours (whole archive):\n")
+    for word in ("harbour", "wheat", "nurse"):
+        for name, emb in (("ppmi-svd", ppmi), ("word2vec", w2v)):
+            out.append(f"  {word:8s} {name:9s} {', '.join(w for w, _ in emb.neighbours(word, 6))}\n")
+    seconds = time.perf_counter() - t0
+    out.append(
+        f"\nWrote the workspace to {workspace}: run {result.run_id} in {folder} "
+        f"(report {folder / 'report.html'}, tables in {folder / 'tables'}), models in {ws.models_dir}, "
+        f"and {export_path} in word2vec text format.\n"
+        f"Try:  tracer info -w {workspace} --sources\n"
+        f"      tracer trace -w {workspace} --tests {DEMO_EXPERIMENT.parent / 'demo_tests.toml'} --test gazette_outlet\n"
+        f"      tracer neighbours -w {workspace} captain,harvest --model word2vec\n"
+        f"Done in {seconds:.1f} s.\n"
+        "Caution: these are invented data; an association in an embedding is not proof of discrimination, "
+        "word lists encode choices, and small corpora give unstable numbers.\n")
+    return DemoResult(workspace, folder, "".join(out), seconds)

@@ -1,0 +1,41 @@
+"""Counting a workspace's documents under weights, through the workspace's cache."""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+
+from tracer.core.counting import Counts, CountSettings, ModelVocab, build_vocab, count_matrix
+from tracer.errors import SliceError
+from tracer.provenance.cache import cacheable
+
+
+def count_slice(ws, weights: np.ndarray, settings: CountSettings, *, slice_name: str = "custom",
+                vocab: ModelVocab | None = None, workers: int | None = None,
+                progress: bool = False) -> Counts:
+    """Count a workspace under document weights (a slice's, a resample's, a reweighting's).
+
+    The vocabulary is built from the documents of nonzero weight unless given,
+    so resamples of one slice can share the slice's vocabulary.
+    """
+    cache = getattr(ws, "cache", None)
+    key = None
+    if cache is not None and cacheable(weights):
+        key = cache.key(ws.corpus_hash, weights, "counts", settings.to_dict(),
+                        None if vocab is None else vocab.ids.tolist())
+        hit = cache.get_counts(key)
+        if hit is not None:
+            return dataclasses.replace(hit, slice_name=slice_name)
+    words = ws.vocab.words
+    if vocab is None:
+        try:
+            vocab = build_vocab(ws.tokens, ws.doc_offsets, weights, words, settings)
+        except SliceError as e:
+            raise SliceError(f"slice {slice_name}: {e}") from None
+    matrix = count_matrix(ws.tokens, ws.doc_offsets, weights, vocab, len(words), settings,
+                          workers=workers, progress=progress)
+    counts = Counts(matrix, vocab, settings, slice_name)
+    if key is not None:
+        cache.put_counts(key, counts)
+    return counts
