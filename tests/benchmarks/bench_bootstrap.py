@@ -8,7 +8,7 @@ Both arms get the same resampled document weights and the same counts; the table
 shows the time of the SVD step (and of the whole replicate), their ratio, and the
 largest difference in effect size between the arms over every two-target test of
 configs/demo_tests.toml. The demo's vocabulary is small (about 500 words), where
-ARPACK is already fast; ``--zipf-tokens`` adds a larger vocabulary from the shared
+ARPACK is already fast; ``--zipf-tokens`` adds a larger vocabulary from the
 Zipf corpus (no word lists there, so the table gives the largest relative error
 of the singular values instead of the effect size).
 """
@@ -93,7 +93,7 @@ def zipf(args):
 
     data = ROOT / "bench-data" / f"zipf-{args.zipf_tokens}"
     if not (data / "tokens.npy").is_file():
-        subprocess.run([sys.executable, str(ROOT.parent / "shared" / "bench" / "gen_zipf_corpus.py"), "--outdir",
+        subprocess.run([sys.executable, str(Path(__file__).resolve().parent / "reference" / "gen_zipf_corpus.py"), "--outdir",
                         str(data), "--tokens", str(args.zipf_tokens)], check=True, stdout=subprocess.DEVNULL)
     tokens = np.load(data / "tokens.npy")
     offsets = np.append(np.load(data / "doc_offsets.npy"), len(tokens))

@@ -13,8 +13,9 @@ default 5 s): on these virtual machines memory a process frees goes back to the
 host within about two seconds, and touching it again is then several times
 slower than counting (a fresh 350 MB array takes about 1 s to fill, a reused one
 0.03 s). Without the pause, whichever counter runs just after a large one gets
-cheap memory, and the order of the rows decides the ratios. The corpus comes from ../shared/bench/gen_zipf_corpus.py and the
-C counter from ../shared/bench/cooc_ref.c (built here into the cache folder).
+cheap memory, and the order of the rows decides the ratios. The corpus comes from
+reference/gen_zipf_corpus.py beside this file and the C counter from reference/cooc_ref.c (built with
+``cc`` into the cache folder: no other toolchain is needed).
 
 Counting rules: the C reference skips out-of-vocabulary tokens in place, tracer
 removes them before windowing. Speed is compared on the same corpus as is; the
@@ -35,7 +36,7 @@ from pathlib import Path
 import numpy as np
 
 ROOT = Path(__file__).resolve().parents[2]
-SHARED = ROOT.parent / "shared" / "bench"
+REFERENCE = Path(__file__).resolve().parent / "reference"
 PY = sys.executable
 
 
@@ -43,11 +44,11 @@ def ensure_inputs(cache: Path, n_tokens: int) -> tuple[Path, Path]:
     cache.mkdir(parents=True, exist_ok=True)
     data = cache / f"zipf-{n_tokens}"
     if not (data / "tokens.npy").is_file():
-        subprocess.run([PY, str(SHARED / "gen_zipf_corpus.py"), "--outdir", str(data), "--tokens", str(n_tokens)],
+        subprocess.run([PY, str(REFERENCE / "gen_zipf_corpus.py"), "--outdir", str(data), "--tokens", str(n_tokens)],
                        check=True, stdout=subprocess.DEVNULL)
     binary = cache / "cooc_ref"
     if not binary.is_file():
-        subprocess.run(["cc", "-O3", "-march=native", "-o", str(binary), str(SHARED / "cooc_ref.c")], check=True)
+        subprocess.run(["cc", "-O3", "-march=native", "-o", str(binary), str(REFERENCE / "cooc_ref.c")], check=True)
     return data, binary
 
 

@@ -20,7 +20,7 @@ document by retraining would cost at the measured rate (an extrapolation, marked
 
 The demo's vocabulary is small (about 500 words), so a retrain there costs a fraction
 of a second. ``--zipf-tokens N`` repeats the comparison on a workspace made from the
-first N tokens of the shared Zipf corpus (five invented sources, documents dealt
+first N tokens of the Zipf corpus of reference/gen_zipf_corpus.py (five invented sources, documents dealt
 round-robin; word sets of mid-frequency words), where the SVD dominates a retrain as it
 does on real corpora. The agreement figure means little there (nothing is planted).
 ``--wide-demo`` uses the demo generator's wide variant: the same design and seed in about
@@ -160,13 +160,13 @@ def main():
 
 
 def zipf_corpus(folder: Path, n_tokens: int) -> Path:
-    """The first ``n_tokens`` of the shared Zipf corpus as JSONL, documents dealt to five sources."""
+    """The first ``n_tokens`` of the Zipf corpus of reference/gen_zipf_corpus.py as JSONL, documents dealt to five sources."""
     import json
     import subprocess
     import sys
     data = ROOT / "bench-data" / "zipf-20000000"
     if not (data / "tokens.npy").is_file():
-        subprocess.run([sys.executable, str(ROOT.parent / "shared" / "bench" / "gen_zipf_corpus.py"), "--outdir",
+        subprocess.run([sys.executable, str(Path(__file__).resolve().parent / "reference" / "gen_zipf_corpus.py"), "--outdir",
                         str(data)], check=True, stdout=subprocess.DEVNULL)
     tokens = np.load(data / "tokens.npy", mmap_mode="r")
     offsets = np.load(data / "doc_offsets.npy")
