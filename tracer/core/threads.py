@@ -49,13 +49,14 @@ _PLAIN_PAGES_FROM = 1 << 22
 def big_empty(n: int, dtype) -> np.ndarray:
     """An uninitialised 1-d array for the counter's large arrays, in ordinary (not huge) pages.
 
-    numpy asks the kernel for transparent huge pages on large arrays. On the
-    virtual machines this was measured on, the first touch of such memory costs
-    3-6 times more than of ordinary pages (a fresh 350 MB array: about 1.0 s
-    against 0.2-0.7 s; the kernel compacts memory to find each 2 MB page), and
-    first touches are most of the counting time. An anonymous mapping without
-    that request avoids it; small arrays come from numpy as usual. The memory
-    is freed when the array (and every view of it) is gone.
+    numpy asks the kernel for transparent huge pages on large arrays. On virtual
+    machines the first touch of such memory can cost several times more than of
+    ordinary pages (the kernel compacts memory to find each 2 MB page), and first
+    touches are most of the counting time; the output arrays are written in order,
+    so huge pages buy them nothing. An anonymous mapping without that request
+    avoids it; small arrays come from numpy as usual. The memory is freed when the
+    array (and every view of it) is gone. ``tests/benchmarks/bench_counting.py``
+    measures the effect on the machine at hand.
     """
     dtype = np.dtype(dtype)
     nbytes = int(n) * dtype.itemsize
