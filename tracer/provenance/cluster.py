@@ -1,0 +1,97 @@
+"""Counting on a dask.distributed cluster: counts add over documents, so partitions of the
+documents are counted as separate tasks and summed on the workers.
+
+Every worker opens the workspace by its path (memory-mapped, read only), so the path must
+name the same folder on every machine of the cluster (a shared file system), as it does on
+a :class:`distributed.LocalCluster`. Connect with ``scheduler="tcp://HOST:8786"`` (an
+existing cluster's address) or pass a ``distributed.Client``. Needs the ``dask`` extra:
+``pip install 'corpus-tracer[dask]'``.
+
+With whole-number document weights (slices, bootstrap counts) the result equals the local
+count bit for bit: every cell is a sum of whole numbers, exact in float64 in any order.
+Other weights agree to rounding.
+"""
+
+from __future__ import annotations
+
+import operator
+from pathlib import Path
+
+import numpy as np
+import scipy.sparse as sp
+
+from tracer.core.counting import CountSettings, ModelVocab, build_vocab, count_matrix, split_by_tokens
+from tracer.errors import SettingError
+
+
+def _client(scheduler):
+    try:
+        from distributed import Client
+    except ImportError:
+        raise SettingError("counting on a cluster needs dask.distributed: "
+                           "pip install 'corpus-tracer[dask]'") from None
+    if isinstance(scheduler, Client):
+        return scheduler, False
+    return Client(scheduler), True
+
+
+def _count_part(ws_path: str, weights: np.ndarray, docs: np.ndarray, vocab: ModelVocab,
+                settings: CountSettings) -> sp.csr_array:
+    """One task: the count of ``docs`` (their weights kept, every other document 0)."""
+    from tracer.corpus.workspace import Workspace
+    ws = Workspace(ws_path)
+    part = np.zeros_like(weights)
+    part[docs] = weights[docs]
+    return count_matrix(ws.tokens, ws.doc_offsets, part, vocab, len(ws.vocab), settings, workers=1)
+
+
+def _tree_sum(client, futures):
+    """Sum futures pairwise on the workers, so only the total travels to the client."""
+    while len(futures) > 1:
+        paired = [client.submit(operator.add, a, b, pure=False) for a, b in zip(futures[0::2], futures[1::2])]
+        futures = paired + ([futures[-1]] if len(futures) % 2 else [])
+    return futures[0].result()
+
+
+def count_on_cluster(ws, weights: np.ndarray, settings: CountSettings, *, scheduler,
+                     vocab: ModelVocab | None = None, partition_tokens: int = 5_000_000) -> tuple[sp.csr_array, ModelVocab]:
+    """The co-occurrence matrix of ``ws`` under ``weights``, counted by document partitions on a cluster.
+
+    Parameters
+    ----------
+    ws : Workspace
+    weights : numpy.ndarray, shape (n_documents,)
+    settings : CountSettings
+    scheduler : str or distributed.Client
+        The scheduler's address, or a connected client (left open).
+    vocab : ModelVocab, optional
+        Built from the documents of nonzero weight when not given (on the client: one
+        ``bincount`` over the tokens).
+    partition_tokens : int
+        About this many tokens per task.
+
+    Returns
+    -------
+    (scipy.sparse.csr_array of float64, shape (len(vocab), len(vocab)), ModelVocab)
+    """
+    weights = np.asarray(weights, dtype=np.float64)
+    if vocab is None:
+        vocab = build_vocab(ws.tokens, ws.doc_offsets, weights, ws.vocab.words, settings)
+    docs = np.flatnonzero(weights > 0)
+    n = len(vocab)
+    if len(docs) == 0:
+        return sp.csr_array((n, n), dtype=np.float64), vocab
+    parts = split_by_tokens(ws.doc_offsets, docs, partition_tokens)
+    client, owned = _client(scheduler)
+    try:
+        path = str(Path(ws.path).resolve())
+        w_future, v_future = client.scatter([weights, vocab], broadcast=True)
+        futures = [client.submit(_count_part, path, w_future, part, v_future, settings, pure=False)
+                   for part in parts]
+        total = _tree_sum(client, futures)
+    finally:
+        if owned:
+            client.close()
+    total = sp.csr_array(total)
+    total.sort_indices()
+    return total, vocab
