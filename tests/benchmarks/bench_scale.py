@@ -1,0 +1,120 @@
+#!/usr/bin/env python3
+"""Every user step at a realistic corpus size, timed side by side with its naive alternative.
+
+    .venv/bin/python tests/benchmarks/bench_scale.py --tokens 20000000            # the normal case
+    .venv/bin/python tests/benchmarks/bench_scale.py --tokens 2000000 --skip word2vec
+
+Generates a news-like corpus (``gen_realistic_corpus.py``: invented words, five invented
+outlets, seven decades, a planted test and a control), then runs each step as a user
+would, one command in a fresh process, and prints wall time and peak memory (of that
+process and its children) beside the targets of the scale work:
+
+    ingest <= 30 s; one probe's PMI row <= 2 s; PPMI-SVD of the whole corpus <= 60 s;
+    all 7 decade models <= 3 min; measure with intervals on 13 slices <= 10 min;
+    word2vec one epoch (reported); trace with 5 verification retrains (reported)
+
+Where a step has a naive alternative in the library, both are timed in the same run and
+their ratio printed (one probe row: the counter over every pair versus the probe's
+windows only). A step that runs past ``--step-timeout`` is stopped and reported as such,
+so the benchmark always finishes. Nothing here is a pass/fail test: read the ratios.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+HERE = Path(__file__).resolve().parent
+PY = sys.executable
+TRACER = str(Path(PY).with_name("tracer"))
+
+# a child that times one command and reports its children's peak memory
+_TIMER = """
+import json, resource, subprocess, sys, time
+t = time.perf_counter()
+try:
+    rc = subprocess.run(sys.argv[2:], stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, timeout=float(sys.argv[1])).returncode
+except subprocess.TimeoutExpired:
+    rc = "timeout"
+print(json.dumps({"seconds": time.perf_counter() - t, "rc": rc,
+                  "peak_mb": resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024}))
+"""
+
+_PROBE_ROW = """
+import sys, time, numpy as np
+from tracer.corpus.workspace import Workspace
+from tracer.core.counting import CountSettings
+ws = Workspace(sys.argv[1]); word = sys.argv[3]
+w = np.ones(ws.n_documents)
+t = time.perf_counter()
+if sys.argv[2] == "rows":
+    from tracer.provenance.probe_rows import probe_rows
+    probe_rows(ws, w, CountSettings(), [word])
+else:
+    from tracer.provenance.counts import count_slice
+    count_slice(ws, w, CountSettings())
+print(time.perf_counter() - t)
+"""
+
+
+def timed(cmd: list[str], timeout: float) -> dict:
+    out = subprocess.run([PY, "-c", _TIMER, str(timeout), *cmd], capture_output=True, text=True)
+    return json.loads(out.stdout.strip().splitlines()[-1])
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--tokens", type=int, default=20_000_000)
+    ap.add_argument("--cache", type=Path, default=HERE.parents[1] / "bench-data")
+    ap.add_argument("--step-timeout", type=float, default=1800.0)
+    ap.add_argument("--skip", action="append", default=[], help="a step to leave out (repeatable)")
+    args = ap.parse_args()
+
+    data = args.cache / f"realistic-{args.tokens}"
+    if not (data / "corpus.jsonl.gz").is_file():
+        t = time.perf_counter()
+        subprocess.run([PY, str(HERE / "gen_realistic_corpus.py"), "--outdir", str(data), "--tokens", str(args.tokens)],
+                       check=True, stdout=subprocess.DEVNULL)
+        print(f"generated {args.tokens:,} tokens in {time.perf_counter() - t:.0f} s")
+    meta = json.loads((data / "meta.json").read_text(encoding="utf-8"))
+    tests = data / "tests.toml"
+    probe = "binmeth" if "binmeth" in tests.read_text(encoding="utf-8") else None
+    ws = data / f"ws-{os.getpid()}"
+    steps = [
+        ("ingest", [TRACER, "ingest", str(data / "corpus.jsonl.gz"), "-w", str(ws)], 30),
+        ("pmi (one probe)", [TRACER, "pmi", "-w", str(ws), probe or "the", "--with", "bresar"], 2),
+        ("train ppmi-svd (all)", [TRACER, "train", "-w", str(ws), "--model", "ppmi-svd"], 60),
+        ("train ppmi-svd by decade", [TRACER, "train", "-w", str(ws), "--model", "ppmi-svd", "--by", "time:10y"], 180),
+        ("word2vec, 1 epoch", [TRACER, "train", "-w", str(ws), "--model", "word2vec", "--epochs", "1"], None),
+        ("measure, 13 slices", [TRACER, "measure", "-w", str(ws), "--tests", str(tests), "--slice", "all",
+                                "--by", "time:10y", "--by", "source"], 600),
+        ("trace --verify 5", [TRACER, "trace", "-w", str(ws), "--tests", str(tests), "--test", "gazette_planted",
+                              "--slice", "all", "--verify", "5"], None),
+    ]
+    print(f"corpus: {meta['tokens']:,} tokens, {meta['documents']:,} documents, {meta['vocab']:,} Zipf types; "
+          f"2 cores; each step one command in a fresh process\n")
+    print(f"{'step':28} {'seconds':>9} {'peak MB':>9} {'target s':>9}  note")
+    for name, cmd, target in steps:
+        if any(s in name for s in args.skip):
+            continue
+        r = timed(cmd, args.step_timeout)
+        note = "" if r["rc"] == 0 else f"exit {r['rc']}"
+        print(f"{name:28} {r['seconds']:9.1f} {r['peak_mb']:9.0f} {target if target else '-':>9}  {note}", flush=True)
+        if name == "ingest" and r["rc"] != 0:
+            sys.exit("ingest failed; nothing else can run")
+    if probe and "pmi" not in args.skip:
+        full = float(subprocess.run([PY, "-c", _PROBE_ROW, str(ws), "full", probe], capture_output=True,
+                                    text=True, check=True).stdout.split()[-1])
+        rows = float(subprocess.run([PY, "-c", _PROBE_ROW, str(ws), "rows", probe], capture_output=True,
+                                    text=True, check=True).stdout.split()[-1])
+        print(f"\none probe's row, library call after loading: counting every pair {full:.2f} s, "
+              f"the probe's windows only {rows:.2f} s ({full / rows:.1f}x)")
+
+
+if __name__ == "__main__":
+    main()
