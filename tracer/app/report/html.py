@@ -51,8 +51,7 @@ TREND_COLS = [Col("slope", "gap slope per decade", "g3"), Col(("slope_ci_low", "
 PERIOD_COLS = [Col("period", "period", "id"), Col("effect_size", "d", "d"), Col(("ci_low", "ci_high"), "interval", "d"),
                Col("gap", "gap", "g3"), Col(("gap_ci_low", "gap_ci_high"), "gap interval", "g3"),
                Col("change_significant", "change from previous outside its interval", "bool"),
-               Col("tokens", "tokens", "int"), Col("documents", "documents", "int"),
-               Col("dropped_words", "dropped words", "list")]
+               Col("tokens", "tokens", "int"), Col("documents", "documents", "int")]
 CHANGE_COLS = [Col("from", "from", "id"), Col("to", "to", "id"), Col("total", "change of the gap", "g3"),
                Col("mix_part", "mix of sources", "g3"), Col("within_part", "within sources", "g3"),
                Col("mix_share", "mix share", "pct"), Col("reweighted_gap", "reweighted gap", "g3")]
@@ -120,7 +119,7 @@ def _drift(run: RunData, name: str, charts: list) -> dict:
     out.update(trajectory=_chart(charts, fig.trajectory_chart(per, name)),
                decomposition=_chart(charts, fig.decomposition_chart(ch, name)),
                trend=make_table(run.table(f"drift_{name}_trend"), TREND_COLS),
-               periods=make_table(per, PERIOD_COLS, unmeasured="effect_size"),
+               periods=make_table(per, PERIOD_COLS, notes=("dropped_words",), unmeasured="effect_size"),
                changes=make_table(changes, CHANGE_COLS, notes=("sources_in_one_period",)),
                within=make_table(within, WITHIN_COLS),
                unmeasured=int((~per["measured"].fillna(False).astype(bool)).sum()) if "measured" in per.columns else 0,

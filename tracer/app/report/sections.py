@@ -16,10 +16,9 @@ TWO_TARGET_COLS = [Col("model", "model"), Col("slice", "slice", "id"), Col("effe
                    Col(("ci_low", "ci_high"), "interval", "d"), Col("p_value", "p", "p"), Col("q_value", "q", "p"),
                    Col("gap", "gap", "g3"), Col("pmi_effect_size", "PMI d", "d"),
                    Col("n_targets_x", "targets x", "int"), Col("n_targets_y", "targets y", "int"),
-                   Col("slice_tokens", "tokens", "int"), Col("dropped_words", "dropped words", "list")]
+                   Col("slice_tokens", "tokens", "int")]
 ONE_TARGET_COLS = [Col("model", "model"), Col("slice", "slice", "id"), Col("mean_score", "mean score", "g3"),
-                   Col("n_targets_x", "words", "int"), Col("slice_tokens", "tokens", "int"),
-                   Col("dropped_words", "dropped words", "list")]
+                   Col("n_targets_x", "words", "int"), Col("slice_tokens", "tokens", "int")]
 WORD_COLS = [Col("word", "word"), Col("score", "score", "g3"), Col("pmi_score", "PMI score", "g3"),
              Col("count_a", "with attributes a", "int"), Col("count_b", "with attributes b", "int"),
              Col("log_odds_ratio", "log odds ratio", "g3"), Col(("lor_ci_low", "lor_ci_high"), "interval", "g3")]
@@ -55,7 +54,8 @@ def _one_test(run: RunData, name: str, rows: pd.DataFrame, charts: list) -> dict
             words = make_table(w[(w["test"] == name) & (w["slice"] == first)], WORD_COLS)
     return {"name": name, "anchor": anchor("test", name), "figure": chart, "words": words,
             "models": list(dict.fromkeys(rows["model"])) if "model" in rows.columns else [],
-            "table": make_table(rows, cols, unmeasured="mean_score" if one_target else "effect_size")}
+            "table": make_table(rows, cols, notes=("warning", "dropped_words"),
+                                unmeasured="mean_score" if one_target else "effect_size")}
 
 
 def measure_section(run: RunData, charts: list) -> list[dict]:

@@ -56,8 +56,8 @@ def significant(v: float, digits: int = 3) -> str:
         return "0"
     a = abs(v)
     if 1e-4 <= a < 1e6:
-        decimals = max(0, digits - 1 - math.floor(math.log10(a)))
-        return f"{v:.{decimals}f}"
+        decimals = digits - 1 - math.floor(math.log10(a))
+        return f"{v:.{decimals}f}" if decimals >= 0 else f"{round(v, decimals):.0f}"
     return f"{v:.{digits - 1}e}"
 
 
@@ -144,6 +144,8 @@ def make_table(df: pd.DataFrame | None, columns: list[Col], *, notes: tuple[str,
         mine = []
         for key in notes + (("reason",) if "reason" not in notes else ()):
             text = row.get(key)
+            if isinstance(text, (list, tuple)) and text:  # a list of words: named by its column
+                text = f"{key.replace('_', ' ')}: {', '.join(map(str, text))}"
             if isinstance(text, str) and text.strip():
                 if text not in footnotes:
                     footnotes.append(text)
