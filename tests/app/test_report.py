@@ -3,8 +3,10 @@ text, parts not measured, and the layout measured in a real browser."""
 
 import base64
 import gzip
+import html as html_text
 import importlib.util
 import json
+import re
 import shutil
 import subprocess
 from html.parser import HTMLParser
@@ -14,6 +16,7 @@ import numpy as np
 import pandas as pd
 import pytest
 from click.testing import CliRunner
+from markupsafe import escape
 from scipy import stats
 
 from tracer.app.cli import cli
@@ -220,7 +223,7 @@ def test_findings_come_first_and_name_source_verification_and_drift(run_dir):
               "within the sources" if overall.mix_share <= 1 / 3 else "both mix and sources")
     assert f"{phrase}: mix {overall.mix_part:+.2g}" in findings
     for kind in ("test", "trace", "drift"):  # every link of the findings leads to an id in the page
-        for target in set(__import__("re").findall(rf'href="#({kind}-[^"]+)"', findings)):
+        for target in set(re.findall(rf'href="#({kind}-[^"]+)"', findings)):
             assert f'id="{target}"' in html
 
 
@@ -237,12 +240,12 @@ def test_verification_states_rank_agreement_as_scipy_computes_it(run_dir):
 def test_tables_print_counts_as_integers_and_warnings_once_as_footnotes(run_dir):
     html = (run_dir / "report.html").read_text(encoding="utf-8")
     tests = _rows_of(html, "tests")
-    assert not __import__("re").search(r">\d+\.0000<", html)  # counts never as 6.0000
+    assert not re.search(r">\d+\.0000<", html)  # counts never as 6.0000
     measure = pd.DataFrame(json.loads((run_dir / "tables" / "measure.json").read_text()))
     warning = next(w for w in measure.warning if isinstance(w, str) and w)
     block = tests[tests.index("<h3", tests.index(">gazette_outlet<") - 80):]
     block = block[:block.index("<h3", 10)]
-    assert block.count(str(__import__("markupsafe").escape(warning))) <= 1
+    assert block.count(str(escape(warning))) <= 1
     assert "<th>notes</th>" in block and "ppmi-svd" not in block.split("<table>")[1].split("</thead>")[0]
 
 
@@ -303,7 +306,7 @@ def test_a_run_with_periods_too_small_for_drift_has_a_report(run_dir, tmp_path):
     drift = _rows_of(html, "drift")
     periods = pd.DataFrame(json.loads((result.folder / "tables" / "drift_tribune_mix_periods.json").read_text()))
     assert not periods.measured.any()
-    assert "not measured" in drift and str(__import__("markupsafe").escape(periods.reason.iloc[0])) in drift
+    assert "not measured" in drift and str(escape(periods.reason.iloc[0])) in drift
     assert f"not decomposed: 0 of {len(periods)} periods measured" in _rows_of(html, "findings")
 
 
@@ -354,7 +357,7 @@ def measure_layout(report: Path, width: int, workdir: Path) -> dict:
     start = res.stdout.find('<pre id="layout-measure">')
     assert start >= 0, res.stderr[-2000:]  # chromium is present: no measurement is a failure
     text = res.stdout[start + len('<pre id="layout-measure">'):res.stdout.index("</pre>", start)]
-    return json.loads(__import__("html").unescape(text))
+    return json.loads(html_text.unescape(text))
 
 
 @pytest.mark.parametrize("width", [1280, 1920])
