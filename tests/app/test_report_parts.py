@@ -62,7 +62,7 @@ def test_carriers_are_the_sources_whose_removal_takes_the_gap_away():
     names, _ = carriers(src.assign(contribution_gap=-src["contribution_gap"]), -0.25)  # a negative gap
     assert names == ["B", "D"]
     assert carriers(src.assign(contribution_gap=src["contribution_gap"].abs()), 0.25) == ([], 0.0)
-    assert carriers(pd.DataFrame(), 0.25) == ([], math.nan) or carriers(pd.DataFrame(), 0.25)[0] == []
+    assert carriers(pd.DataFrame(), 0.25)[0] == [] and carriers(src, float("nan"))[0] == []
 
 
 class _Run(RunData):

@@ -214,8 +214,8 @@ def findings(run: RunData, model: str, preferred_slice: str) -> list[Finding]:
             rows = measure[(measure["test"] == test) & (measure["model"] == model)]
         row = headline_slice(rows, preferred_slice)
         gap = _num(row.get("gap")) if row is not None else math.nan
-        src, names_ = source_part(run, test, gap, "#" + anchor("trace", test))
+        src, carried = source_part(run, test, gap, "#" + anchor("trace", test))
         out.append(Finding(test, anchor("finding", test), association_part(row, "#" + anchor("test", test)), src,
-                           verification_part(run, test, names_, "#" + anchor("trace", test)),
+                           verification_part(run, test, carried, "#" + anchor("trace", test)),
                            drift_part(run, test, "#" + anchor("drift", test))))
     return out
