@@ -293,8 +293,9 @@ def test_q_values_are_shown_when_the_measure_table_has_them(run_dir, tmp_path):
     rows = json.loads(path.read_text())
     path.write_text(json.dumps([{**r, "q_value": 0.0123} for r in rows]))
     html = build_report(folder)
-    assert ", q 0.012" in _rows_of(html, "findings") and "<th>q</th>" in html
-    assert ", q " not in _rows_of((run_dir / "report.html").read_text(encoding="utf-8"), "findings")
+    assert ", q 0.012" in _rows_of(html, "findings") and "<th>q</th>" in html and "Benjamini-Hochberg" in html
+    plain = (run_dir / "report.html").read_text(encoding="utf-8")
+    assert ", q " not in _rows_of(plain, "findings") and "Benjamini-Hochberg" not in plain
 
 
 def test_a_run_with_periods_too_small_for_drift_has_a_report(run_dir, tmp_path):

@@ -185,3 +185,16 @@ def test_scatter_plot_writes_a_png_with_dollar_signs_in_words(tmp_path):
                            "value": [1.0, 2.0], "score": [0.1, 0.2]})
     figures.scatter_plot(points, "share $", tmp_path / "s.png")
     assert (tmp_path / "s.png").read_bytes()[:4] == b"\x89PNG"
+
+
+def test_tables_stored_under_another_file_name_are_found_through_run_json(tmp_path):
+    # a test name that cannot be a file name is stored under a safe stem, named in run.json's "tables"
+    name = "a/b $x$"
+    sources = [{"source": "Gazette", "contribution_gap": -0.2}, {"source": "Other", "contribution_gap": 0.01}]
+    measure = [{"test": name, "model": "ppmi-svd", "slice": "all", "measured": True, "effect_size": 1.2,
+                "ci_low": 1.0, "ci_high": 1.4, "gap": 0.25}]
+    folder = _minimal_run(tmp_path / "run", {"measure": measure, "trace-stem-1": sources},
+                          {"run_id": "r1", "experiment": {"trace_tests": [name]},
+                           "tables": {f"trace_{name}_sources": "trace-stem-1"}})
+    html = build_report(folder)
+    assert "Gazette: -0.2 (80% of the gap)" in html and "a/b $x$" in html

@@ -168,6 +168,7 @@ def render_report(run_dir: str | Path) -> tuple[str, list[fig.Chart]]:
         info=info, exp=run.experiment, status=run.status, cautions=CAUTIONS, model=model, headline=headline,
         findings=findings(run, model, headline), corpus=corpus, tests=tests, traces=traces, drifts=drifts,
         correlations=correlations, experiment=experiment_rows(run), experiment_text=run.experiment_text(),
+        has_q=run.table("measure") is not None and "q_value" in run.table("measure").columns,
         not_measured=[e for e in info.get("not_measured") or [] if isinstance(e, dict)],
         manifest=info.get("manifest") or {}, versions=info.get("versions") or {}, seeds=info.get("seeds") or {})
     return html, charts
