@@ -1,16 +1,23 @@
-"""tracer run and the HTML report: sections, inline figures, no network, escaped corpus text, a real browser."""
+"""tracer run and the HTML report: sections, findings first, inline figures, no network, escaped corpus
+text, parts not measured, and the layout measured in a real browser."""
 
+import base64
 import gzip
+import html as html_text
 import importlib.util
 import json
+import re
 import shutil
 import subprocess
 from html.parser import HTMLParser
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import pytest
 from click.testing import CliRunner
+from markupsafe import escape
+from scipy import stats
 
 from tracer.app.cli import cli
 from tracer.provenance.experiment import load_experiment
@@ -21,6 +28,27 @@ _spec = importlib.util.spec_from_file_location("gen", ROOT / "corpora_demo" / "g
 gen = importlib.util.module_from_spec(_spec)
 _spec.loader.exec_module(gen)
 SCRIPT = "<script>alert(1)</script>"
+
+
+def _experiment(drift_by: str) -> str:
+    return f"""
+[corpus]
+inputs = ["small.jsonl.gz"]
+workspace = "ws"
+[models]
+ppmi_svd = {{ dim = 50 }}
+[measure]
+tests = "tests.toml"
+by = ["source"]
+bootstrap = 2
+[trace]
+tests = ["gazette_outlet"]
+verify = 2
+[drift]
+tests = ["tribune_mix"]
+by = "{drift_by}"
+bootstrap = 2
+"""
 
 
 @pytest.fixture(scope="module")
@@ -37,24 +65,7 @@ def run_dir(tmp_path_factory):
     with gzip.open(folder / "small.jsonl.gz", "wt", encoding="utf-8") as f:
         f.writelines(json.dumps(d) + "\n" for d in docs)
     shutil.copyfile(ROOT / "configs" / "demo_tests.toml", folder / "tests.toml")
-    (folder / "exp.toml").write_text("""
-[corpus]
-inputs = ["small.jsonl.gz"]
-workspace = "ws"
-[models]
-ppmi_svd = { dim = 50 }
-[measure]
-tests = "tests.toml"
-by = ["source"]
-bootstrap = 2
-[trace]
-tests = ["gazette_outlet"]
-verify = 2
-[drift]
-tests = ["tribune_mix"]
-by = "time:20y"
-bootstrap = 2
-""", encoding="utf-8")
+    (folder / "exp.toml").write_text(_experiment("time:20y"), encoding="utf-8")
     result = run_experiment(load_experiment(folder / "exp.toml"))
     assert not result.reused
     return result.folder
@@ -187,3 +198,174 @@ def test_cache_keys_change_with_the_tracer_version(monkeypatch):
     assert ResultCache.key("abc", w, "counts", {"window": 5}) == before
     monkeypatch.setattr(tracer.provenance.cache, "__version__", "9.9.9")
     assert ResultCache.key("abc", w, "counts", {"window": 5}) != before
+
+
+def _rows_of(html: str, table_id_or_section: str) -> str:
+    start = html.index(f'id="{table_id_or_section}"')
+    return html[start:html.index("</section>", start)]
+
+
+def test_findings_come_first_and_name_source_verification_and_drift(run_dir):
+    html = (run_dir / "report.html").read_text(encoding="utf-8")
+    assert html.index('id="findings"') < html.index('id="cautions"') < html.index('id="corpus"')
+    findings = _rows_of(html, "findings")
+    measure = pd.DataFrame(json.loads((run_dir / "tables" / "measure.json").read_text()))
+    row = measure[(measure.test == "gazette_outlet") & (measure.slice == "all")].iloc[0]
+    assert f"d {row.effect_size:.2f} [{row.ci_low:.2f}, {row.ci_high:.2f}]" in findings
+    src = pd.DataFrame(json.loads((run_dir / "tables" / "trace_gazette_outlet_sources.json").read_text()))
+    top = src.sort_values("contribution_gap").iloc[0]  # the gap is positive: the most negative change carries it
+    assert top.source == "Gazette" and f"Gazette: {top.contribution_gap:+.3g}" in findings
+    ver = pd.DataFrame(json.loads((run_dir / "tables" / "trace_gazette_outlet_verification.json").read_text()))
+    assert f"rho {ver.spearman_rho.iloc[0]:.2f}" in findings
+    ch = pd.DataFrame(json.loads((run_dir / "tables" / "drift_tribune_mix_changes.json").read_text()))
+    overall = ch[ch.overall].iloc[0]
+    phrase = ("in the mix of sources" if overall.mix_share >= 2 / 3 else
+              "within the sources" if overall.mix_share <= 1 / 3 else "both mix and sources")
+    assert f"{phrase}: mix {overall.mix_part:+.2g}" in findings
+    for kind in ("test", "trace", "drift"):  # every link of the findings leads to an id in the page
+        for target in set(re.findall(rf'href="#({kind}-[^"]+)"', findings)):
+            assert f'id="{target}"' in html
+
+
+def test_verification_states_rank_agreement_as_scipy_computes_it(run_dir):
+    html = (run_dir / "report.html").read_text(encoding="utf-8")
+    ver = pd.DataFrame(json.loads((run_dir / "tables" / "trace_gazette_outlet_verification.json").read_text()))
+    # reference: scipy's Spearman rho over the estimated and retrained changes of every retrain
+    rho = stats.spearmanr(ver.predicted, ver.actual).statistic
+    signs = np.mean(np.sign(ver.predicted) == np.sign(ver.actual))
+    assert f"Spearman rho {rho:.2f} (rank agreement), signs agree in {100 * signs:.0f}%" in html
+    assert 'alt="Verification of gazette_outlet"' in html
+
+
+def test_tables_print_counts_as_integers_and_warnings_once_as_footnotes(run_dir):
+    html = (run_dir / "report.html").read_text(encoding="utf-8")
+    tests = _rows_of(html, "tests")
+    assert not re.search(r">\d+\.0000<", html)  # counts never as 6.0000
+    measure = pd.DataFrame(json.loads((run_dir / "tables" / "measure.json").read_text()))
+    warning = next(w for w in measure.warning if isinstance(w, str) and w)
+    block = tests[tests.index("<h3", tests.index(">gazette_outlet<") - 80):]
+    block = block[:block.index("<h3", 10)]
+    assert block.count(str(escape(warning))) <= 1
+    assert "<th>notes</th>" in block and "ppmi-svd" not in block.split("<table>")[1].split("</thead>")[0]
+
+
+def test_experiment_block_shows_the_paths_as_resolved(run_dir):
+    html = (run_dir / "report.html").read_text(encoding="utf-8")
+    table = html[html.index('id="experiment"'):]
+    table = table[:table.index("</table>")]
+    info = json.loads((run_dir / "run.json").read_text())
+    assert f"<td>{info['experiment']['workspace']}</td>" in table  # absolute, where the file says "ws"
+    assert Path(info["experiment"]["workspace"]).is_absolute()
+
+
+def test_figure_files_are_the_report_figures_in_order(run_dir):
+    html = (run_dir / "report.html").read_text(encoding="utf-8")
+    p = _Collect()
+    p.feed(html)
+    files = sorted((run_dir / "figures").glob("*.png"))
+    assert [base64.b64decode(src.split(",", 1)[1]) for src in p.imgs] == [f.read_bytes() for f in files]
+
+
+def _copy_run(run_dir: Path, dest: Path) -> Path:
+    shutil.copytree(run_dir, dest, ignore=shutil.ignore_patterns("figures", "report.html"))
+    return dest
+
+
+@pytest.mark.parametrize("damage", ["empty", "missing", "first_column"])
+def test_report_assumes_no_table_and_no_column(run_dir, tmp_path, damage):
+    from tracer.app.report.html import build_report
+    folder = _copy_run(run_dir, tmp_path / "run")
+    for path in (folder / "tables").glob("*.json"):
+        if damage == "missing":
+            path.unlink()
+            continue
+        rows = json.loads(path.read_text())
+        keep = list(rows[0])[:1] if rows else []
+        path.write_text(json.dumps([] if damage == "empty" else [{k: r[k] for k in keep} for r in rows]))
+    html = build_report(folder)
+    assert 'id="findings"' in html and "qualified reviewers and the applicable law" in html
+
+
+def test_q_values_are_shown_when_the_measure_table_has_them(run_dir, tmp_path):
+    from tracer.app.report.html import build_report
+    folder = _copy_run(run_dir, tmp_path / "run")
+    path = folder / "tables" / "measure.json"
+    rows = json.loads(path.read_text())
+    path.write_text(json.dumps([{**r, "q_value": 0.0123} for r in rows]))
+    html = build_report(folder)
+    assert ", q 0.012" in _rows_of(html, "findings") and "<th>q</th>" in html and "Benjamini-Hochberg" in html
+    plain = (run_dir / "report.html").read_text(encoding="utf-8")
+    assert ", q " not in _rows_of(plain, "findings") and "Benjamini-Hochberg" not in plain
+
+
+def test_a_run_with_periods_too_small_for_drift_has_a_report(run_dir, tmp_path):
+    # 12 documents a year give about 14,000 tokens a decade, under the 20,000 a drift period needs
+    folder = run_dir.parent.parent.parent
+    (folder / "exp_small.toml").write_text(_experiment("time:10y").replace('"ws"', '"ws_small"'), encoding="utf-8")
+    result = run_experiment(load_experiment(folder / "exp_small.toml"))
+    html = (result.folder / "report.html").read_text(encoding="utf-8")
+    drift = _rows_of(html, "drift")
+    periods = pd.DataFrame(json.loads((result.folder / "tables" / "drift_tribune_mix_periods.json").read_text()))
+    assert not periods.measured.any()
+    assert "not measured" in drift and str(escape(periods.reason.iloc[0])) in drift
+    assert f"not decomposed: 0 of {len(periods)} periods measured" in _rows_of(html, "findings")
+
+
+# The browser measures the page: a script in a copy of the report writes element sizes into the DOM,
+# which --dump-dom prints. Limits: no horizontal overflow, no table row taller than two lines of
+# its text, and the findings ending within the first 900 px.
+MEASURE = """<script>
+window.addEventListener("load", () => {
+  const out = {innerWidth: window.innerWidth, scrollWidth: document.documentElement.scrollWidth,
+               findingsBottom: document.getElementById("findings").getBoundingClientRect().bottom + window.scrollY,
+               wideTables: [], tallRows: [], rows: 0};
+  for (const t of document.querySelectorAll("table")) {
+    const r = t.getBoundingClientRect(), box = t.parentElement.getBoundingClientRect();
+    if (r.right > box.right + 1 || t.scrollWidth > t.clientWidth + 1) out.wideTables.push(t.rows[0].innerText);
+  }
+  for (const tr of document.querySelectorAll("tbody tr")) {
+    out.rows += 1;
+    let limit = 0;
+    for (const td of tr.cells) {
+      const s = getComputedStyle(td);
+      const line = parseFloat(s.lineHeight) || 1.2 * parseFloat(s.fontSize);
+      limit = Math.max(limit, 2 * line + parseFloat(s.paddingTop) + parseFloat(s.paddingBottom)
+                              + parseFloat(s.borderTopWidth) + parseFloat(s.borderBottomWidth) + 1);
+    }
+    const h = tr.getBoundingClientRect().height;
+    if (h > limit) out.tallRows.push([Math.round(h), Math.round(limit), tr.innerText.slice(0, 80)]);
+  }
+  const pre = document.createElement("pre");
+  pre.id = "layout-measure";
+  pre.textContent = JSON.stringify(out);
+  document.body.appendChild(pre);
+});
+</script>"""
+
+
+def measure_layout(report: Path, width: int, workdir: Path) -> dict:
+    """The layout measurements of ``report`` in headless chromium at ``width`` x 900 px."""
+    browser = shutil.which("chromium") or shutil.which("chromium-browser")
+    if browser is None:
+        pytest.skip("chromium is not installed and could not be installed here (.ci/run tries apt-get)")
+    page = workdir / f"measured-{width}.html"
+    page.write_text(report.read_text(encoding="utf-8").replace("</body>", MEASURE + "</body>"), encoding="utf-8")
+    res = subprocess.run([browser, "--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
+                          "--disable-component-update", "--no-first-run", "--disable-sync", "--hide-scrollbars",
+                          f"--user-data-dir={workdir / f'profile-{width}'}", f"--window-size={width},900",
+                          "--virtual-time-budget=10000", "--dump-dom", page.as_uri()],
+                         capture_output=True, text=True, timeout=180)
+    start = res.stdout.find('<pre id="layout-measure">')
+    assert start >= 0, res.stderr[-2000:]  # chromium is present: no measurement is a failure
+    text = res.stdout[start + len('<pre id="layout-measure">'):res.stdout.index("</pre>", start)]
+    return json.loads(html_text.unescape(text))
+
+
+@pytest.mark.parametrize("width", [1280, 1920])
+def test_report_layout_fits_the_page_in_a_browser(run_dir, tmp_path, width):
+    m = measure_layout(run_dir / "report.html", width, tmp_path)
+    assert m["innerWidth"] == width and m["rows"] > 50  # the page was laid out at this width, tables and all
+    assert m["scrollWidth"] <= m["innerWidth"], m
+    assert m["wideTables"] == []
+    assert m["tallRows"] == []
+    assert m["findingsBottom"] <= 900

@@ -128,28 +128,3 @@ def correlate(models: list[tuple[Embedding, object]], test: AssociationTest, tab
             points.extend({"model": model, "slice": sl, "view": view, "word": w, "value": v, "score": sc}
                           for w, v, sc, k in zip(table.words, table.values, scores.to_numpy(), known) if k)
     return pd.DataFrame(rows), pd.DataFrame(points, columns=["model", "slice", "view", "word", "value", "score"])
-
-
-def scatter_plot(points: pd.DataFrame, column: str, path: str | Path) -> None:
-    """One panel per model, slice and view: each word's score against the table's value, labelled."""
-    import matplotlib
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    groups = list(points.groupby(["model", "slice", "view"], sort=False))
-    cols = min(3, len(groups)) or 1
-    rows = -(-len(groups) // cols) or 1
-    fig, axes = plt.subplots(rows, cols, figsize=(4.2 * cols, 3.6 * rows), squeeze=False)
-    for ax, ((model, sl, view), g) in zip(axes.flat, groups):
-        ax.scatter(g["value"], g["score"], s=18, color="#2a6f97")
-        for _, p in g.iterrows():
-            ax.annotate(p["word"], (p["value"], p["score"]), fontsize=7, xytext=(3, 2), textcoords="offset points")
-        ax.set_title(f"{model}, {sl}", fontsize=9)
-        ax.set_xlabel(column, fontsize=8)
-        ax.set_ylabel("score (cosine)" if view == "embedding" else "PMI log odds ratio", fontsize=8)
-        ax.axhline(0, color="#999", lw=0.6)
-    for ax in list(axes.flat)[len(groups):]:
-        ax.axis("off")
-    fig.tight_layout()
-    fig.savefig(path, dpi=110)
-    plt.close(fig)

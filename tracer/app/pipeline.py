@@ -51,7 +51,7 @@ def run_experiment(exp: Experiment, *, progress: bool = False, say: Callable[[st
                    command: str = "") -> RunResult:
     """Ingest (if needed), measure, trace, drift; store every table; render the report."""
     from tracer.analysis.drift import drift_tests, word_drift
-    from tracer.app.report.html import save_figures, write_report
+    from tracer.app.report.html import write_report
     from tracer.analysis.trace import TraceSettings, trace
 
     say(f"ingesting into {exp.workspace}")
@@ -134,8 +134,7 @@ def run_experiment(exp: Experiment, *, progress: bool = False, say: Callable[[st
                 "seconds": time.perf_counter() - started,
                 "finished_at": dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds")}
         write_atomic(tmp / "run.json", json.dumps(plain_values(info), indent=1, ensure_ascii=False))
-        report = write_report(tmp, tmp / "report.html")
-        save_figures(report.read_text(encoding="utf-8"), tmp / "figures")
+        write_report(tmp, tmp / "report.html", figures_dir=tmp / "figures")
         os.replace(tmp, runs / run_id)  # the run appears whole or not at all
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)

@@ -1,238 +1,200 @@
 """The report: one self-contained HTML file (styles and figures inline), built from a run's tables.
 
-Every string from the corpus is escaped by the template engine (autoescape); figures are
-PNG images embedded as data URIs, so the file opens in any browser without a network.
+The first screen holds the findings (one line per test, each linking to its evidence) and the
+cautions; the evidence follows. Python prepares data (tables as :class:`~.tables.Table`,
+figures as :class:`~.figures.Chart`); the jinja2 template writes every tag and escapes every
+string from the corpus (autoescape). Figures are PNG data URIs, so the file opens in any browser
+without a network; :func:`write_report` can also write them as files, from the charts themselves.
 """
 
 from __future__ import annotations
 
-import base64
-import io
-import json
+import re
 from pathlib import Path
 
-import numpy as np
 import pandas as pd
-from jinja2 import Environment, FileSystemLoader, select_autoescape
-from markupsafe import Markup, escape
+from jinja2 import ChainableUndefined, Environment, FileSystemLoader, select_autoescape
 
+from tracer.app.report import figures as fig
+from tracer.app.report.findings import anchor, findings
+from tracer.app.report.run_data import RunData
+from tracer.app.report.sections import (corpus_section, correlate_sections, experiment_rows, measure_section)
+from tracer.app.report.tables import Col, make_table
 from tracer.files import write_atomic
 
 TEMPLATES = Path(__file__).resolve().parent / "templates"
 CAUTIONS = [
-    "An association in an embedding is not proof of discrimination by anyone: it says which words the "
-    "corpus puts near each other, not why, and not what any person intended.",
-    "Word lists encode choices. Other reasonable lists can give other answers; the per-word tables show "
-    "which words carry a result.",
-    "Small corpora and small slices give unstable numbers; read the intervals, and the warnings beside them.",
+    "An association is not proof of discrimination by anyone: it shows which words the corpus puts near "
+    "each other, not why, and not what any person intended.",
+    "Word lists encode choices: other reasonable lists can give other answers.",
+    "Small corpora and small slices give unstable numbers: read the intervals and the notes.",
     "Consequential decisions about people, publications or data belong with qualified reviewers and the "
     "applicable law, not with a score.",
 ]
+PASSAGES_SHOWN, DOCUMENTS_SHOWN = 12, 10
+
+SOURCE_COLS = [Col("source", "source"), Col("documents", "documents", "int"), Col("tokens", "tokens", "int"),
+               Col("token_share", "token share", "pct"), Col("contribution_gap", "gap change if removed", "g3"),
+               Col("linear_estimate", "linear estimate", "g3"), Col("contribution", "d change if removed", "g3"),
+               Col("contribution_per_million_tokens", "gap change per million tokens", "g3")]
+DOCUMENT_COLS = [Col("rank", "rank", "int"), Col("doc_id", "document", "id"), Col("source", "source"),
+                 Col("time", "time", "id"), Col("title", "title"), Col("tokens", "tokens", "int"),
+                 Col("contribution_gap", "gap change if removed", "g3"), Col("pairs", "strongest pairs")]
+VERIFY_COLS = [Col("removed", "removed"), Col("documents", "documents", "int"),
+               Col("predicted", "estimated gap change", "g3"), Col("actual", "retrained gap change", "g3"),
+               Col("predicted_linear", "linear estimate", "g3"),
+               Col("predicted_effect_size", "estimated d change", "g3"),
+               Col("actual_effect_size", "retrained d change", "g3"), Col("seed_spread", "seed spread", "g3")]
+TREND_COLS = [Col("slope", "gap slope per decade", "g3"), Col(("slope_ci_low", "slope_ci_high"), "interval", "g3"),
+              Col("p_value", "Kendall p", "p"), Col("tau", "Kendall tau", "d"),
+              Col("periods_used", "periods used", "int")]
+PERIOD_COLS = [Col("period", "period", "id"), Col("effect_size", "d", "d"), Col(("ci_low", "ci_high"), "interval", "d"),
+               Col("gap", "gap", "g3"), Col(("gap_ci_low", "gap_ci_high"), "gap interval", "g3"),
+               Col("change_significant", "change from previous outside its interval", "bool"),
+               Col("tokens", "tokens", "int"), Col("documents", "documents", "int")]
+CHANGE_COLS = [Col("from", "from", "id"), Col("to", "to", "id"), Col("total", "change of the gap", "g3"),
+               Col("mix_part", "mix of sources", "g3"), Col("within_part", "within sources", "g3"),
+               Col("mix_share", "mix share", "pct"), Col("reweighted_gap", "reweighted gap", "g3")]
+WITHIN_COLS = [Col("source", "source"), Col("share_from", "share before", "pct"),
+               Col("share_to", "share after", "pct"), Col("within_contribution", "change within the source", "g3")]
 
 
-def _plt():
-    import matplotlib
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-    return plt
+def _segments(marked) -> list[dict]:
+    """A passage as text segments, the marked words flagged (the template writes the marks)."""
+    parts = re.split(r"\[\[(.*?)\]\]", "" if marked is None else str(marked))
+    return [{"text": t, "mark": i % 2 == 1} for i, t in enumerate(parts) if t]
 
 
-def _png(fig) -> str:
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=100, bbox_inches="tight")
-    _plt().close(fig)
-    return "data:image/png;base64," + base64.b64encode(buf.getvalue()).decode("ascii")
+def _passages(pas: pd.DataFrame | None) -> list[dict]:
+    if pas is None or len(pas) == 0:
+        return []
+    out = []
+    for r in pas.to_dict(orient="records"):
+        text = r.get("marked") if isinstance(r.get("marked"), str) else r.get("text")
+        out.append({"doc_id": r.get("doc_id"), "source": r.get("source"), "time": r.get("time"),
+                    "start": r.get("start"), "end": r.get("end"), "segments": _segments(text)})
+    return out
 
 
-def _table(df: pd.DataFrame, columns=None, digits: int = 4, limit: int | None = None) -> Markup:
-    """An HTML table with every cell escaped."""
-    if df is None or len(df) == 0:
-        return Markup("<p class='empty'>(no rows)</p>")
-    df = df[columns] if columns else df
-    if limit:
-        df = df.head(limit)
-    head = "".join(f"<th>{escape(str(c))}</th>" for c in df.columns)
-    rows = []
-    for rec in df.itertuples(index=False):
-        cells = []
-        for v in rec:
-            if isinstance(v, float):
-                text = "" if np.isnan(v) else f"{v:.{digits}g}" if abs(v) >= 1e4 or (v and abs(v) < 1e-3) else f"{v:.{digits}f}"
-                cells.append(f"<td class='num'>{escape(text)}</td>")
-            else:
-                cells.append(f"<td>{escape('' if v is None else str(v))}</td>")
-        rows.append("<tr>" + "".join(cells) + "</tr>")
-    return Markup(f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(rows)}</tbody></table>")
+def _trace(run: RunData, name: str, charts: list) -> dict:
+    src, ver = run.table(f"trace_{name}_sources"), run.table(f"trace_{name}_verification")
+    out = {"name": name, "anchor": anchor("trace", name), "reason": None}
+    if src is None or len(src) == 0:
+        out["reason"] = run.not_measured("trace", name) or "the run holds no trace tables for this test"
+        return out
+    docs = run.table(f"trace_{name}_documents")
+    passages = _passages(run.table(f"trace_{name}_passages"))
+    out.update(figure=_chart(charts, fig.sources_chart(src, name)), sources=make_table(src, SOURCE_COLS),
+               documents=make_table(docs, DOCUMENT_COLS, limit=DOCUMENTS_SHOWN, stored=f"trace_{name}_documents"),
+               passages=passages[:PASSAGES_SHOWN], more_passages=passages[PASSAGES_SHOWN:],
+               verification=make_table(ver, VERIFY_COLS),
+               verification_figure=_chart(charts, fig.verification_chart(ver, name)),
+               agreement=_agreement(ver))
+    return out
 
 
-def _marked(text) -> Markup:
-    """A passage with its two probe words in <mark>; the text itself is escaped first."""
-    safe = str(escape("" if text is None else str(text)))
-    return Markup(safe.replace("[[", "<mark>").replace("]]", "</mark>"))
-
-
-def _load(run_dir: Path, name: str) -> pd.DataFrame | None:
-    p = run_dir / "tables" / f"{name}.json"
-    if not p.is_file():
+def _agreement(ver: pd.DataFrame | None) -> dict | None:
+    if ver is None or len(ver) == 0:
         return None
-    return pd.DataFrame(json.loads(p.read_text(encoding="utf-8")))
+    first = ver.iloc[0]
+    return {k: first.get(k) for k in ("pearson_r", "spearman_rho", "sign_agreement")
+            if k in ver.columns and pd.notna(first.get(k))} | {"retrains": len(ver)}
 
 
-def _corpus_figure(periods: pd.DataFrame) -> str:
-    plt = _plt()
-    pivot = periods.pivot_table(index="period", columns="source", values="tokens", aggfunc="sum").fillna(0)
-    fig, ax = plt.subplots(figsize=(8, 3.2))
-    bottom = np.zeros(len(pivot))
-    for s in pivot.columns:
-        ax.bar(range(len(pivot)), pivot[s], bottom=bottom, label=str(s))
-        bottom += pivot[s].to_numpy()
-    ax.set_xticks(range(len(pivot)), [p.replace("time=", "") for p in pivot.index], rotation=30, fontsize=8)
-    ax.set_ylabel("tokens")
-    ax.legend(fontsize=7, ncol=6, loc="upper center", bbox_to_anchor=(0.5, -0.28), frameon=False)
-    ax.set_title("Tokens per period and source", fontsize=10)
-    return _png(fig)
+def _drift(run: RunData, name: str, charts: list) -> dict:
+    per, ch = run.table(f"drift_{name}_periods"), run.table(f"drift_{name}_changes")
+    out = {"name": name, "anchor": anchor("drift", name), "reason": None}
+    if per is None or len(per) == 0:
+        out["reason"] = run.not_measured("drift", name) or "the run holds no drift tables for this test"
+        return out
+    within = run.table(f"drift_{name}_sources")
+    overall = ch[ch["overall"].fillna(False).astype(bool)] if ch is not None and "overall" in ch.columns else None
+    if within is not None and overall is not None and len(overall) and {"from", "to"} <= set(within.columns):
+        o = overall.iloc[0]
+        within = within[(within["from"] == o["from"]) & (within["to"] == o["to"])]
+    else:
+        within = None
+    changes = ch.assign(sources_in_one_period=[_one_period_note(r) for r in ch.to_dict(orient="records")]) \
+        if ch is not None and len(ch) else ch
+    out.update(trajectory=_chart(charts, fig.trajectory_chart(per, name)),
+               decomposition=_chart(charts, fig.decomposition_chart(ch, name)),
+               trend=make_table(run.table(f"drift_{name}_trend"), TREND_COLS),
+               periods=make_table(per, PERIOD_COLS, notes=("dropped_words",), unmeasured="effect_size"),
+               changes=make_table(changes, CHANGE_COLS, notes=("sources_in_one_period",)),
+               within=make_table(within, WITHIN_COLS),
+               unmeasured=int((~per["measured"].fillna(False).astype(bool)).sum()) if "measured" in per.columns else 0,
+               n_periods=len(per))
+    return out
 
 
-def _effects_figure(measure: pd.DataFrame, test: str) -> str | None:
-    plt = _plt()
-    d = measure[(measure["test"] == test) & measure["measured"].astype(bool)]
-    d = d[d["effect_size"].notna()]
-    if len(d) == 0:
-        return None
-    fig, ax = plt.subplots(figsize=(8, 0.28 * len(d) + 1.2))
-    y = np.arange(len(d))
-    lo = (d["effect_size"] - d["ci_low"]).clip(lower=0).fillna(0)
-    hi = (d["ci_high"] - d["effect_size"]).clip(lower=0).fillna(0)
-    ax.errorbar(d["effect_size"], y, xerr=[lo, hi], fmt="o", color="#1f5f8b", ecolor="#8fb3cc", capsize=2)
-    ax.set_yticks(y, [f"{m} {s}" for m, s in zip(d["model"], d["slice"])], fontsize=7)
-    ax.axvline(0, color="#888", lw=0.7)
-    ax.set_xlim(-2.1, 2.1)
-    ax.set_xlabel("effect size d (bootstrap interval)")
-    ax.set_title(f"{test}", fontsize=10)
-    return _png(fig)
+def _one_period_note(row: dict) -> str:
+    only = [f"{s} ({row.get('from')})" for s in row.get("sources_only_in_from") or []]
+    only += [f"{s} ({row.get('to')})" for s in row.get("sources_only_in_to") or []]
+    return f"sources in one period only: {', '.join(only)}" if only else ""
 
 
-def _bar_figure(df: pd.DataFrame, label: str, value: str, title: str) -> str:
-    plt = _plt()
-    fig, ax = plt.subplots(figsize=(7, 0.3 * len(df) + 1.2))
-    colors = ["#b5523b" if v < 0 else "#3b7fb5" for v in df[value]]
-    ax.barh(range(len(df)), df[value], color=colors)
-    ax.set_yticks(range(len(df)), [str(v) for v in df[label]], fontsize=8)
-    ax.axvline(0, color="#888", lw=0.7)
-    ax.invert_yaxis()
-    ax.set_title(title, fontsize=10)
-    return _png(fig)
+def _chart(charts: list, chart: fig.Chart | None) -> fig.Chart | None:
+    """Keep ``chart`` in the report's list (the order the figures appear in) and pass it on."""
+    if chart is not None:
+        charts.append(chart)
+    return chart
 
 
-def _trajectory_figure(periods: pd.DataFrame, test: str) -> str:
-    plt = _plt()
-    p = periods[periods["measured"].astype(bool)]
-    fig, ax = plt.subplots(figsize=(7, 3))
-    x = np.arange(len(p))
-    ax.plot(x, p["gap"], "o-", color="#1f5f8b", label="gap")
-    if p["gap_ci_low"].notna().all():
-        ax.fill_between(x, p["gap_ci_low"].astype(float), p["gap_ci_high"].astype(float), alpha=0.2, color="#1f5f8b",
-                        label="bootstrap interval")
-    ax.set_xticks(x, [s.replace("time=", "") for s in p["period"]], rotation=30, fontsize=8)
-    ax.axhline(0, color="#888", lw=0.7)
-    ax.set_ylabel("gap (mean association x - y)")
-    ax.legend(fontsize=7)
-    ax.set_title(f"{test}: trajectory", fontsize=10)
-    return _png(fig)
+def _headline(run: RunData) -> tuple[str, str]:
+    """The model and the slice the findings read: PPMI-SVD if measured, the trace slice if measured."""
+    measure = run.table("measure")
+    models = list(dict.fromkeys(measure["model"])) if measure is not None and "model" in measure.columns else []
+    model = "ppmi-svd" if "ppmi-svd" in models else (models[0] if models else "ppmi-svd")
+    slices = set(measure["slice"]) if measure is not None and "slice" in measure.columns else set()
+    preferred = str(run.experiment.get("trace_slice") or "all")
+    return model, preferred if preferred in slices or not slices else ("all" if "all" in slices else sorted(slices)[0])
 
 
-def _decomposition_figure(changes: pd.DataFrame, test: str) -> str:
-    plt = _plt()
-    fig, ax = plt.subplots(figsize=(7, 3))
-    x = np.arange(len(changes))
-    ax.bar(x - 0.2, changes["mix_part"], width=0.4, label="mix of sources", color="#d08b2c")
-    ax.bar(x + 0.2, changes["within_part"], width=0.4, label="within sources", color="#3b7fb5")
-    ax.set_xticks(x, [f"{a.replace('time=', '')}\n-> {b.replace('time=', '')}" for a, b in
-                      zip(changes["from"], changes["to"])], fontsize=6)
-    ax.axhline(0, color="#888", lw=0.7)
-    ax.legend(fontsize=7)
-    ax.set_title(f"{test}: decomposition of each change", fontsize=10)
-    return _png(fig)
-
-
-def _verification_figure(v: pd.DataFrame, test: str) -> str:
-    plt = _plt()
-    fig, ax = plt.subplots(figsize=(4.2, 4))
-    ax.scatter(v["predicted"], v["actual"], color="#1f5f8b")
-    lim = float(np.nanmax(np.abs(np.concatenate([v["predicted"], v["actual"]])))) * 1.1 or 1.0
-    ax.plot([-lim, lim], [-lim, lim], color="#888", lw=0.7)
-    ax.set_xlabel("predicted change")
-    ax.set_ylabel("retrained change")
-    ax.set_title(f"{test}: r = {v['pearson_r'].iloc[0]:.3f}", fontsize=10)
-    return _png(fig)
+def render_report(run_dir: str | Path) -> tuple[str, list[fig.Chart]]:
+    """The report of a stored run as HTML text, and its figures in the order they appear."""
+    run = RunData(run_dir)
+    charts: list[fig.Chart] = []
+    model, headline = _headline(run)
+    corpus = corpus_section(run, charts)
+    tests = measure_section(run, charts)
+    traces = [_trace(run, name, charts) for name in run.tests_of("trace_tests")]
+    drifts = [_drift(run, name, charts) for name in run.tests_of("drift_tests")]
+    correlations = correlate_sections(run, charts)
+    # a value a run lacks (a part not measured) renders empty instead of failing
+    env = Environment(loader=FileSystemLoader(TEMPLATES), autoescape=select_autoescape(["html", "j2"]),
+                      trim_blocks=True, lstrip_blocks=True, undefined=ChainableUndefined)
+    info = run.info
+    html = env.get_template("report.html.j2").render(
+        info=info, exp=run.experiment, status=run.status, cautions=CAUTIONS, model=model, headline=headline,
+        findings=findings(run, model, headline), corpus=corpus, tests=tests, traces=traces, drifts=drifts,
+        correlations=correlations, experiment=experiment_rows(run), experiment_text=run.experiment_text(),
+        has_q=run.table("measure") is not None and "q_value" in run.table("measure").columns,
+        not_measured=[e for e in info.get("not_measured") or [] if isinstance(e, dict)],
+        manifest=info.get("manifest") or {}, versions=info.get("versions") or {}, seeds=info.get("seeds") or {})
+    return html, charts
 
 
 def build_report(run_dir: str | Path) -> str:
     """The report of a stored run, as HTML text."""
-    run_dir = Path(run_dir)
-    info = json.loads((run_dir / "run.json").read_text(encoding="utf-8"))
-    exp = info["experiment"]
-    measure = _load(run_dir, "measure")
-    sources = _load(run_dir, "sources")
-    periods = _load(run_dir, "corpus_periods")
-    tests = []
-    for name in dict.fromkeys(measure["test"]):
-        rows = measure[measure["test"] == name]
-        tests.append({"name": name, "figure": _effects_figure(measure, name),
-                      "table": _table(rows, ["model", "slice", "measured", "effect_size", "ci_low", "ci_high",
-                                             "p_value", "p_method", "gap", "pmi_effect_size", "mean_score",
-                                             "n_targets_x", "n_targets_y", "n_attributes_a", "n_attributes_b",
-                                             "reason", "warning"])})
-    traces = []
-    for name in exp.get("trace_tests", []):
-        src = _load(run_dir, f"trace_{name}_sources")
-        docs = _load(run_dir, f"trace_{name}_documents")
-        pas = _load(run_dir, f"trace_{name}_passages")
-        ver = _load(run_dir, f"trace_{name}_verification")
-        traces.append({
-            "name": name,
-            "figure": _bar_figure(src, "source", "contribution_gap", f"{name}: change of the gap if removed"),
-            "sources": _table(src), "documents": _table(docs, limit=20),
-            "passages": [{"doc_id": r["doc_id"], "source": r["source"], "time": r["time"], "start": r["start"],
-                          "end": r["end"], "html": _marked(r["marked"])} for r in (pas.to_dict("records") if pas is not None else [])][:30],
-            "verification": _table(ver) if ver is not None else None,
-            "verification_figure": _verification_figure(ver, name) if ver is not None else None,
-            "agreement": ver.iloc[0][["pearson_r", "spearman_rho", "sign_agreement"]].to_dict() if ver is not None else None,
-        })
-    drifts = []
-    for name in exp.get("drift_tests", []):
-        per = _load(run_dir, f"drift_{name}_periods")
-        ch = _load(run_dir, f"drift_{name}_changes")
-        tr = _load(run_dir, f"drift_{name}_trend")
-        drifts.append({"name": name, "trajectory": _trajectory_figure(per, name),
-                       "decomposition": _decomposition_figure(ch, name), "periods": _table(per),
-                       "changes": _table(ch), "trend": _table(tr)})
-    env = Environment(loader=FileSystemLoader(TEMPLATES), autoescape=select_autoescape(["html", "j2"]))
-    manifest = info["manifest"]
-    return env.get_template("report.html.j2").render(
-        info=info, exp=exp, manifest=manifest, cautions=CAUTIONS,
-        corpus={"documents": manifest["n_documents"], "tokens": manifest["n_tokens"], "types": manifest["n_types"],
-                "sources": _table(sources), "figure": _corpus_figure(periods) if periods is not None and len(periods) else None},
-        tests=tests, traces=traces, drifts=drifts,
-        experiment_text=(run_dir / "experiment.toml").read_text(encoding="utf-8"),
-        versions=info["versions"])
+    return render_report(run_dir)[0]
 
 
-def write_report(run_dir: str | Path, out: str | Path) -> Path:
-    write_atomic(Path(out), build_report(run_dir))
+def write_report(run_dir: str | Path, out: str | Path, figures_dir: str | Path | None = None) -> Path:
+    """Write the report of ``run_dir`` to ``out``; with ``figures_dir``, each figure as ``NN-name.png`` too."""
+    html, charts = render_report(run_dir)
+    write_atomic(Path(out), html)
+    if figures_dir is not None:
+        save_charts(charts, figures_dir)
     return Path(out)
 
 
-def save_figures(report_html: str, folder: str | Path) -> list[Path]:
-    """Write every figure embedded in a report as a PNG file (named after its alt text)."""
-    import re
+def save_charts(charts: list[fig.Chart], folder: str | Path) -> list[Path]:
+    """Write each chart as a PNG file named by its place in the report and its text alternative."""
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     out = []
-    for n, (alt, data) in enumerate(re.findall(r'<img alt="([^"]*)" src="data:image/png;base64,([^"]+)"',
-                                               report_html), start=1):
-        slug = re.sub(r"[^A-Za-z0-9]+", "-", alt).strip("-").lower()[:60] or "figure"
-        path = folder / f"{n:02d}-{slug}.png"
-        path.write_bytes(base64.b64decode(data))
+    for n, chart in enumerate(charts, start=1):
+        path = folder / f"{n:02d}-{chart.slug}.png"
+        path.write_bytes(chart.png)
         out.append(path)
     return out
