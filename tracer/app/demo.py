@@ -85,16 +85,20 @@ def run_demo(workspace: str | Path, *, progress: bool = False,
         for name, emb in (("ppmi-svd", ppmi), ("word2vec", w2v)):
             out.append(f"  {word:8s} {name:9s} {', '.join(w for w, _ in emb.neighbours(word, 6))}\n")
     seconds = time.perf_counter() - t0
-    out.append(
-        f"\nWrote the workspace to {workspace}.\n"
-        f"Report:  {folder / 'report.html'}\n"
-        f"Tables:  {folder / 'tables'}\n"
-        f"Models:  {ws.models_dir}\n"
-        f"Export:  {export_path} (word2vec text format)\n"
-        f"Try:  tracer info -w {workspace} --sources\n"
-        f"      tracer trace -w {workspace} --tests {DEMO_EXPERIMENT.parent / 'demo_tests.toml'} --test gazette_outlet\n"
-        f"      tracer neighbours -w {workspace} captain,harvest --model word2vec\n"
-        f"Done in {seconds:.1f} s (run {result.run_id}).\n")
-    out.append(wrap("Caution: these are invented data; an association in an embedding is not proof of discrimination, "
-                    "word lists encode choices, and small corpora give unstable numbers."))
+    out.append(_closing(workspace, folder, ws.models_dir, export_path, result.run_id, seconds))
     return DemoResult(workspace, folder, "".join(out), seconds)
+
+
+def _closing(workspace: Path, folder: Path, models_dir: Path, export_path: Path, run_id: str, seconds: float) -> str:
+    """Where everything went, one path a line, then what to try next."""
+    return (f"\nWrote the workspace to {workspace}.\n"
+            f"Report:  {folder / 'report.html'}\n"
+            f"Tables:  {folder / 'tables'}\n"
+            f"Models:  {models_dir}\n"
+            f"Export:  {export_path} (word2vec text format)\n"
+            f"Try:  tracer info -w {workspace} --sources\n"
+            f"      tracer trace -w {workspace} --tests {DEMO_EXPERIMENT.parent / 'demo_tests.toml'} --test gazette_outlet\n"
+            f"      tracer neighbours -w {workspace} captain,harvest --model word2vec\n"
+            f"Done in {seconds:.1f} s (run {run_id}).\n"
+            + wrap("Caution: these are invented data; an association in an embedding is not proof of discrimination, "
+                   "word lists encode choices, and small corpora give unstable numbers."))

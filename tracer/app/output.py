@@ -211,7 +211,8 @@ def passages_text(df: pd.DataFrame, *, width: int | None = TERMINAL_WIDTH) -> st
         head = [_cell(row.get(c)) for c in ("doc_id", "source", "time")]
         head.append(f"{_cell(row.get('target'))} + {_cell(row.get('attribute'))}")
         if "pair_count" in row and _cell(row["pair_count"]):
-            head.append(f"{_cell(row['pair_count'])} pairs in the document")
+            n = _cell(row["pair_count"])
+            head.append(f"{n} pair{'' if n == '1' else 's'} in the document")
         head.append(_cell(row.get("note")))
         out.append("  ".join(h for h in head if h))
         text = _cell(row.get("marked"))

@@ -7,7 +7,8 @@ import click
 from tracer.app.cli.views import chosen_tables, emit, show_option
 from tracer.app.cli.corpus_commands import known_words
 from tracer.app.cli.group import cli, progress_on
-from tracer.app.cli.options import (NEIGHBOURS_OPTION, counting_options, load_tests, measuring_options, open_workspace, output_options,
+from tracer.app.cli.options import (NEIGHBOURS_OPTION, counting_options, load_tests, measuring_options,
+                                    open_workspace, output_options,
                                     test_names_option, tests_file_option, words_of, workspace_option)
 from tracer.app.cli.texts import CAUTIONS, DRIFT_LEGEND
 

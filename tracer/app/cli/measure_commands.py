@@ -223,10 +223,10 @@ def _show_plan(p, show: tuple[str, ...], out) -> None:
     tables = {"summary": pd.DataFrame([summary]), "steps": p.steps, "usefulness": p.usefulness}
 
     def text(names: list[str]) -> str:
-        parts = [render_mapping(summary, width=out.width) if name == "summary" else render(tables[name], width=out.width)
-                 for name in names]
-        return "\n".join(parts) + wrap("\npredicted_effect is an estimate (model subspace held fixed); "
-                                       "verified_effect comes from retraining without the plan.\n" + CAUTIONS, out.width)
+        parts = [render_mapping(summary, width=out.width) if name == "summary"
+                 else render(tables[name], width=out.width) for name in names]
+        return "\n".join(parts) + wrap("\npredicted_effect is an estimate (model subspace held fixed); verified_effect "
+                                       "comes from retraining without the plan.\n" + CAUTIONS, out.width)
 
     emit(out, show, tables=PLAN_TABLES, default=PLAN_DEFAULT, main="steps", get=tables.get, text=text,
          document=lambda: {**summary, "removed_items": p.removed, "steps": to_records(p.steps),

@@ -8,7 +8,8 @@ import click
 
 from tracer.app.cli.corpus_commands import known_words
 from tracer.app.cli.group import cli, progress_on, say
-from tracer.app.cli.options import (MODELS, NEIGHBOURS_OPTION, counting_options, model_options, open_workspace, output_options,
+from tracer.app.cli.options import (MODELS, NEIGHBOURS_OPTION, counting_options, model_options, open_workspace,
+                                    output_options,
                                     slice_options, words_of, workspace_option)
 
 

@@ -143,7 +143,8 @@ class ModelChoice:
 
 DIM_OPTION = click.option("--dim", type=click.IntRange(min=1), default=100, show_default=True, help="Vector size.")
 MODEL_OPTIONS = [
-    click.option("--model", type=click.Choice(MODELS), default="ppmi-svd", show_default=True),
+    click.option("--model", type=click.Choice(MODELS), default="ppmi-svd", show_default=True,
+                 help="The embedding model to train."),
     DIM_OPTION,
     click.option("--seed", type=int, default=None,
                  help="Random seed (default: 0 for ppmi-svd and the statistics, 1 for word2vec)."),

@@ -6,7 +6,8 @@ import click
 
 from tracer.app.cli.views import chosen_tables, emit, show_option
 from tracer.app.cli.group import cli, progress_on
-from tracer.app.cli.options import (PER_DOC_OPTION, SEEDS_OPTION, TOP_DOCUMENTS_OPTION, counting_options, model_options, one_slice, one_slice_option,
+from tracer.app.cli.options import (PER_DOC_OPTION, SEEDS_OPTION, TOP_DOCUMENTS_OPTION, counting_options,
+                                    model_options, one_slice, one_slice_option,
                                     one_test, open_workspace, output_options, tests_file_option, workspace_option)
 from tracer.app.cli.texts import CAUTIONS, ESTIMATE_NOTE
 
@@ -50,9 +51,10 @@ def trace(workspace, tests_file, test_name, slice_spec, counts, model, top, per_
     if verify == 0 and "verification" in show:
         raise SettingError("there is no verification table without --verify K")
     ws = open_workspace(workspace)
+    settings = TraceSettings(top=top, candidates=candidates, verify=verify, rank_by=rank_by,
+                             passages_per_doc=per_doc, seeds=seeds, seed=model.seed)
     result = run_trace(ws, one_test(tests_file, test_name), model.name, one_slice(ws, slice_spec), counts,
-                       model.settings, TraceSettings(top=top, candidates=candidates, verify=verify, rank_by=rank_by,
-                                                     passages_per_doc=per_doc, seeds=seeds, seed=model.seed), progress=progress_on())
+                       model.settings, settings, progress=progress_on())
     default = DEFAULT if result.verification is not None else DEFAULT[:3]
     emit(out, show, tables=TABLES, default=default, main="documents", get=lambda name: _table(result, name),
                document=lambda: _document(result), text=lambda names: _text(result, names, out.width))
