@@ -276,3 +276,12 @@ def test_library_warnings_become_one_note_after_the_result_and_never_precede_an_
     debug = CliRunner().invoke(group, ["--debug", "fails"])
     assert debug.exit_code == 1 and "RuntimeWarning: divide by zero" in debug.stderr
     assert "Traceback" in debug.stderr and debug.stderr.splitlines()[-1] == "Error: bad setting"
+
+
+def test_progress_bars_go_to_stderr_with_counts_only_when_asked_or_on_a_terminal(small):
+    args = ["train", "-w", small["ws"], "--dim", "5", "--slice", "source=Gazette", "--slice", "source=Ledger"]
+    shown = invoke("--progress", *args)
+    assert shown.exit_code == 0 and "train:" in shown.stderr and "/2 [" in shown.stderr
+    assert "/2 [" not in shown.stdout
+    quiet = invoke(*args)  # the test runner's stderr is not a terminal
+    assert quiet.exit_code == 0 and "/2 [" not in quiet.stderr

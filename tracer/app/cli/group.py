@@ -27,10 +27,20 @@ def progress_on() -> bool:
     return bool(obj.get("progress")) or sys.stderr.isatty()
 
 
+def steps(items, desc: str, unit: str):
+    """``items`` with a progress bar on stderr (with counts and time left) when progress is on."""
+    from tqdm import tqdm
+    items = list(items)
+    return tqdm(items, desc=desc, unit=f" {unit}", disable=not progress_on() or len(items) < 2, leave=False,
+                file=sys.stderr)
+
+
 def say(text: str, *, always: bool = False) -> None:
-    """A status line on stderr (not with --quiet unless ``always``), so stdout stays a clean result."""
+    """A status line on stderr (not with --quiet unless ``always``), so stdout stays a clean result;
+    written through tqdm so that a progress bar on the screen is redrawn below it, not broken."""
     if always or not _root_obj().get("quiet"):
-        click.echo(text, err=True)
+        from tqdm import tqdm
+        tqdm.write(text, file=sys.stderr)
 
 
 def _warning_summary(caught: list[warnings.WarningMessage]) -> str:

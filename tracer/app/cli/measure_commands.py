@@ -6,7 +6,7 @@ from pathlib import Path
 
 import click
 
-from tracer.app.cli.group import cli, progress_on, say
+from tracer.app.cli.group import cli, progress_on, say, steps
 from tracer.app.cli.options import (DIM_OPTION, counting_options, load_tests, measuring_options, model_options,
                                     one_slice, one_slice_option, one_test, open_workspace, output_options,
                                     slice_options, test_names_option, tests_file_option, workspace_option)
@@ -83,7 +83,7 @@ CORRELATE_COLUMNS = ["view", "slice", "pearson_r", "pearson_ci_low", "pearson_ci
 @click.option("--test", "test_name", required=True, help="The test whose attribute sets score each word.")
 @click.option("--table", "table_file", type=click.Path(dir_okay=False, path_type=Path), required=True,
               help="CSV with a header: a word column and a numeric column.")
-@click.option("--word-column", default="word", show_default=True)
+@click.option("--word-column", default="word", show_default=True, help="The column of the CSV holding the words.")
 @click.option("--value-column", required=True, help="The numeric column to correlate with.")
 @slice_options
 @counting_options
@@ -107,7 +107,8 @@ def correlate(workspace, tests_file, test_name, table_file, word_column, value_c
     test = one_test(tests_file, test_name)
     table = read_word_values(table_file, word_column, value_column)
     pairs = [(train_embedding(ws, sl, model.name, counts, model.settings, save=False, progress=progress_on()),
-              count_slice(ws, sl.weights, counts, slice_name=sl.name)) for sl in slices.resolve(ws)]
+              count_slice(ws, sl.weights, counts, slice_name=sl.name))
+             for sl in steps(slices.resolve(ws), "correlate", "slices")]
     summary, points = run_correlate(pairs, test, table, n_boot=resamples, seed=model.seed)
     if plot is not None:
         scatter_plot(points, value_column, plot)
@@ -168,7 +169,8 @@ PLAN_DEFAULT = ["summary", "usefulness"]
 @tests_file_option()
 @click.option("--test", "test_name", required=True, help="The (two-target) test to bring down.")
 @click.option("--goal", type=click.FloatRange(min=0), required=True, help="Target bound on |d|.")
-@click.option("--unit", type=click.Choice(["document", "source"]), default="document", show_default=True)
+@click.option("--unit", type=click.Choice(["document", "source"]), default="document", show_default=True,
+              help="What the plan removes: single documents or whole sources.")
 @one_slice_option()
 @click.option("--max-steps", type=click.IntRange(min=1), default=500, show_default=True,
               help="At most this many documents (or sources) in the plan.")

@@ -7,7 +7,7 @@ from pathlib import Path
 import click
 
 from tracer.app.cli.corpus_commands import known_words
-from tracer.app.cli.group import cli, progress_on, say
+from tracer.app.cli.group import cli, progress_on, say, steps
 from tracer.app.cli.options import (MODELS, NEIGHBOURS_OPTION, counting_options, model_options, open_workspace,
                                     output_options,
                                     slice_options, words_of, workspace_option)
@@ -29,7 +29,7 @@ def train(workspace, slices, counts, model, out):
     from tracer.provenance.models import model_folder, train_embedding
     ws = open_workspace(workspace)
     rows = []
-    for sl in slices.resolve(ws):
+    for sl in steps(slices.resolve(ws), "train", "slices"):
         say(f"training {model.name} on slice {sl.name} ({sl.n_documents} documents, {sl.n_tokens} tokens)")
         emb = train_embedding(ws, sl, model.name, counts, model.settings, progress=progress_on())
         rows.append({"model": model.name, "slice": sl.name, "documents": sl.n_documents, "tokens": sl.n_tokens,
