@@ -8,6 +8,7 @@ import csv
 import gzip
 import io
 import json
+import warnings
 from pathlib import Path
 
 import click
@@ -258,6 +259,11 @@ def warning_group():
         click.echo("result")
 
     @group.command()
+    def deprecated():
+        warnings.warn("an API for programmers will change", DeprecationWarning)
+        click.echo("result")
+
+    @group.command()
     def fails():
         np.log(np.zeros(1))
         raise SettingError("bad setting")
@@ -269,10 +275,12 @@ def test_library_warnings_become_one_note_after_the_result_and_never_precede_an_
     group = warning_group()
     ok = CliRunner().invoke(group, ["fine"])
     assert ok.exit_code == 0 and ok.stdout == "result\n"
-    assert ok.stderr == ("Note: the numerical libraries warned 1 time (RuntimeWarning: divide by zero encountered "
-                         "in log); --debug shows where.\n")
+    assert ok.stderr == ("Note: libraries warned 1 time (RuntimeWarning: divide by zero encountered in log); "
+                         "--debug shows where.\n")
     failed = CliRunner().invoke(group, ["fails"])
     assert failed.exit_code == 1 and failed.stderr == "Error: bad setting\n"
+    quiet = CliRunner().invoke(group, ["deprecated"])
+    assert quiet.exit_code == 0 and quiet.stderr == ""
     debug = CliRunner().invoke(group, ["--debug", "fails"])
     assert debug.exit_code == 1 and "RuntimeWarning: divide by zero" in debug.stderr
     assert "Traceback" in debug.stderr and debug.stderr.splitlines()[-1] == "Error: bad setting"

@@ -89,6 +89,12 @@ def test_long_text_is_shortened_into_the_room_left_and_short_ids_are_not():
     assert narrow[0].split() == ["doc_id"]
 
 
+def test_a_shortened_path_keeps_the_file_name():
+    df = pd.DataFrame({"input": ["/tmp/" + "deep/" * 20 + "news.jsonl.gz"], "documents": [3]})
+    cell = table_text(df).splitlines()[1].split()[0]
+    assert cell.startswith("…") and cell.endswith("/news.jsonl.gz") and len(cell) <= 40
+
+
 def test_prose_wraps_to_the_width():
     text = wrap("word " * 60)
     assert all(len(line) <= TERMINAL_WIDTH for line in text.splitlines()) and len(text.splitlines()) > 1

@@ -9,7 +9,7 @@ The terminal rules, one for every command:
   given on the command line, in the terminal and in CSV alike (JSON keeps the list);
 - missing values (None, NaN, NA) print empty;
 - a table fits ``width`` columns (100 unless asked for every column): long text is shortened
-  (ending in an ellipsis), columns that do not fit are left off from the right (commands put
+  (ending in an ellipsis; a file path keeps its end instead), columns that do not fit are left off from the right (commands put
   the columns that matter first), and a line under the table names them;
 - prose (notes, legends, cautions) is wrapped to the same width.
 """
@@ -105,7 +105,12 @@ def _column_cells(col: pd.Series) -> tuple[list[str], bool]:
 
 
 def _shorten(text: str, width: int) -> str:
-    return text if len(text) <= width else text[: width - 1] + ELLIPSIS
+    """``text`` cut to ``width`` with an ellipsis; a file path keeps its end (the file's name)."""
+    if len(text) <= width:
+        return text
+    if "/" in text and " " not in text:
+        return ELLIPSIS + text[len(text) - width + 1:]
+    return text[: width - 1] + ELLIPSIS
 
 
 def wrap(text: str, width: int | None = TERMINAL_WIDTH) -> str:

@@ -43,6 +43,10 @@ def say(text: str, *, always: bool = False) -> None:
         tqdm.write(text, file=sys.stderr)
 
 
+# warnings meant for programmers (an API that will change), not about the user's results
+FOR_PROGRAMMERS = (DeprecationWarning, PendingDeprecationWarning, FutureWarning)
+
+
 def _warning_summary(caught: list[warnings.WarningMessage]) -> str:
     kinds: dict[str, int] = {}
     for w in caught:
@@ -50,14 +54,15 @@ def _warning_summary(caught: list[warnings.WarningMessage]) -> str:
         kinds[key] = kinds.get(key, 0) + 1
     listed = "; ".join(f"{k} ({n}x)" if n > 1 else k for k, n in list(kinds.items())[:3])
     more = f"; and {len(kinds) - 3} more kinds" if len(kinds) > 3 else ""
-    return (f"Note: the numerical libraries warned {len(caught)} time{'s' * (len(caught) > 1)} "
+    return (f"Note: libraries warned {len(caught)} time{'s' * (len(caught) > 1)} "
             f"({listed}{more}); --debug shows where.")
 
 
 class TracerGroup(click.Group):
     """Runs a command so that the user sees one ``Error: ...`` line and exit code 1 for a library
     error (``--debug`` adds the traceback), and library warnings only as one summary note after a
-    result (raw with ``--debug``; dropped when the command fails, so the error line comes first)."""
+    result (raw with ``--debug``; dropped when the command fails, so the error line comes first;
+    deprecation warnings, meant for programmers, only with ``--debug``)."""
 
     def invoke(self, ctx):
         with warnings.catch_warnings(record=True) as caught:
@@ -72,11 +77,10 @@ class TracerGroup(click.Group):
             except KeyboardInterrupt:
                 click.echo("Interrupted; the workspace is left as it was before this command.", err=True)
                 sys.exit(130)
-        if caught:
-            if (ctx.obj or {}).get("debug"):
-                _show_raw(caught)
-            else:
-                say(_warning_summary(caught), always=True)
+        if (ctx.obj or {}).get("debug"):
+            _show_raw(caught)
+        elif any(not issubclass(w.category, FOR_PROGRAMMERS) for w in caught):
+            say(_warning_summary([w for w in caught if not issubclass(w.category, FOR_PROGRAMMERS)]), always=True)
         return result
 
 
