@@ -54,7 +54,8 @@ def test_plan_that_cannot_reach_its_goal_says_the_best_value(demo_ws):
 
 def test_plan_cli_writes_the_drop_list_and_the_filtered_corpus(demo_ws, tmp_path):
     res = CliRunner().invoke(cli, ["plan", "-w", str(demo_ws.path), "--tests", str(TESTS_FILE), "--test",
-                                   "tribune_mix", "--goal", "0.5", "--unit", "source", "-o", str(tmp_path / "drop.txt"),
+                                   "tribune_mix", "--goal", "0.5", "--unit", "source",
+                                   "--drop-list", str(tmp_path / "drop.txt"),
                                    "--write-corpus", str(tmp_path / "kept.jsonl"), "--format", "json"])
     assert res.exit_code == 0, res.output
     out = json.loads(res.stdout)

@@ -1,6 +1,5 @@
 import json
 import math
-from pathlib import Path
 
 import pytest
 from click.testing import CliRunner
@@ -12,9 +11,6 @@ from tracer.provenance.counts import count_slice
 from tracer.corpus.slices import slice_from_spec
 from tracer.corpus.workspace import Workspace
 from tracer.core.pmi import Marginals
-
-README = Path(__file__).resolve().parents[2] / "README.md"
-
 
 def run(*args, ok=True):
     result = CliRunner().invoke(cli, [str(a) for a in args], catch_exceptions=False)
@@ -125,11 +121,3 @@ def test_rejects_are_reported(tmp_path):
 def test_debug_shows_the_traceback(tmp_path):
     res = CliRunner().invoke(cli, ["--debug", "info", "-w", str(tmp_path / "none")])
     assert res.exit_code == 1 and "Traceback" in res.stderr
-
-
-def test_every_command_has_help_with_an_example_and_is_in_the_readme():
-    readme = README.read_text(encoding="utf-8")
-    for name, command in cli.commands.items():
-        res = run(name, "--help")
-        assert "Example:" in res.stdout, name
-        assert f"tracer {name}" in readme, f"README does not show tracer {name}"

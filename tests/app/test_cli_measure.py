@@ -39,8 +39,10 @@ def test_measure_json_has_the_documented_keys(demo_dir):
 
 
 def test_measure_table_states_conventions_and_cautions(demo_dir):
-    text = run("measure", "-w", demo_dir, "--tests", TESTS, "--test", "control_groups", "--slice", "all",
-               "--bootstrap", "2").stdout
+    out = run("measure", "-w", demo_dir, "--tests", TESTS, "--test", "control_groups", "--slice", "all",
+              "--bootstrap", "2").stdout
+    assert max(len(line) for line in out.splitlines()) <= 100
+    text = " ".join(out.split())  # the legend is wrapped to the terminal
     assert "population standard deviation (n)" in text and "one-sided permutation" in text
     assert "2 document-bootstrap replicates" in text and "0.2 small, 0.5 medium, 0.8 large" in text
     assert "not proof of discrimination" in text
@@ -67,7 +69,7 @@ def test_measure_errors(demo_dir, tmp_path):
 def test_correlate_on_the_invented_occupation_table(demo_dir, tmp_path):
     out = json.loads(run("correlate", "-w", demo_dir, "--tests", TESTS, "--test", "occupations", "--table",
                          ROOT / "corpora_demo" / "occupation_shares.csv", "--word-column", "occupation",
-                         "--value-column", "share_women", "--slice", "all", "--bootstrap", "200",
+                         "--value-column", "share_women", "--slice", "all", "--resamples", "200",
                          "--plot", tmp_path / "s.png", "--format", "json").stdout)
     views = {r["view"]: r for r in out}
     assert set(views) == {"embedding", "pmi"}

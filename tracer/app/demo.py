@@ -11,7 +11,7 @@ from typing import Callable
 import pandas as pd
 
 from tracer.errors import InputError
-from tracer.app.output import render
+from tracer.app.output import render, wrap
 from tracer.provenance.vectors_io import write_word2vec_format
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -68,9 +68,9 @@ def run_demo(workspace: str | Path, *, progress: bool = False,
     for name in exp.trace_tests:
         src = _table(folder, f"trace_{name}_sources")
         ver = _table(folder, f"trace_{name}_verification")
-        out.append(f"Trace of {name}: the source that carries it most is {src.source.iloc[0]} "
-                   f"({src.token_share.iloc[0]:.0%} of the tokens); predicted vs retrained change, "
-                   f"Pearson r {ver.pearson_r.iloc[0]:.3f} over {len(ver)} retrains.\n")
+        out.append(wrap(f"Trace of {name}: the source that carries it most is {src.source.iloc[0]} "
+                        f"({src.token_share.iloc[0]:.0%} of the tokens); predicted vs retrained change, "
+                        f"Pearson r {ver.pearson_r.iloc[0]:.3f} over {len(ver)} retrains."))
     for name in exp.drift_tests:
         trend = _table(folder, f"drift_{name}_trend").iloc[0]
         ch = _table(folder, f"drift_{name}_changes")
@@ -79,20 +79,26 @@ def run_demo(workspace: str | Path, *, progress: bool = False,
         if overall is not None:
             line += (f"; first to last period {overall.total:+.3f}, of which the mix of sources "
                      f"{overall.mix_part:+.3f} and change within the sources {overall.within_part:+.3f}")
-        out.append(line + ".\n")
+        out.append(wrap(line + "."))
     out.append("\nNearest neighbours (whole archive):\n")
     for word in ("harbour", "wheat", "nurse"):
         for name, emb in (("ppmi-svd", ppmi), ("word2vec", w2v)):
             out.append(f"  {word:8s} {name:9s} {', '.join(w for w, _ in emb.neighbours(word, 6))}\n")
     seconds = time.perf_counter() - t0
-    out.append(
-        f"\nWrote the workspace to {workspace}: run {result.run_id} in {folder} "
-        f"(report {folder / 'report.html'}, tables in {folder / 'tables'}), models in {ws.models_dir}, "
-        f"and {export_path} in word2vec text format.\n"
-        f"Try:  tracer info -w {workspace} --sources\n"
-        f"      tracer trace -w {workspace} --tests {DEMO_EXPERIMENT.parent / 'demo_tests.toml'} --test gazette_outlet\n"
-        f"      tracer neighbours -w {workspace} captain,harvest --model word2vec\n"
-        f"Done in {seconds:.1f} s.\n"
-        "Caution: these are invented data; an association in an embedding is not proof of discrimination, "
-        "word lists encode choices, and small corpora give unstable numbers.\n")
+    out.append(_closing(workspace, folder, ws.models_dir, export_path, result.run_id, seconds))
     return DemoResult(workspace, folder, "".join(out), seconds)
+
+
+def _closing(workspace: Path, folder: Path, models_dir: Path, export_path: Path, run_id: str, seconds: float) -> str:
+    """Where everything went, one path a line, then what to try next."""
+    return (f"\nWrote the workspace to {workspace}.\n"
+            f"Report:  {folder / 'report.html'}\n"
+            f"Tables:  {folder / 'tables'}\n"
+            f"Models:  {models_dir}\n"
+            f"Export:  {export_path} (word2vec text format)\n"
+            f"Try:  tracer info -w {workspace} --sources\n"
+            f"      tracer trace -w {workspace} --tests {DEMO_EXPERIMENT.parent / 'demo_tests.toml'} --test gazette_outlet\n"
+            f"      tracer neighbours -w {workspace} captain,harvest --model word2vec\n"
+            f"Done in {seconds:.1f} s (run {run_id}).\n"
+            + wrap("Caution: these are invented data; an association in an embedding is not proof of discrimination, "
+                   "word lists encode choices, and small corpora give unstable numbers."))

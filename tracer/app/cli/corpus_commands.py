@@ -1,0 +1,164 @@
+"""Commands on the stored corpus: ingest, info, pmi, passages."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import click
+
+from tracer.app.cli.group import cli, progress_on, say
+from tracer.app.cli.options import (PER_DOC_OPTION, TOP_DOCUMENTS_OPTION, counting_options, one_slice,
+                                    one_slice_option, open_workspace, option_group, output_options, slice_options,
+                                    words_of, workspace_option)
+
+FIELD_OPTIONS = [
+    click.option("--text-field", default="text", show_default=True, help="Field holding the text."),
+    click.option("--id-field", default="id", show_default=True, help="Field holding the document id."),
+    click.option("--source-field", default="source", show_default=True, help="Field holding the source."),
+    click.option("--time-field", default=None,
+                 help="Field holding the time (required when named). Default: time, else date, if present."),
+    click.option("--title-field", default="title", show_default=True, help="Field holding the title."),
+]
+
+
+def _field_map(v: dict) -> dict:
+    from tracer.corpus.ingest import FieldMap
+    return {"fields": FieldMap(text=v["text_field"], id=v["id_field"], source=v["source_field"],
+                               time=v["time_field"], title=v["title_field"])}
+
+
+TOKENIZER_OPTIONS = [
+    click.option("--keep-case", is_flag=True, help="Do not lower-case (new workspaces only)."),
+    click.option("--normalization", type=click.Choice(["NFKC", "NFC", "NFD", "NFKD", "none"]), default=None,
+                 help="Unicode normal form before tokenizing (new workspaces only; default NFKC)."),
+]
+
+
+def _tokenizer(v: dict) -> dict:
+    from tracer.corpus.tokenize import TokenizerSettings
+    if not (v["keep_case"] or v["normalization"]):
+        return {"tokenizer": None}  # the workspace's own settings (or the defaults for a new one)
+    return {"tokenizer": TokenizerSettings(lowercase=not v["keep_case"], normalization=v["normalization"] or "NFKC")}
+
+
+@cli.command()
+@click.argument("inputs", nargs=-1, required=True, type=click.Path(path_type=Path))
+@workspace_option()
+@option_group(FIELD_OPTIONS, _field_map)
+@click.option("--source", "default_source", default=None,
+              help="Source of records that name none (default: the input file's name).")
+@click.option("--input-format", type=click.Choice(["jsonl", "csv", "txt", "parquet"]), default=None,
+              help="Format of the inputs (default: from the file name).")
+@click.option("--strict", is_flag=True, help="Fail on the first rejected record instead of skipping it.")
+@option_group(TOKENIZER_OPTIONS, _tokenizer)
+@output_options
+def ingest(inputs, workspace, fields, default_source, input_format, strict, tokenizer, out):
+    """Read corpus files (JSONL, JSONL.gz, CSV, .txt folders, Parquet) into a workspace.
+
+    Running it again on the same file changes nothing; a new file is appended.
+
+    Example:  tracer ingest news.jsonl.gz -w work/
+    """
+    import pandas as pd
+
+    from tracer.corpus.ingest import ingest as run_ingest
+    summary = run_ingest(workspace, inputs, fields=fields, tokenizer=tokenizer, input_format=input_format,
+                         default_source=default_source, strict=strict, progress=progress_on())
+    out.table(pd.DataFrame([{"input": i.path, "status": i.status, "records": i.records, "documents": i.documents,
+                             "tokens": i.tokens, "rejected": i.rejects} for i in summary.inputs]))
+    say(f"workspace {summary.workspace}: {summary.documents_total} documents, "
+        f"{summary.tokens_total} tokens, {summary.vocabulary_total} word types")
+    if summary.rejects:
+        reasons = ", ".join(f"{k}: {v}" for k, v in summary.reject_reasons.items())
+        say(f"{summary.rejects} records skipped ({reasons}); see {summary.rejects_file}")
+
+
+@cli.command()
+@workspace_option()
+@click.option("--sources", "show_sources", is_flag=True, help="One row per source instead of the summary.")
+@output_options
+def info(workspace, show_sources, out):
+    """Documents, tokens, vocabulary, sources and time span of a workspace.
+
+    Example:  tracer info -w work/ --sources
+    """
+    from tracer.app.output import render_mapping
+    ws = open_workspace(workspace)
+    if show_sources:
+        out.table(ws.sources_table())
+    else:
+        out.write(render_mapping(ws.summary(), out.fmt, width=out.width))
+
+
+def known_words(words: list[str], vocabulary, where: str) -> tuple[list[str], list[str]]:
+    """(the words in ``vocabulary``, a note naming the others) for commands that can go on without
+    some of the words they were given; none known is the library's error to raise."""
+    kept = [w for w in words if w in vocabulary]
+    missing = [w for w in words if w not in vocabulary]
+    if not kept:
+        return words, []
+    return kept, [f"skipped, not in {where}: {', '.join(missing)}"] if missing else []
+
+
+CONTEXT_WORDS_OPTION = click.option("--with", "contexts", required=True,
+                                    help="Comma-separated context words (in the window of WORD).")
+
+
+@cli.command()
+@click.argument("word")
+@CONTEXT_WORDS_OPTION
+@workspace_option()
+@counting_options
+@slice_options
+@click.option("--alpha", type=click.FloatRange(0, 1, min_open=True), default=0.75, show_default=True,
+              help="Context-distribution smoothing of PMI (1: none).")
+@click.option("--shift", type=click.FloatRange(min=1), default=1.0, show_default=True,
+              help="k of shifted PPMI, max(PMI - log k, 0).")
+@output_options
+def pmi(word, contexts, workspace, counts, slices, alpha, shift, out):
+    """Window counts, marginals, PMI and PPMI of WORD with each context word, per slice.
+
+    Example:  tracer pmi -w work/ nurse --with he,she,doctor --by source --format json
+    """
+    from tracer.analysis.pmi_table import pmi_table
+    ws = open_workspace(workspace)
+    kept, notes = known_words(words_of(contexts), ws.vocab.index, "the corpus at all")
+    df = pmi_table(ws, word, kept, slices.resolve(ws), counts, alpha=alpha, shift=shift, progress=progress_on())
+    if out.fmt == "json":
+        df = df.drop(columns=["note"]).assign(note=df["note"].replace("", None))
+    out.table(df, notes=notes)
+
+
+@cli.command()
+@click.argument("word")
+@CONTEXT_WORDS_OPTION
+@workspace_option()
+@one_slice_option()
+@counting_options
+@TOP_DOCUMENTS_OPTION
+@PER_DOC_OPTION
+@output_options
+def passages(word, contexts, workspace, slice_spec, counts, top, per_doc, out):
+    """Passages (KWIC) where WORD co-occurs with the context words, from the documents with most such pairs.
+
+    Example:  tracer passages -w work/ velmari --with agony,evil --top 10
+    """
+    from tracer.analysis.trace import pair_passages
+    from tracer.core.counting import build_vocab
+    ws = open_workspace(workspace)
+    sl = one_slice(ws, slice_spec)
+    # the slice's vocabulary alone (no counting) says which context words can be looked for
+    vocab = build_vocab(ws.tokens, ws.doc_offsets, sl.weights, ws.vocab.words, counts)
+    kept, notes = known_words([w.lower() for w in words_of(contexts)], vocab.index,
+                              f"the vocabulary of slice {sl.name} (min count {counts.min_count})")
+    df = pair_passages(ws, word.lower(), kept, sl, counts, top=top, per_doc=per_doc)
+    show_passages(df, out, notes=notes)
+
+
+def show_passages(df, out, *, notes=()) -> None:
+    """Passages: in table format a heading line and the marked text per passage; else the table."""
+    if out.fmt != "table":
+        out.table(df, notes=notes)
+        return
+    from tracer.app.output import passages_text, wrap
+    out.write(passages_text(df, width=out.width) + "".join(wrap(f"Note: {n}", out.width) for n in notes))

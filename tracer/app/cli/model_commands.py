@@ -1,0 +1,100 @@
+"""Commands on stored models: train, models, export, neighbours."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import click
+
+from tracer.app.cli.corpus_commands import known_words
+from tracer.app.cli.group import cli, progress_on, say, steps
+from tracer.app.cli.options import (MODELS, NEIGHBOURS_OPTION, counting_options, model_options, open_workspace,
+                                    output_options,
+                                    slice_options, words_of, workspace_option)
+
+
+@cli.command()
+@workspace_option()
+@slice_options
+@counting_options
+@model_options
+@output_options
+def train(workspace, slices, counts, model, out):
+    """Train PPMI-SVD or word2vec embeddings on each slice and store them in the workspace.
+
+    Example:  tracer train -w work/ --model ppmi-svd --by time:10y
+    """
+    import pandas as pd
+
+    from tracer.provenance.models import model_folder, train_embedding
+    ws = open_workspace(workspace)
+    rows = []
+    for sl in steps(slices.resolve(ws), "train", "slices"):
+        say(f"training {model.name} on slice {sl.name} ({sl.n_documents} documents, {sl.n_tokens} tokens)")
+        emb = train_embedding(ws, sl, model.name, counts, model.settings, progress=progress_on())
+        rows.append({"model": model.name, "slice": sl.name, "documents": sl.n_documents, "tokens": sl.n_tokens,
+                     "words": len(emb.words), "dim": emb.dim, "folder": str(model_folder(ws, model.name, sl.name))})
+    out.table(pd.DataFrame(rows))
+
+
+@cli.command()
+@workspace_option()
+@output_options
+def models(workspace, out):
+    """List the models stored in a workspace.
+
+    Example:  tracer models -w work/
+    """
+    from tracer.provenance.models import list_models
+    out.table(list_models(open_workspace(workspace)))
+
+
+STORED_MODEL_OPTIONS = [
+    click.option("--model", type=click.Choice(MODELS), default="ppmi-svd", show_default=True,
+                 help="The stored model to use."),
+    click.option("--slice", "slice_name", default="all", show_default=True, help="Slice the model was trained on."),
+]
+
+
+def _stored_model(ws, model: str, slice_name: str):
+    from tracer.corpus.slices import slice_from_spec
+    from tracer.provenance.models import load_embedding
+    return load_embedding(ws, model, slice_from_spec(ws, slice_name).name)
+
+
+@cli.command()
+@workspace_option()
+@STORED_MODEL_OPTIONS[0]
+@STORED_MODEL_OPTIONS[1]
+@click.option("-o", "--out", type=click.Path(dir_okay=False, path_type=Path), required=True,
+              help="File to write (the result).")
+@click.option("--binary", is_flag=True, help="word2vec binary format instead of text.")
+def export(workspace, model, slice_name, out, binary):
+    """Write a stored model in the word2vec format that gensim and other tools read.
+
+    Example:  tracer export -w work/ --model ppmi-svd --slice all -o vectors.txt
+    """
+    from tracer.provenance.vectors_io import write_word2vec_format
+    emb = _stored_model(open_workspace(workspace), model, slice_name)
+    write_word2vec_format(emb, out, binary=binary)
+    say(f"wrote {len(emb.words)} vectors of {emb.dim} dimensions to {out}")
+
+
+@cli.command()
+@click.argument("words")
+@workspace_option()
+@STORED_MODEL_OPTIONS[0]
+@STORED_MODEL_OPTIONS[1]
+@NEIGHBOURS_OPTION
+@output_options
+def neighbours(words, workspace, model, slice_name, n_neighbours, out):
+    """Nearest words by cosine similarity in a stored model (comma-separated WORDS).
+
+    Example:  tracer neighbours -w work/ harbour,wheat --model word2vec
+    """
+    import pandas as pd
+    emb = _stored_model(open_workspace(workspace), model, slice_name)
+    kept, notes = known_words(words_of(words), emb.index, f"the {model} model of slice {slice_name}")
+    rows = [{"word": w, "rank": r + 1, "neighbour": n, "cosine": s}
+            for w in kept for r, (n, s) in enumerate(emb.neighbours(w, n_neighbours))]
+    out.table(pd.DataFrame(rows), notes=notes)

@@ -1,0 +1,59 @@
+"""Commands on experiments and their runs: run, report, demo."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import click
+
+from tracer.app.cli.group import cli, progress_on, say
+from tracer.app.cli.options import workspace_option
+
+
+@cli.command()
+@click.argument("experiment", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("--open-report", is_flag=True, help="Print only the report's path (for scripts).")
+def run(experiment, open_report):
+    """Run an experiment file: ingest (if needed), measure, trace, drift, report.
+
+    Example:  tracer run configs/demo.toml
+    """
+    from tracer.app.pipeline import run_experiment
+    from tracer.provenance.experiment import load_experiment
+    result = run_experiment(load_experiment(experiment), progress=progress_on(), say=say,
+                            command=f"tracer run {experiment}")
+    report_path = result.folder / "report.html"
+    if open_report:
+        click.echo(str(report_path))
+        return
+    click.echo(f"{'Reused' if result.reused else 'Stored'} run {result.run_id} in {result.folder}\n"
+               f"Report: {report_path}\nTables: {result.folder / 'tables'}")
+
+
+@cli.command()
+@workspace_option()
+@click.option("--run", "run_id", default="latest", show_default=True, help="Run id, or latest.")
+@click.option("-o", "--out", type=click.Path(dir_okay=False, path_type=Path), required=True,
+              help="Where to write the HTML report (the result).")
+def report(workspace, run_id, out):
+    """Write the self-contained HTML report of a stored run.
+
+    Example:  tracer report -w tracer-demo --run latest -o report.html
+    """
+    from tracer.app.pipeline import find_run
+    from tracer.app.report.html import write_report
+    folder = find_run(workspace, run_id)
+    write_report(folder, out)
+    say(f"wrote the report of run {folder.name} to {out}")
+
+
+@cli.command()
+@workspace_option(required=False)
+def demo(workspace):
+    """Run the whole path on the bundled demo archive and say where the results are.
+
+    Example:  tracer demo -w demo-work
+    """
+    from tracer.app.demo import run_demo
+    result = run_demo(workspace or Path("tracer-demo"), progress=progress_on(), say=say)
+    click.echo(result.text, nl=False)
