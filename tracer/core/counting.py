@@ -92,6 +92,33 @@ class CountSettings:
         return dataclasses.asdict(self)
 
 
+# ---- window semantics --------------------------------------------------------------------------
+# The pairs a window makes are walked in three places, each shaped by what it produces: the
+# counter kernels (each pair once, i < j, as a code in a shared array), the per-document probe
+# rows of tracer.analysis.document_counts (each probe occurrence's neighbours on both sides, as
+# sparse triplets) and tracer.core._kernels.linear_scores (weighted sums, with an edge correction
+# instead of a per-token neighbour weight). One numba loop yielding neighbours to all three would
+# need a callback in the innermost loop or a different order of summation (other last digits),
+# so the loops stay separate; the weights they use are defined here only, and a test checks the
+# three walks against each other (tests/analysis/test_document_counts.py).
+
+def cumulative_weights(distance_weights: np.ndarray) -> np.ndarray:
+    """``cum[k]`` = the summed weight of distances 1..k, shape (window + 1,), ``cum[0] = 0``.
+
+    A token with k kept tokens on one side within its document has neighbours of weight
+    ``cum[min(k, window)]`` on that side.
+    """
+    return np.concatenate([[0.0], np.cumsum(distance_weights)])
+
+
+def neighbour_weight(before, after, cum: np.ndarray):
+    """Summed distance weight of a token's window neighbours, given how many kept tokens of its
+    document lie ``before`` and ``after`` it (arrays broadcast): what each occurrence adds to its
+    word's row sum, per unit of document weight."""
+    window = len(cum) - 1
+    return cum[np.minimum(window, before)] + cum[np.minimum(window, after)]
+
+
 @dataclasses.dataclass(frozen=True)
 class ModelVocab:
     """The words a count or a model works in, most frequent first.
