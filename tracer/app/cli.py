@@ -396,7 +396,8 @@ def correlate(ctx, workspace, tests_file, test_name, table_file, word_column, va
     Example:  tracer correlate -w work/ --tests configs/demo_tests.toml --test occupations
               --table corpora_demo/occupation_shares.csv --word-column occupation --value-column share_women
     """
-    from tracer.analysis.correlate import correlate as run_correlate, read_word_values, scatter_plot
+    from tracer.analysis.correlate import correlate as run_correlate, scatter_plot
+    from tracer.provenance.tables import read_word_values
     from tracer.corpus.slices import resolve_slices
     from tracer.provenance.models import train_embedding
     ws = _open(workspace)
