@@ -20,11 +20,13 @@ ROOT = Path(__file__).resolve().parents[2]
 TESTS = load_tests(ROOT / "configs" / "demo_tests.toml")
 
 
-def _attribution(ws, spec="source=Gazette", test="gazette_outlet", settings=CountSettings()):
+def _attribution(ws, spec="source=Gazette", weights=None, settings=CountSettings()):
+    """The attribution of the gazette test in the PPMI-SVD model of a slice (or of other weights)."""
     sl = slice_from_spec(ws, spec)
-    c = count_slice(ws, sl.weights, settings)
+    weights = sl.weights if weights is None else weights
+    c = count_slice(ws, weights, settings)
     emb = embedding_from_counts(ws, sl, c, PpmiSvdSettings())
-    return sl, c, emb, Attribution(ws, sl.weights, c, emb, TESTS[test], alpha=0.75, shift=1, eig_power=0.5)
+    return sl, c, emb, Attribution(ws, weights, c, emb, TESTS["gazette_outlet"], alpha=0.75, shift=1, eig_power=0.5)
 
 
 def weat_by_hand(vectors: np.ndarray, index: dict, sets: dict) -> tuple[float, float]:
@@ -75,18 +77,14 @@ def test_exact_removal_equals_the_sparse_ppmi_of_a_recount(demo_ws):
 
 def test_first_order_values_equal_a_recount_without_the_document(demo_ws):
     """Exact leave-one-out PMI against a brute-force recount with the document's weight set to 0."""
-    sl = slice_from_spec(demo_ws, "source=Gazette")
-    s = CountSettings()
-    c = count_slice(demo_ws, sl.weights, s)
-    emb = embedding_from_counts(demo_ws, sl, c, PpmiSvdSettings())
-    attr = Attribution(demo_ws, sl.weights, c, emb, TESTS["gazette_outlet"], alpha=0.75, shift=1, eig_power=0.5)
+    sl, c, _, attr = _attribution(demo_ws)
     full, loo = attr.leave_one_out_pmi("velmari", "agony")
     moved = np.flatnonzero(np.isfinite(loo) & (np.abs(loo - full) > 0))[:4]
     assert len(moved) == 4
     for d in moved:
         w = sl.weights.copy()
         w[d] = 0
-        rc = count_slice(demo_ws, w, s, vocab=c.vocab)
+        rc = count_slice(demo_ws, w, CountSettings(), vocab=c.vocab)
         m = Marginals.of(rc.matrix, 0.75)
         i, j = c.vocab.index["velmari"], c.vocab.index["agony"]
         expected = np.log(rc.matrix[i, j]) - np.log(m.rows[i]) - 0.75 * np.log(m.cols[j]) + m.log_z
@@ -99,11 +97,7 @@ def test_one_pass_linear_score_equals_the_per_document_matrices(demo_ws, weighti
     matrices (C^d of the probe rows, r^d), on resampling-style weights 0, 1, 2."""
     rng = np.random.default_rng(3)
     w = rng.integers(0, 3, demo_ws.n_documents).astype(float)
-    s = CountSettings(weighting=weighting)
-    c = count_slice(demo_ws, w, s)
-    sl = slice_from_spec(demo_ws, "all")
-    emb = embedding_from_counts(demo_ws, sl, c, PpmiSvdSettings())
-    attr = Attribution(demo_ws, w, c, emb, TESTS["gazette_outlet"], alpha=0.75, shift=1, eig_power=0.5)
+    _, _, _, attr = _attribution(demo_ws, "all", w, CountSettings(weighting=weighting))
     for which in ("gap", "effect_size"):
         g = attr.d_quantity_d_ppmi(which)
         act = sp.coo_array(attr.probe_ppmi)
@@ -129,10 +123,7 @@ def test_one_pass_linear_score_equals_the_per_document_matrices(demo_ws, weighti
 
 
 def test_batched_exact_rerank_equals_one_document_at_a_time(demo_ws):
-    sl = slice_from_spec(demo_ws, "all")
-    c = count_slice(demo_ws, sl.weights, CountSettings())
-    emb = embedding_from_counts(demo_ws, sl, c, PpmiSvdSettings())
-    attr = Attribution(demo_ws, sl.weights, c, emb, TESTS["gazette_outlet"], alpha=0.75, shift=1, eig_power=0.5)
+    _, _, _, attr = _attribution(demo_ws, "all")
     docs = np.argsort(-np.abs(attr.linear("gap")))[:7]
     one = [attr.exact([d]) for d in docs]
     for max_cells in (1, 4_000_000):  # one document per batch, and all in one
@@ -145,10 +136,7 @@ def test_batched_exact_rerank_equals_one_document_at_a_time(demo_ws):
 @pytest.mark.parametrize("which", ["gap", "effect_size"])
 def test_gradient_matches_central_differences(demo_ws, which):
     # checking an analytic derivative against central differences is common practice
-    sl = slice_from_spec(demo_ws, "source=Gazette")
-    c = count_slice(demo_ws, sl.weights, CountSettings())
-    emb = embedding_from_counts(demo_ws, sl, c, PpmiSvdSettings())
-    attr = Attribution(demo_ws, sl.weights, c, emb, TESTS["gazette_outlet"], alpha=0.75, shift=1, eig_power=0.5)
+    _, _, _, attr = _attribution(demo_ws)
     G = attr.d_quantity_d_vectors(which)
     rng = np.random.default_rng(5)
     for _ in range(6):

@@ -36,9 +36,9 @@ from tracer.core.threads import ThreadPool, default_workers
 
 __all__ = ["Attribution", "Effect", "Stream", "kept_stream", "document_probe_rows", "document_row_sums"]
 
-# The linear pass reads every token once; below this many a second thread costs about what it
-# saves (waking it), so the pass runs on one. A round figure above the break-even measured with
-# tests/benchmarks/bench_trace.py, not the break-even itself.
+# The linear pass reads every token once, so it is short; a second thread pays only when the pass
+# is long enough to cover waking it. Below this many tokens read it runs on one thread. A round
+# figure above where a second thread stopped gaining on a 2-core machine, not a measured break-even.
 LINEAR_THREADS_FROM = 4_000_000
 
 
