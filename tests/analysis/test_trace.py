@@ -5,21 +5,13 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-import scipy.sparse as sp
 from click.testing import CliRunner
 
 from tests.conftest import LEE_SOURCES, lee_documents, write_jsonl
 from tracer.app.cli import cli
-from tracer.core.counting import CountSettings
-from tracer.provenance.counts import count_slice
 from tracer.corpus.ingest import ingest
 from tracer.corpus.slices import slice_from_spec
 from tracer.corpus.workspace import Workspace
-from tracer.core.ppmi_svd import PpmiSvdSettings
-from tracer.provenance.models import embedding_from_counts
-from tracer.analysis import influence as attribute
-from tracer.analysis.influence import Attribution
-from tracer.core.pmi import Marginals
 from tracer.provenance.specs import load_tests
 from tracer.core.association import AssociationTest
 from tracer.analysis.trace import TraceSettings, pair_passages, trace
@@ -75,92 +67,6 @@ def test_passages_quote_the_stored_text(demo_ws, traced):
         assert text[row.start:row.end] == row.text
         assert row.marked.lower().count("[[") == 2
         assert f"[[{row.target}]]" in row.marked.lower() and f"[[{row.attribute}]]" in row.marked.lower()
-
-
-def test_first_order_values_equal_a_recount_without_the_document(demo_ws):
-    """Exact leave-one-out PMI against a brute-force recount with the document's weight set to 0."""
-    sl = slice_from_spec(demo_ws, "source=Gazette")
-    s = CountSettings()
-    c = count_slice(demo_ws, sl.weights, s)
-    emb = embedding_from_counts(demo_ws, sl, c, PpmiSvdSettings())
-    attr = Attribution(demo_ws, sl.weights, c, emb, TESTS["gazette_outlet"], alpha=0.75, shift=1, eig_power=0.5)
-    full, loo = attr.leave_one_out_pmi("velmari", "agony")
-    moved = np.flatnonzero(np.isfinite(loo) & (np.abs(loo - full) > 0))[:4]
-    assert len(moved) == 4
-    for d in moved:
-        w = sl.weights.copy()
-        w[d] = 0
-        rc = count_slice(demo_ws, w, s, vocab=c.vocab)
-        m = Marginals.of(rc.matrix, 0.75)
-        i, j = c.vocab.index["velmari"], c.vocab.index["agony"]
-        expected = np.log(rc.matrix[i, j]) - np.log(m.rows[i]) - 0.75 * np.log(m.cols[j]) + m.log_z
-        assert loo[d] == pytest.approx(expected, rel=1e-10)
-
-
-@pytest.mark.parametrize("weighting", ["uniform", "harmonic"])
-def test_one_pass_linear_score_equals_the_per_document_matrices(demo_ws, weighting, monkeypatch):
-    """The fused one-pass score against -<K, C^d> + <u, r^d> written out with the per-document
-    matrices (C^d of the probe rows, r^d), on resampling-style weights 0, 1, 2."""
-    rng = np.random.default_rng(3)
-    w = rng.integers(0, 3, demo_ws.n_documents).astype(float)
-    s = CountSettings(weighting=weighting)
-    c = count_slice(demo_ws, w, s)
-    sl = slice_from_spec(demo_ws, "all")
-    emb = embedding_from_counts(demo_ws, sl, c, PpmiSvdSettings())
-    attr = Attribution(demo_ws, w, c, emb, TESTS["gazette_outlet"], alpha=0.75, shift=1, eig_power=0.5)
-    for which in ("gap", "effect_size"):
-        g = attr._dB_dM(which)
-        act = sp.coo_array(attr.M_P)
-        gv = g[act.row, act.col]
-        expected = np.zeros(demo_ws.n_documents)
-        for i in range(len(attr.probe_ids)):
-            K_i = np.zeros(len(attr.r))
-            sel = act.row == i
-            K_i[act.col[sel]] = gv[sel] / attr.C_P[i, act.col[sel]]
-            expected -= attr.P[i * demo_ws.n_documents:(i + 1) * demo_ws.n_documents] @ K_i
-        u = np.zeros(len(attr.r))
-        np.add.at(u, attr.probe_ids[act.row], gv / attr.r[attr.probe_ids[act.row]])
-        np.add.at(u, act.col, 0.75 * gv / attr.r[act.col])
-        u -= 0.75 * gv.sum() * attr.r ** -0.25 / np.exp(attr.log_z)
-        expected += attr.R @ u
-        got = attr.linear(which)
-        assert np.count_nonzero(expected) > 100 and np.all(got[w == 0] == 0)
-        np.testing.assert_allclose(got, expected, rtol=1e-9, atol=1e-12 * np.abs(expected).max())
-        with monkeypatch.context() as m:  # the pass split over three threads gives the same numbers
-            m.setattr(attribute, "LINEAR_THREADS_FROM", 0)
-            m.setattr(attribute, "default_workers", lambda: 3)
-            np.testing.assert_array_equal(attr.linear(which), got)
-
-
-def test_batched_exact_rerank_equals_one_document_at_a_time(demo_ws):
-    sl = slice_from_spec(demo_ws, "all")
-    c = count_slice(demo_ws, sl.weights, CountSettings())
-    emb = embedding_from_counts(demo_ws, sl, c, PpmiSvdSettings())
-    attr = Attribution(demo_ws, sl.weights, c, emb, TESTS["gazette_outlet"], alpha=0.75, shift=1, eig_power=0.5)
-    docs = np.argsort(-np.abs(attr.linear("gap")))[:7]
-    one = [attr.exact([d]) for d in docs]
-    for max_cells in (1, 4_000_000):  # one document per batch, and all in one
-        each = attr.exact_each(docs, max_cells=max_cells)
-        np.testing.assert_allclose([e.gap for e in each], [e.gap for e in one], rtol=1e-10)
-        np.testing.assert_allclose([e.effect_size for e in each], [e.effect_size for e in one], rtol=1e-10)
-    assert max(abs(e.gap - attr.base.gap) for e in one) > 1e-3  # the removals do move the gap
-
-
-@pytest.mark.parametrize("which", ["gap", "effect_size"])
-def test_gradient_matches_central_differences(demo_ws, which):
-    # checking an analytic derivative against central differences is common practice
-    sl = slice_from_spec(demo_ws, "source=Gazette")
-    c = count_slice(demo_ws, sl.weights, CountSettings())
-    emb = embedding_from_counts(demo_ws, sl, c, PpmiSvdSettings())
-    attr = Attribution(demo_ws, sl.weights, c, emb, TESTS["gazette_outlet"], alpha=0.75, shift=1, eig_power=0.5)
-    G = attr.gradient(which)
-    rng = np.random.default_rng(5)
-    for _ in range(6):
-        D = rng.standard_normal(attr.W_P.shape)
-        h = 1e-6 * np.linalg.norm(attr.W_P) / np.linalg.norm(D)
-        up, down = attr.effect(attr.W_P + h * D), attr.effect(attr.W_P - h * D)
-        numeric = (getattr(up, which) - getattr(down, which)) / (2 * h)
-        assert np.sum(G * D) == pytest.approx(numeric, rel=1e-5, abs=1e-9)
 
 
 def test_linear_estimates_track_the_exact_rerank(traced, demo_ws):

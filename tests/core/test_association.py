@@ -5,7 +5,8 @@ import pytest
 from hypothesis import given, settings, strategies as st
 from scipy import stats
 
-from tracer.core.association import effect_size, permutation_p_value, ripa_direction, weat
+from tracer.core.association import (association_scores, effect_size, mean_gap, permutation_p_value, ripa_direction,
+                                     score_gradient, unit_rows, weat)
 from tracer.core.embedding import Embedding
 from tracer.core.association import AssociationTest
 
@@ -102,3 +103,52 @@ def test_ripa_direction_for_one_pair_is_the_normalised_difference():
     diff = emb.vector("a1") - emb.vector("b1")
     np.testing.assert_allclose(d, diff / np.linalg.norm(diff), rtol=1e-6)
     assert ripa_direction(emb, [("zz", "b1")]) is None
+
+
+def _random_words(seed=0, n=12, dim=16):
+    rng = np.random.default_rng(seed)
+    return [f"w{i}" for i in range(n)], rng.standard_normal((n, dim)).astype(np.float32)
+
+
+def test_scores_gap_and_d_against_gensim_cosines():
+    """s(w, A, B), the gap and d from gensim's KeyedVectors.similarity (its own cosine, float32),
+    d's standard deviation from numpy (population, ddof=0)."""
+    from gensim.models import KeyedVectors
+    words, vectors = _random_words()
+    kv = KeyedVectors(vectors.shape[1])
+    kv.add_vectors(words, vectors)
+    x, y, a, b = words[0:3], words[3:7], words[7:10], words[10:12]
+
+    def s(w):
+        return np.mean([kv.similarity(w, v) for v in a]) - np.mean([kv.similarity(w, v) for v in b])
+
+    ref_x, ref_y = np.array([s(w) for w in x], np.float64), np.array([s(w) for w in y], np.float64)
+    emb = Embedding(words, vectors, {"model": "toy", "slice": "all"})
+    rows = {k: np.array([emb.index[w] for w in v]) for k, v in (("x", x), ("y", y), ("a", a), ("b", b))}
+    sx = association_scores(unit_rows(vectors), rows["x"], rows["a"], rows["b"])
+    sy = association_scores(unit_rows(vectors), rows["y"], rows["a"], rows["b"])
+    np.testing.assert_allclose(np.concatenate([sx, sy]), np.concatenate([ref_x, ref_y]), atol=1e-6)
+    gap = ref_x.mean() - ref_y.mean()
+    assert abs(gap) > 0.05  # the check would be empty on a zero gap
+    assert mean_gap(sx, sy) == pytest.approx(gap, abs=1e-6)
+    assert effect_size(sx, sy) == pytest.approx(gap / np.std(np.concatenate([ref_x, ref_y])), rel=1e-5)
+    r = weat(unit_rows(vectors), emb.index, AssociationTest("t", tuple(x), tuple(y), tuple(a), tuple(b), ()),
+             with_p=False)
+    assert r.gap == pytest.approx(gap, abs=1e-6) and r.effect_size == pytest.approx(effect_size(sx, sy), rel=1e-12)
+
+
+@pytest.mark.parametrize("quantity, n_x", [("gap", 4), ("effect_size", 4), ("gap", 7), ("effect_size", 2)])
+def test_score_gradient_matches_central_differences(quantity, n_x):
+    # checking an analytic derivative against central differences is common practice; the
+    # quantities are written out with numpy (mean difference; over np.std with ddof=0)
+    rng = np.random.default_rng(n_x)
+    s = rng.standard_normal(7)
+
+    def value(v):
+        gap = v[:n_x].mean() - (v[n_x:].mean() if n_x < len(v) else 0.0)
+        return gap / np.std(v) if quantity == "effect_size" and n_x < len(v) else gap
+
+    grad = score_gradient(s, n_x, quantity)
+    h = 1e-6
+    numeric = [(value(s + h * e) - value(s - h * e)) / (2 * h) for e in np.eye(len(s))]
+    np.testing.assert_allclose(grad, numeric, rtol=1e-6, atol=1e-9)

@@ -5,7 +5,8 @@ import scipy.sparse as sp
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from tracer.core.counting import CountSettings, ModelVocab, build_vocab, count_matrix, make_shards
+from tracer.core.count_engine import make_shards
+from tracer.core.counting import CountSettings, ModelVocab, build_vocab, count_matrix
 from tracer.provenance.counts import count_slice
 from tracer.errors import SettingError, SliceError
 
@@ -177,17 +178,17 @@ def test_wide_codes_and_plain_page_arrays_give_the_same_counts(lee_ws, monkeypat
     # the counter picks uint16 pair codes for a small vocabulary with uniform weights and
     # ordinary-page arrays above a size; forcing the other branch must change nothing
     import tracer.core._kernels as kernels
-    import tracer.core.counting as cooccur
+    import tracer.core.count_engine as engine
     import tracer.core.threads as threads
     s = CountSettings()
     w = np.ones(lee_ws.n_documents)
     vocab = build_vocab(lee_ws.tokens, lee_ws.doc_offsets, w, lee_ws.vocab.words, s)
     args = (lee_ws.tokens, lee_ws.doc_offsets, w, vocab, len(lee_ws.vocab), s)
-    assert cooccur.narrow_codes(len(vocab), s)
+    assert engine.narrow_codes(len(vocab), s)
     ref = count_matrix(*args, workers=2)
     monkeypatch.setattr(kernels, "NARROW_MAX_WORDS", 0)
     monkeypatch.setattr(threads, "_PLAIN_PAGES_FROM", 0)
-    assert not cooccur.narrow_codes(len(vocab), s)
+    assert not engine.narrow_codes(len(vocab), s)
     assert isinstance(threads.big_empty(10, np.int32).base.obj, mmap.mmap)
     other = count_matrix(*args, workers=2)
     assert other.has_canonical_format and ref.has_canonical_format

@@ -2,48 +2,16 @@
 
 from __future__ import annotations
 
-import csv
-import dataclasses
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 from scipy import stats
 
-from tracer.core.association import unit_rows
+from tracer.core.association import AssociationTest, association_scores, unit_rows
 from tracer.core.embedding import Embedding
 from tracer.errors import InputError
-from tracer.core.association import AssociationTest
-
-
-@dataclasses.dataclass(frozen=True)
-class WordValues:
-    words: list[str]
-    values: np.ndarray
-    column: str
-
-
-def read_word_values(path: str | Path, word_column: str, value_column: str) -> WordValues:
-    """A CSV with a header: one word column and one numeric column; errors name the line."""
-    path = Path(path)
-    if not path.is_file():
-        raise InputError(f"{path}: no such file")
-    words, values = [], []
-    with open(path, newline="", encoding="utf-8") as f:
-        reader = csv.DictReader(f)
-        for col in (word_column, value_column):
-            if reader.fieldnames is None or col not in reader.fieldnames:
-                raise InputError(f"{path}: no column {col!r} (the columns are {', '.join(reader.fieldnames or [])})")
-        for line, row in enumerate(reader, start=2):
-            try:
-                v = float(row[value_column])
-            except (TypeError, ValueError):
-                raise InputError(f"{path}, line {line}: {value_column} is not a number: {row[value_column]!r}") from None
-            words.append(row[word_column].strip().lower())
-            values.append(v)
-    if len(words) < 3:
-        raise InputError(f"{path}: at least 3 rows are needed to correlate; found {len(words)}")
-    return WordValues(words, np.asarray(values), value_column)
+from tracer.provenance.tables import WordValues
 
 
 def single_word_scores(emb: Embedding, words: list[str], test: AssociationTest) -> pd.Series:
@@ -53,15 +21,11 @@ def single_word_scores(emb: Embedding, words: list[str], test: AssociationTest) 
     if not a or not b:
         raise InputError(f"test {test.name}: no attribute word of one set is in the vocabulary "
                          f"of {emb.card.get('model')} slice {emb.card.get('slice')}")
-    unit = unit_rows(emb.vectors).astype(np.float64)
-    out = {}
-    for w in words:
-        if w in emb:
-            v = unit[emb.index[w]]
-            out[w] = float((unit[a] @ v).mean() - (unit[b] @ v).mean())
-        else:
-            out[w] = np.nan
-    return pd.Series(out)
+    known = [w for w in dict.fromkeys(words) if w in emb]
+    scores = association_scores(unit_rows(emb.vectors), np.array([emb.index[w] for w in known], dtype=np.int64),
+                                np.array(a, dtype=np.int64), np.array(b, dtype=np.int64))
+    by_word = dict(zip(known, scores.tolist()))
+    return pd.Series({w: by_word.get(w, np.nan) for w in words})
 
 
 def correlation_with_intervals(x: np.ndarray, y: np.ndarray, n_boot: int, rng: np.random.Generator) -> dict:

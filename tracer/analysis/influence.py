@@ -1,9 +1,11 @@
 """Attribution: how much each document (or source) contributes to a measured association.
 
-The design is in ../shared/ARCHITECTURE.md ("Attribution"). Notation: counts C of a
-slice, row sums r, ``Z = sum_k r_k ** alpha``, PPMI matrix M, PPMI-SVD embedding
-``W = U_k S_k ** p = M V_k S_k ** (p - 1)``. Removing document d removes its weighted
-counts ``C^d`` (and so ``r^d``).
+Notation: counts C of a slice, row sums r, ``Z = sum_k r_k ** alpha``, PPMI matrix M,
+PPMI-SVD embedding ``W = U_k S_k ** p = M V_k S_k ** (p - 1)``. Removing document d
+removes its weighted counts ``C^d`` (and so ``r^d``, :mod:`tracer.analysis.document_counts`).
+Only the rows of the probe words (the test's targets and attributes) of M and W enter the
+association, so only those rows are kept, dense. The PMI and the association statistics
+are those of :mod:`tracer.core.pmi` and :mod:`tracer.core.association`.
 
 1. First order, exact (:meth:`Attribution.leave_one_out_pmi`): the PMI of a pair
    without document d, from ``C^d_wa``, ``r^d_w``, ``r^d_a`` and the exact ``Z``.
@@ -18,112 +20,41 @@ from __future__ import annotations
 
 import dataclasses
 import functools
+import typing
 
 import numpy as np
 import scipy.sparse as sp
 
+from tracer.analysis.document_counts import (Stream, document_probe_rows, document_row_sums, kept_stream,
+                                             rows_sum)
 from tracer.core import _kernels as _k
-from tracer.core.counting import Counts, token_mask
-from tracer.core.threads import ThreadPool, default_workers
+from tracer.core.association import AssociationTest, association_scores, effect_size, mean_gap, score_gradient, unit_rows
+from tracer.core.counting import Counts, cumulative_weights
 from tracer.core.embedding import Embedding
-from tracer.core.association import AssociationTest
+from tracer.core.pmi import log_z, pmi, pmi_sensitivities, ppmi, z_without
+from tracer.core.threads import ThreadPool, default_workers
 
+__all__ = ["Attribution", "Effect", "Stream", "kept_stream", "document_probe_rows", "document_row_sums"]
 
-# The linear pass costs 1.5-3 ns a token; at 0.8M tokens a second thread gained nothing (measured:
-# waking it cost what it saved). 4M is a round figure above that, not a measured break-even.
+# The linear pass reads every token once, so it is short; a second thread pays only when the pass
+# is long enough to cover waking it. Below this many tokens read it runs on one thread. A round
+# figure above where a second thread stopped gaining on a 2-core machine, not a measured break-even.
 LINEAR_THREADS_FROM = 4_000_000
-
-
-@dataclasses.dataclass(frozen=True)
-class Stream:
-    """The tokens a count sees, in order: in-vocabulary tokens of documents with nonzero weight.
-
-    Attributes (one value per kept token)
-    ----------
-    ids : int64 model ids;  doc : document index;  pos : original token position;
-    start, end : the kept-token range of the token's document.
-    """
-
-    ids: np.ndarray
-    doc: np.ndarray
-    pos: np.ndarray
-    start: np.ndarray
-    end: np.ndarray
-
-
-def kept_stream(ws, weights: np.ndarray, counts: Counts) -> Stream:
-    id_map = counts.vocab.id_map(len(ws.vocab))
-    tokens = np.asarray(ws.tokens)
-    mapped = id_map[tokens]
-    keep = token_mask(ws.doc_offsets, np.asarray(weights) > 0) & (mapped >= 0)
-    pos = np.flatnonzero(keep)
-    ids = mapped[pos].astype(np.int64)
-    doc = ws.doc_of_position(pos)
-    first = np.ones(len(doc), bool)
-    first[1:] = doc[1:] != doc[:-1]
-    run_start = np.flatnonzero(first)
-    run = np.cumsum(first) - 1
-    run_end = np.append(run_start[1:], len(ids))
-    return Stream(ids, doc, pos, run_start[run], run_end[run])
-
-
-def document_row_sums(stream: Stream, weights: np.ndarray, dist_w: np.ndarray, n_docs: int,
-                      n_words: int) -> sp.csr_array:
-    """r^d: each document's weighted contribution to every row sum, shape (n_docs, n_words)."""
-    window = len(dist_w)
-    cw = np.concatenate([[0.0], np.cumsum(dist_w)])
-    i = np.arange(len(stream.ids))
-    nb = cw[np.minimum(window, i - stream.start)] + cw[np.minimum(window, stream.end - 1 - i)]
-    vals = nb * weights[stream.doc]
-    return sp.csr_array((vals, (stream.doc, stream.ids)), shape=(n_docs, n_words))
-
-
-def document_probe_rows(stream: Stream, weights: np.ndarray, dist_w: np.ndarray, probe_ids: np.ndarray,
-                        n_docs: int, n_words: int) -> sp.csr_array:
-    """C^d of the probe words' rows for every document, shape (n_probe * n_docs, n_words):
-    row ``k * n_docs + d`` is document d's part of probe word k's row.
-
-    One pass over the probe words' occurrences: each occurrence adds the weight of
-    every neighbour within the window (a neighbour of the same word adds to the
-    diagonal twice over, once from each side, as in the symmetric counts).
-    """
-    window = len(dist_w)
-    probe_row = np.full(n_words, -1, np.int64)
-    probe_row[probe_ids] = np.arange(len(probe_ids))
-    q = np.flatnonzero(probe_row[stream.ids] >= 0)
-    block = probe_row[stream.ids[q]] * n_docs
-    rows, cols, vals = [], [], []
-    for delta in range(1, window + 1):
-        for side in (q + delta, q - delta):
-            ok = (side >= stream.start[q]) & (side < stream.end[q])
-            src = q[ok]
-            doc = stream.doc[src]
-            rows.append(block[ok] + doc)
-            cols.append(stream.ids[side[ok]])
-            vals.append(dist_w[delta - 1] * weights[doc])
-    return sp.csr_array((np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))),
-                        shape=(len(probe_ids) * n_docs, n_words))
-
-
-def rows_sum(m: sp.csr_array, rows: np.ndarray, groups: np.ndarray | None = None, n_groups: int = 1) -> np.ndarray:
-    """Sums of the given rows of a CSR matrix, dense, vectorised over the row ranges: one vector
-    (shape (n_cols,)), or with ``groups`` (one label per row, below ``n_groups``) one per group."""
-    starts, ends = m.indptr[rows], m.indptr[rows + 1]
-    lengths = ends - starts
-    total = int(lengths.sum())
-    n_cols = m.shape[1]
-    offsets = np.cumsum(lengths) - lengths
-    pos = np.repeat(starts - offsets, lengths) + np.arange(total)
-    if groups is None:
-        return np.bincount(m.indices[pos], weights=m.data[pos], minlength=n_cols)
-    key = np.repeat(np.asarray(groups, np.int64) * n_cols, lengths) + m.indices[pos]
-    return np.bincount(key, weights=m.data[pos], minlength=n_groups * n_cols).reshape(n_groups, n_cols)
 
 
 @dataclasses.dataclass(frozen=True)
 class Effect:
     effect_size: float
     gap: float
+
+
+class _Scores(typing.NamedTuple):
+    """The association as a function of the probe vectors, with what its gradient needs."""
+
+    unit: np.ndarray      # (n_probe, dim) unit probe vectors
+    norms: np.ndarray     # (n_probe,) their lengths before scaling
+    targets: np.ndarray   # rows of the x words, then of the y words
+    scores: np.ndarray    # (len(targets),) s(w, A, B)
 
 
 class Attribution:
@@ -145,26 +76,27 @@ class Attribution:
     def __init__(self, ws, weights, counts: Counts, emb: Embedding, test: AssociationTest, *,
                  alpha: float, shift: float, eig_power: float):
         self.ws, self.weights, self.counts, self.emb, self.test = ws, np.asarray(weights, float), counts, emb, test
-        self.alpha, self.log_shift, self.p = alpha, float(np.log(shift)), eig_power
+        self.alpha, self.shift, self.eig_power = alpha, shift, eig_power
         idx = counts.vocab.index
         self.sets = {k: [w for w in (getattr(test, name) or ()) if w in idx]
                      for k, name in (("x", "targets_x"), ("y", "targets_y"), ("a", "attributes_a"),
                                      ("b", "attributes_b"))}
         self.probe_words = list(dict.fromkeys(self.sets["x"] + self.sets["y"] + self.sets["a"] + self.sets["b"]))
         self.probe_ids = np.array([idx[w] for w in self.probe_words], dtype=np.int64)
-        self.row_of = {w: k for k, w in enumerate(self.probe_words)}
-        self._rows = {k: np.array([self.row_of[w] for w in v], dtype=np.int64) for k, v in self.sets.items()}
-        self.r = counts.row_sums
-        n_probe = len(self.probe_ids)                                # probe rows of the counts, dense:
-        self.C_P = rows_sum(counts.matrix, self.probe_ids, np.arange(n_probe), n_probe)
-        self.S = emb.extras["singular_values"].astype(np.float64)
-        self.V = emb.extras["context_vectors"].astype(np.float64)
-        self.proj = self.V * (self.S ** (self.p - 1.0))            # W_i = M_i @ proj
-        self.M_P = self._probe_ppmi(self.C_P, self.r)              # probe rows of the PPMI matrix, dense
-        self.W_P = self.M_P @ self.proj
-        self._scores_P = self._scores(self.W_P)                    # kept for the gradient
-        self.base = self._effect_of(self._scores_P)
-        self._dB_dM_cache: dict[str, np.ndarray] = {}
+        self.probe_row_of = {w: k for k, w in enumerate(self.probe_words)}
+        self._set_rows = {k: np.array([self.probe_row_of[w] for w in v], dtype=np.int64) for k, v in self.sets.items()}
+        self.row_sums = counts.row_sums
+        n_probe = len(self.probe_ids)
+        self.probe_counts = rows_sum(counts.matrix, self.probe_ids, np.arange(n_probe), n_probe)
+        self.singular_values = emb.extras["singular_values"].astype(np.float64)
+        self.right_vectors = emb.extras["context_vectors"].astype(np.float64)
+        # W_i = M_i @ projection: a row of the embedding from its row of the PPMI matrix
+        self.projection = self.right_vectors * (self.singular_values ** (self.eig_power - 1.0))
+        self.probe_ppmi = self._probe_ppmi(self.probe_counts, self.row_sums)
+        self.probe_vectors = self.probe_ppmi @ self.projection
+        self._base_scores = self._scores(self.probe_vectors)     # kept for the gradient
+        self.base = self._effect_of(self._base_scores)
+        self._d_ppmi_cache: dict[str, np.ndarray] = {}
 
     # ---- per-document counts, built when an exact step needs them ---------------------------
     @functools.cached_property
@@ -172,94 +104,89 @@ class Attribution:
         return kept_stream(self.ws, self.weights, self.counts)
 
     @functools.cached_property
-    def R(self) -> sp.csr_array:
+    def document_row_sums(self) -> sp.csr_array:
         """r^d for every document, shape (n_docs, n_words)."""
         return document_row_sums(self.stream, self.weights, self.counts.settings.distance_weights(),
                                  self.ws.n_documents, len(self.counts.vocab))
 
     @functools.cached_property
-    def P(self) -> sp.csr_array:
+    def document_probe_counts(self) -> sp.csr_array:
         """C^d of the probe words' rows, shape (n_probe * n_docs, n_words); row ``k * n_docs + d`` is
         document d's part of probe word k's row (:func:`document_probe_rows`)."""
         return document_probe_rows(self.stream, self.weights, self.counts.settings.distance_weights(),
                                    self.probe_ids, self.ws.n_documents, len(self.counts.vocab))
 
     # ---- the association as a function of the probe vectors ----------------------------------
-    def _scores(self, W):
-        norms = np.linalg.norm(W, axis=1)
-        unit = W / np.where(norms > 0, norms, 1.0)[:, None]
-        rows = self._rows
+    def _scores(self, vectors: np.ndarray) -> _Scores:
+        rows = self._set_rows
         targets = np.concatenate([rows["x"], rows["y"]])
-        s = (unit[targets] @ unit[rows["a"]].T).mean(1) - (unit[targets] @ unit[rows["b"]].T).mean(1)
-        return unit, norms, rows, targets, s
+        unit = unit_rows(vectors)
+        return _Scores(unit, np.linalg.norm(vectors, axis=1), targets,
+                       association_scores(unit, targets, rows["a"], rows["b"]))
 
-    def effect(self, W) -> Effect:
-        return self._effect_of(self._scores(W))
+    def effect(self, vectors: np.ndarray) -> Effect:
+        """B of probe vectors ``vectors`` (shape (n_probe, dim))."""
+        return self._effect_of(self._scores(vectors))
 
-    def _effect_of(self, scores) -> Effect:
-        _, _, rows, _, s = scores
-        nx = len(rows["x"])
-        sx, sy = s[:nx], s[nx:]
+    def _effect_of(self, scores: _Scores) -> Effect:
+        nx = len(self._set_rows["x"])
+        sx, sy = scores.scores[:nx], scores.scores[nx:]
         if len(sy) == 0:
             return Effect(float("nan"), float(sx.mean()))
-        sd = s.std()
-        gap = float(sx.mean() - sy.mean())
-        return Effect(gap / sd if sd > 0 else float("nan"), gap)
+        return Effect(effect_size(sx, sy), mean_gap(sx, sy))
 
-    def gradient(self, which: str) -> np.ndarray:
+    def d_quantity_d_vectors(self, quantity: str) -> np.ndarray:
         """d B / d W for the probe rows, shape (n_probe, dim); B is "effect_size" or "gap"."""
-        unit, norms, rows, targets, s = self._scores_P
-        nx, ny = len(rows["x"]), len(rows["y"])
-        coef = np.concatenate([np.full(nx, 1.0 / nx), np.full(ny, -1.0 / ny if ny else 0.0)])
-        if which == "effect_size" and ny:
-            n = nx + ny
-            sd = s.std()
-            gap = s[:nx].mean() - s[nx:].mean()
-            coef = coef / sd - gap * (s - s.mean()) / (n * sd ** 3)
-        G = np.zeros_like(self.W_P)
+        unit, norms, targets, s = self._base_scores
+        rows = self._set_rows
+        coef = score_gradient(s, len(rows["x"]), quantity)
+        grad = np.zeros_like(self.probe_vectors)
         inv = 1.0 / np.where(norms > 0, norms, 1.0)
         for attr_rows, sign in ((rows["a"], 1.0), (rows["b"], -1.0)):
-            U_t, U_a = unit[targets], unit[attr_rows]
-            cos = U_t @ U_a.T                                    # (targets, attributes)
-            E = np.outer(coef * sign / len(attr_rows), np.ones(len(attr_rows)))
+            unit_t, unit_a = unit[targets], unit[attr_rows]
+            cos = unit_t @ unit_a.T                                  # (targets, attributes)
+            weight = np.outer(coef * sign / len(attr_rows), np.ones(len(attr_rows)))
             # d cos(t, a) / d W_t = (u_a - cos u_t) / |W_t|, and symmetrically for W_a
-            np.add.at(G, targets, (E @ U_a - (E * cos).sum(1)[:, None] * U_t) * inv[targets, None])
-            np.add.at(G, attr_rows, (E.T @ U_t - (E * cos).sum(0)[:, None] * U_a) * inv[attr_rows, None])
-        return G
+            np.add.at(grad, targets, (weight @ unit_a - (weight * cos).sum(1)[:, None] * unit_t) * inv[targets, None])
+            np.add.at(grad, attr_rows,
+                      (weight.T @ unit_t - (weight * cos).sum(0)[:, None] * unit_a) * inv[attr_rows, None])
+        return grad
 
     # ---- tier 2 -----------------------------------------------------------------------------
-    def _dB_dM(self, which: str) -> np.ndarray:
+    def d_quantity_d_ppmi(self, quantity: str) -> np.ndarray:
         """dB / dM for the probe rows, shape (n_probe, n_words); computed once per quantity."""
-        if which not in self._dB_dM_cache:
-            self._dB_dM_cache[which] = self.gradient(which) @ self.proj.T
-        return self._dB_dM_cache[which]
+        if quantity not in self._d_ppmi_cache:
+            self._d_ppmi_cache[quantity] = self.d_quantity_d_vectors(quantity) @ self.projection.T
+        return self._d_ppmi_cache[quantity]
 
     def linear(self, which: str = "gap") -> np.ndarray:
         """Estimated change of B when each document is removed, shape (n_docs,) (tier 2).
 
-        ``dB(d) = -<K, C^d> + <u, r^d>``, summed in one pass over the tokens
+        ``dB(d) = -<K, C^d> + <u, r^d>`` (:func:`tracer.core.pmi.pmi_sensitivities`; only
+        cells above the PPMI threshold move), summed in one pass over the tokens
         (``tracer.core._kernels.linear_scores``) without building ``C^d`` or ``r^d``.
         """
-        g = self._dB_dM(which)
-        active = self.M_P > 0                                    # only cells above the threshold move
-        n_words = len(self.r)
-        gv = np.where(active, g, 0.0)
-        K = np.divide(gv, self.C_P, out=np.zeros_like(gv), where=active)
-        r = np.where(self.r > 0, self.r, 1.0)
-        u = self.alpha * gv.sum(0) / r - self.alpha * gv.sum() * r ** (self.alpha - 1.0) / np.exp(self.log_z)
-        u[self.probe_ids] += gv.sum(1) / r[self.probe_ids]
-        probe_row = np.full(n_words, -1, np.int64)
+        moving = np.where(self.probe_ppmi > 0, self.d_quantity_d_ppmi(which), 0.0)
+        per_count, per_row_sum = pmi_sensitivities(moving, self.probe_counts, self.row_sums, self.probe_ids,
+                                                   self.alpha, self.log_z)
+        return self._linear_pass(per_count, per_row_sum)
+
+    def _linear_pass(self, per_count: np.ndarray, per_row_sum: np.ndarray) -> np.ndarray:
+        """``-<per_count, C^d> + <per_row_sum, r^d>`` for every document, threads over document ranges."""
+        probe_row = np.full(len(self.row_sums), -1, np.int64)
         probe_row[self.probe_ids] = np.arange(len(self.probe_ids))
         dist_w = self.counts.settings.distance_weights()
+        cum_w = cumulative_weights(dist_w)
         offsets, tokens = self.ws.doc_offsets, np.asarray(self.ws.tokens)
-        id_map, cum_w = self.counts.vocab.id_map(len(self.ws.vocab)), np.concatenate([[0.0], np.cumsum(dist_w)])
+        id_map = self.counts.vocab.id_map(len(self.ws.vocab))
         lengths = np.diff(offsets)
         longest = int(lengths.max(initial=0))
         out = np.empty(self.ws.n_documents)
 
         def score(a, b):  # documents a..b-1; the kernel skips those of weight 0 without reading them
             _k.linear_scores(tokens, offsets[a:b], offsets[a + 1:b + 1], id_map, self.weights[a:b], dist_w, cum_w,
-                             probe_row, K, u, np.empty(longest, np.int32), np.empty(longest, np.int64), out[a:b])
+                             probe_row, per_count, per_row_sum, np.empty(longest, np.int32),
+                             np.empty(longest, np.int64), out[a:b])
 
         read = np.cumsum(lengths * (self.weights > 0))          # tokens the pass reads, up to each document
         n_tokens = int(read[-1]) if len(read) else 0
@@ -271,90 +198,82 @@ class Attribution:
 
     def pair_parts(self, doc: int, which: str = "gap", top: int = 3) -> list[tuple[str, str, float]]:
         """The probe-row cells of one document that carry most of its joint-count term."""
-        g = self._dB_dM(which)
+        d_ppmi = self.d_quantity_d_ppmi(which)
         words = self.counts.vocab.words
+        per_doc = self.document_probe_counts
         parts = []
         n_docs = self.ws.n_documents
         for i in range(len(self.probe_ids)):
-            a, b = self.P.indptr[i * n_docs + doc], self.P.indptr[i * n_docs + doc + 1]
-            for j, c in zip(self.P.indices[a:b], self.P.data[a:b]):
-                if self.M_P[i, j] > 0:
-                    parts.append((self.probe_words[i], words[j], float(-g[i, j] * c / self.C_P[i, j])))
+            a, b = per_doc.indptr[i * n_docs + doc], per_doc.indptr[i * n_docs + doc + 1]
+            for j, c in zip(per_doc.indices[a:b], per_doc.data[a:b]):
+                if self.probe_ppmi[i, j] > 0:
+                    parts.append((self.probe_words[i], words[j], float(-d_ppmi[i, j] * c / self.probe_counts[i, j])))
         parts.sort(key=lambda t: -abs(t[2]))
         return parts[:top]
 
     # ---- tier 3 -----------------------------------------------------------------------------
-    def _probe_ppmi(self, C: np.ndarray, r: np.ndarray) -> np.ndarray:
-        """PPMI of the probe rows from counts ``C`` (shape (..., n_probe, n_words)) and row sums
-        ``r`` (shape (..., n_words)), dense; ``log Z`` from ``r`` (so it moves with a removal)."""
-        C = np.asarray(C, dtype=np.float64)
-        r = np.asarray(r, dtype=np.float64)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            log_r = np.where(r > 0, np.log(r), 0.0)
-            log_z = np.log(np.sum(np.where(r > 0, r, 0.0) ** self.alpha, axis=-1))
-            pmi = (np.log(C) - log_r[..., self.probe_ids][..., :, None] - self.alpha * log_r[..., None, :]
-                   + log_z[..., None, None])
-        return np.where(C > 0, np.maximum(pmi - self.log_shift, 0.0), 0.0)
+    def _probe_ppmi(self, probe_counts: np.ndarray, row_sums: np.ndarray) -> np.ndarray:
+        """PPMI of the probe rows from their counts (shape (..., n_probe, n_words)) and the row sums
+        (shape (..., n_words)), dense; ``log Z`` from the row sums (so it moves with a removal)."""
+        row_sums = np.asarray(row_sums, dtype=np.float64)
+        values = pmi(probe_counts, row_sums[..., self.probe_ids][..., :, None], row_sums[..., None, :], self.alpha,
+                     np.asarray(log_z(row_sums, self.alpha))[..., None, None])
+        return ppmi(values, self.shift)
 
-    def _effects_without(self, removed: np.ndarray, removed_r: np.ndarray) -> list[Effect]:
+    def _effects_without(self, removed: np.ndarray, removed_sums: np.ndarray) -> list[Effect]:
         """B after each removal: ``removed`` (shape (k, n_probe, n_words)) leaves the probe rows,
-        ``removed_r`` (shape (k, n_words)) the row sums; the probe rows of M are recomputed
+        ``removed_sums`` (shape (k, n_words)) the row sums; the probe rows of M are recomputed
         exactly (thresholds included) and projected on the same subspace."""
-        C_new = self.C_P[None] - removed
-        C_new[np.abs(C_new) < 1e-9] = 0.0  # a pair that only these documents had
-        r_new = self.r[None] - removed_r
-        r_new[np.abs(r_new) < 1e-9] = 0.0
-        W = self._probe_ppmi(C_new, r_new) @ self.proj
-        return [self.effect(w) for w in W]
+        counts_left = self.probe_counts[None] - removed
+        counts_left[np.abs(counts_left) < 1e-9] = 0.0  # a pair that only these documents had
+        sums_left = self.row_sums[None] - removed_sums
+        sums_left[np.abs(sums_left) < 1e-9] = 0.0
+        vectors = self._probe_ppmi(counts_left, sums_left) @ self.projection
+        return [self.effect(v) for v in vectors]
 
     def exact(self, docs) -> Effect:
         """B with the documents removed together (tier 3)."""
         docs = np.atleast_1d(np.asarray(docs, dtype=np.int64))
         n_probe, n_docs = len(self.probe_ids), self.ws.n_documents
         rows = (np.arange(n_probe)[:, None] * n_docs + docs[None, :]).ravel()
-        removed = rows_sum(self.P, rows, np.repeat(np.arange(n_probe), len(docs)), n_probe)
-        return self._effects_without(removed[None], rows_sum(self.R, docs)[None])[0]
+        removed = rows_sum(self.document_probe_counts, rows, np.repeat(np.arange(n_probe), len(docs)), n_probe)
+        return self._effects_without(removed[None], rows_sum(self.document_row_sums, docs)[None])[0]
 
     def exact_each(self, docs, *, max_cells: int = 4_000_000) -> list[Effect]:
         """B with each document removed on its own (tier 3), in batches of at most ``max_cells``
         dense probe-row cells."""
         docs = np.asarray(docs, dtype=np.int64)
-        n_probe, n_words = len(self.probe_ids), len(self.r)
+        n_probe, n_words = len(self.probe_ids), len(self.row_sums)
         step = max(1, max_cells // max(1, n_probe * n_words))
         out = []
         for k in range(0, len(docs), step):
             batch = docs[k:k + step]
             rows = (np.arange(n_probe)[:, None] * self.ws.n_documents + batch[None, :]).ravel()
-            removed = self.P[rows].toarray().reshape(n_probe, len(batch), n_words).transpose(1, 0, 2)
-            out += self._effects_without(removed, self.R[batch].toarray())
+            removed = self.document_probe_counts[rows].toarray().reshape(n_probe, len(batch), n_words)
+            out += self._effects_without(removed.transpose(1, 0, 2), self.document_row_sums[batch].toarray())
         return out
 
     # ---- tier 1 -----------------------------------------------------------------------------
     @functools.cached_property
     def log_z(self) -> float:
-        """log Z of the slice's counts, ``Z = sum_k r_k ** alpha`` (the counts are symmetric, so
-        column sums are the row sums)."""
-        r = self.r[self.r > 0]
-        return float(np.log(np.sum(r ** self.alpha))) if len(r) else 0.0
+        """log Z of the slice's counts (the counts are symmetric, so column sums are the row sums)."""
+        return log_z(self.row_sums, self.alpha)
 
     @functools.cached_property
     def _z_without(self) -> np.ndarray:
-        """Exact Z without each document: Z - sum over its words of (r_k^alpha - (r_k - r^d_k)^alpha)."""
-        Rc = self.R.tocoo()
-        rk = self.r[Rc.col]
-        drop = rk ** self.alpha - np.maximum(rk - Rc.data, 0.0) ** self.alpha
-        return np.exp(self.log_z) - np.bincount(Rc.row, weights=drop, minlength=self.ws.n_documents)
+        """Exact Z without each document, shape (n_docs,)."""
+        return z_without(self.row_sums, self.document_row_sums, self.alpha, np.exp(self.log_z))
 
     @functools.cached_property
-    def _R_csc(self) -> sp.csc_array:
-        return sp.csc_array(self.R)
+    def _row_sums_by_word(self) -> sp.csc_array:
+        return sp.csc_array(self.document_row_sums)
 
     @functools.cached_property
-    def _P_csc(self) -> sp.csc_array:
-        return sp.csc_array(self.P)
+    def _probe_counts_by_word(self) -> sp.csc_array:
+        return sp.csc_array(self.document_probe_counts)
 
-    def _column(self, m: sp.csc_array, j: int, first_row: int = 0) -> np.ndarray:
-        """Rows ``first_row`` .. ``first_row + n_docs - 1`` of column j, dense."""
+    def _per_document(self, m: sp.csc_array, j: int, first_row: int = 0) -> np.ndarray:
+        """Rows ``first_row`` .. ``first_row + n_docs - 1`` of column j, dense: each document's part."""
         n = self.ws.n_documents
         out = np.zeros(n)
         a, b = m.indptr[j], m.indptr[j + 1]
@@ -369,11 +288,13 @@ class Attribution:
         idx = self.counts.vocab.index
         i, j = idx[w], idx[a]
         c = float(self.counts.matrix[i, j])
-        full = np.log(c) - np.log(self.r[i]) - self.alpha * np.log(self.r[j]) + self.log_z if c > 0 else -np.inf
-        cd = self._column(self._P_csc, j, self.row_of[w] * self.ws.n_documents)
-        ri, rj = self._column(self._R_csc, i), self._column(self._R_csc, j)
+        full = pmi(c, self.row_sums[i], self.row_sums[j], self.alpha, self.log_z)
+        pair_part = self._per_document(self._probe_counts_by_word, j, self.probe_row_of[w] * self.ws.n_documents)
+        sums_i = self._per_document(self._row_sums_by_word, i)
+        sums_j = self._per_document(self._row_sums_by_word, j)
+        left = c - pair_part
         with np.errstate(divide="ignore", invalid="ignore"):
-            loo = (np.log(c - cd) - np.log(self.r[i] - ri) - self.alpha * np.log(self.r[j] - rj)
-                   + np.log(self._z_without))
-        loo = np.where(c - cd > 1e-12, loo, -np.inf)
+            log_z_left = np.log(self._z_without)
+        loo = pmi(np.where(left > 1e-12, left, 0.0), self.row_sums[i] - sums_i, self.row_sums[j] - sums_j,
+                  self.alpha, log_z_left)
         return float(full), loo

@@ -9,7 +9,7 @@ from tracer.core.counting import CountSettings
 from tracer.provenance.counts import count_slice
 from tracer.corpus.slices import Slice
 from tracer.errors import WordNotInVocabulary
-from tracer.core.pmi import DEFAULT_ALPHA, Marginals, pmi_of_cells
+from tracer.core.pmi import DEFAULT_ALPHA, Marginals, pmi_of_cells, ppmi
 
 PMI_COLUMNS = ["slice", "word", "context", "count", "word_count", "context_count", "pmi", "ppmi", "note"]
 
@@ -40,10 +40,9 @@ def pmi_table(ws, word: str, contexts: list[str], slices: list[Slice], settings:
             else:
                 i, j = idx[word], idx[ctx]
                 n = float(c.matrix[i, j])
-                p = float(pmi_of_cells(n, marg.rows[i], marg.cols[j], marg))
+                p = pmi_of_cells(n, marg.rows[i], marg.cols[j], marg)
                 row.update(count=n, word_count=float(marg.rows[i]), context_count=float(marg.cols[j]),
-                           pmi=p if np.isfinite(p) else np.nan,
-                           ppmi=max(p - np.log(shift), 0.0) if np.isfinite(p) else 0.0, note="")
+                           pmi=float(p) if np.isfinite(p) else np.nan, ppmi=float(ppmi(p, shift)), note="")
             rows.append(row)
     df = pd.DataFrame(rows, columns=PMI_COLUMNS)
     if df["word_count"].isna().all():

@@ -1,5 +1,10 @@
 """Compiled kernels (numba, nogil: threads run them in parallel): the co-occurrence counter, and
-at the end the linear influence score of ``tracer.attribute``.
+at the end the linear influence score of :mod:`tracer.analysis.influence`.
+
+The window semantics (which pairs a window makes, their distance weights) are those of
+:mod:`tracer.core.counting`; the kernels take the weights from
+``CountSettings.distance_weights`` and ``counting.cumulative_weights`` and never define
+their own. Why the window loops are not one shared helper is said there.
 
 The counter works in four steps, each split so that threads share the work:
 
@@ -237,7 +242,7 @@ def compact_rows(row_start, row_end, indices, data, indptr):
     return m
 
 
-# ---- the linear influence score of tracer.analysis.influence ----------------------------------------
+# ---- the linear influence score of tracer.analysis.influence --------------------------------
 
 @numba.njit(nogil=True, cache=True)
 def linear_scores(tokens, starts, ends, id_map, doc_w, dist_w, cum_w, probe_row, K, u, buf, probe_pos, out):
@@ -250,7 +255,10 @@ def linear_scores(tokens, starts, ends, id_map, doc_w, dist_w, cum_w, probe_row,
     full window's, are corrected, and each probe-word occurrence adds its
     neighbours within the window on both sides (its share of the probe rows of
     the counts). That is ``<u, r^d> - <K, C^d>`` without ever building ``r^d``
-    or ``C^d``. ``cum_w[k]`` is the sum of the first k distance weights.
+    or ``C^d``. ``cum_w`` is ``tracer.core.counting.cumulative_weights(dist_w)``;
+    ``nb(t)`` is ``tracer.core.counting.neighbour_weight``, applied here as a full
+    window's weight less an edge correction (fewer operations per token, and the
+    order of summation the results were fixed with).
     """
     window = dist_w.shape[0]
     full = cum_w[window]

@@ -83,15 +83,60 @@ def word_sets(test: AssociationTest, known) -> WordSets:
 
 
 def association_scores(unit: np.ndarray, targets: np.ndarray, a_rows: np.ndarray, b_rows: np.ndarray) -> np.ndarray:
-    """s(w, A, B) for the target rows, given unit vectors, shape (len(targets),)."""
+    """s(w, A, B) = mean_a cos(w, a) - mean_b cos(w, b) for each target row, in float64.
+
+    Parameters
+    ----------
+    unit : numpy.ndarray, shape (n_words, dim)
+        Unit-length rows (:func:`unit_rows`), so a dot product is a cosine.
+    targets, a_rows, b_rows : numpy.ndarray of int, shapes (n_t,), (n_a,), (n_b,)
+        Rows of ``unit``.
+
+    Returns
+    -------
+    numpy.ndarray of float64, shape (n_t,)
+    """
     t = unit[targets].astype(np.float64)
     return (t @ unit[a_rows].T.astype(np.float64)).mean(axis=1) - (t @ unit[b_rows].T.astype(np.float64)).mean(axis=1)
 
 
+def mean_gap(sx: np.ndarray, sy: np.ndarray) -> float:
+    """The raw gap ``mean_x s - mean_y s``: the numerator of the effect size, undivided."""
+    return float(sx.mean() - sy.mean())
+
+
 def effect_size(sx: np.ndarray, sy: np.ndarray) -> float:
-    """WEAT effect size with the population standard deviation; NaN if all scores are equal."""
+    """WEAT effect size ``d = (mean_x s - mean_y s) / std s`` with the population standard deviation
+    over all target words (shapes (n_x,), (n_y,)); NaN if all scores are equal."""
     sd = np.concatenate([sx, sy]).std(ddof=0)
-    return float((sx.mean() - sy.mean()) / sd) if sd > 0 else float("nan")
+    return float(mean_gap(sx, sy) / sd) if sd > 0 else float("nan")
+
+
+def score_gradient(scores: np.ndarray, n_x: int, quantity: str) -> np.ndarray:
+    """d quantity / d s(w) for every target word: the derivative of :func:`mean_gap` or :func:`effect_size`.
+
+    Parameters
+    ----------
+    scores : numpy.ndarray, shape (n_x + n_y,)
+        s(w, A, B) of the x words, then of the y words (n_y may be 0: a one-target test,
+        whose gap is ``mean_x s``).
+    n_x : int
+    quantity : {"gap", "effect_size"}
+        With one target set only the gap has a derivative; "effect_size" then gives the gap's.
+
+    Returns
+    -------
+    numpy.ndarray, shape (n_x + n_y,)
+        For the gap ``1/n_x`` and ``-1/n_y``; for d, with n = n_x + n_y,
+        ``coef / sd - gap (s - mean s) / (n sd^3)`` (quotient rule; d sd / d s = (s - mean s) / (n sd)).
+    """
+    n_y = len(scores) - n_x
+    coef = np.concatenate([np.full(n_x, 1.0 / n_x), np.full(n_y, -1.0 / n_y if n_y else 0.0)])
+    if quantity == "effect_size" and n_y:
+        sd = scores.std()
+        gap = mean_gap(scores[:n_x], scores[n_x:])
+        coef = coef / sd - gap * (scores - scores.mean()) / (len(scores) * sd ** 3)
+    return coef
 
 
 @dataclasses.dataclass(frozen=True)
@@ -174,7 +219,7 @@ def weat(unit: np.ndarray, index: dict, test: AssociationTest, *, rng=None,
     sy = association_scores(unit, rows["y"], rows["a"], rows["b"])
     perm = (permutation_p_value(sx, sy, exact_budget=exact_budget, n_resamples=n_resamples, rng=rng)
             if with_p else PermutationResult(float("nan"), "none", 0))
-    return WeatResult(effect_size(sx, sy), float(sx.sum() - sy.sum()), float(sx.mean() - sy.mean()),
+    return WeatResult(effect_size(sx, sy), float(sx.sum() - sy.sum()), mean_gap(sx, sy),
                       perm.p_value, perm.method, perm.n_partitions, ws, sx, sy)
 
 
@@ -198,5 +243,6 @@ def ripa_direction(emb: Embedding, pairs) -> np.ndarray | None:
 
 
 def unit_rows(vectors: np.ndarray) -> np.ndarray:
+    """Rows scaled to unit length (zero rows left as they are), shape as ``vectors``."""
     norms = np.linalg.norm(vectors, axis=1, keepdims=True)
     return vectors / np.where(norms > 0, norms, 1.0)

@@ -3,7 +3,7 @@
 ``W = U_k S_k ** p`` (p is the eigenvalue weight; Levy, Goldberg and Dagan
 2015 found p = 0 or 0.5 better than the classic p = 1). The SVD is made
 deterministic: the start vector comes from the seed, and each singular pair's
-sign is fixed so that the largest entry of its left vector is positive.
+sign is fixed so that the largest entry of its left vector is positive (:func:`fix_signs`).
 """
 
 from __future__ import annotations
@@ -66,6 +66,27 @@ def blas_threads_for(n_rows: int):
     return _blas_controller().limit(limits=1, user_api="blas")
 
 
+def fix_signs(u: np.ndarray, vt: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Singular pairs with a fixed sign: the largest entry (in absolute value) of each left vector
+    positive, the right vector flipped with it (so ``u diag(s) vt`` is unchanged).
+
+    A singular pair is defined up to a common sign, and different solvers (or start
+    vectors) return either; fixing it makes the vectors reproducible.
+
+    Parameters
+    ----------
+    u : numpy.ndarray, shape (n_rows, k)
+    vt : numpy.ndarray, shape (k, n_cols)
+
+    Returns
+    -------
+    u, vt : same shapes, new arrays
+    """
+    flip = np.sign(u[np.argmax(np.abs(u), axis=0), np.arange(u.shape[1])])
+    flip[flip == 0] = 1
+    return u * flip, vt * flip[:, None]
+
+
 def truncated_svd(matrix, k: int, seed: int = 0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """The k largest singular triplets, in descending order, with fixed signs.
 
@@ -84,9 +105,8 @@ def truncated_svd(matrix, k: int, seed: int = 0) -> tuple[np.ndarray, np.ndarray
         u, s, vt = svds(sp.csr_array(matrix, dtype=np.float64), k=k, v0=v0, solver="arpack")
     order = np.argsort(-s, kind="stable")
     u, s, vt = u[:, order], s[order], vt[order]
-    flip = np.sign(u[np.argmax(np.abs(u), axis=0), np.arange(k)])
-    flip[flip == 0] = 1
-    return u * flip, s, vt * flip[:, None]
+    u, vt = fix_signs(u, vt)
+    return u, s, vt
 
 
 def ppmi_svd_vectors(counts, settings: PpmiSvdSettings) -> tuple[np.ndarray, dict]:
@@ -106,7 +126,7 @@ def warm_truncated_svd(matrix, k: int, start: np.ndarray, *, n_iter: int = 4, ov
     so a few power iterations (Halko, Martinsson and Tropp 2011, alg. 4.4,
     with a warm start instead of a random one) replace a cold ARPACK run.
     ``oversample`` random extra columns absorb what the start misses. Signs are
-    fixed as in :func:`truncated_svd`.
+    fixed by :func:`fix_signs`.
     """
     m = sp.csr_array(matrix, dtype=np.float64)
     rng = np.random.default_rng(seed)
@@ -117,11 +137,8 @@ def warm_truncated_svd(matrix, k: int, start: np.ndarray, *, n_iter: int = 4, ov
             z, _ = np.linalg.qr(m.T @ q)
             q, _ = np.linalg.qr(m @ z)
         ub, s, vt = np.linalg.svd((m.T @ q).T, full_matrices=False)
-    u = q @ ub[:, :k]
-    s, vt = s[:k], vt[:k]
-    flip = np.sign(u[np.argmax(np.abs(u), axis=0), np.arange(k)])
-    flip[flip == 0] = 1
-    return u * flip, s, vt * flip[:, None]
+    u, vt = fix_signs(q @ ub[:, :k], vt[:k])
+    return u, s[:k], vt
 
 
 def ppmi_svd_vectors_warm(counts, settings: PpmiSvdSettings, start: np.ndarray) -> np.ndarray:

@@ -100,7 +100,9 @@ def correlate(workspace, tests_file, test_name, table_file, word_column, value_c
     Example:  tracer correlate -w work/ --tests configs/demo_tests.toml --test occupations
               --table corpora_demo/occupation_shares.csv --word-column occupation --value-column share_women
     """
-    from tracer.analysis.correlate import correlate as run_correlate, read_word_values, scatter_plot
+    from tracer.analysis.correlate import correlate as run_correlate
+    from tracer.provenance.tables import read_word_values
+    from tracer.app.report.figures import scatter_plot
     from tracer.provenance.counts import count_slice
     from tracer.provenance.models import train_embedding
     ws = open_workspace(workspace)
