@@ -366,10 +366,21 @@ def aligned(embeddings: list[Embedding], reference: int = -1) -> tuple[list[Embe
     return out, shared_counts
 
 
+def _all_distances(e: Embedding, prev: Embedding) -> np.ndarray:
+    """Cosine distance between the two aligned periods of every word both know: the noise floor
+    against which one word's change is read (shape (n_shared,))."""
+    shared = [w for w in e.words if w in prev.index]
+    a = e.unit_vectors[[e.index[w] for w in shared]].astype(np.float64)
+    b = prev.unit_vectors[[prev.index[w] for w in shared]].astype(np.float64)
+    return 1 - np.einsum("ij,ij->i", a, b)
+
+
 def word_drift(ws, words: list[str], periods: list[Slice], counts: CountSettings = CountSettings(),
                settings: PpmiSvdSettings = PpmiSvdSettings(), neighbours: int = 10) -> tuple[pd.DataFrame, pd.DataFrame, list[str]]:
-    """Per word and period: cosine distance to the previous period in the aligned space, and the nearest
-    neighbours in each period. Only words above the minimum count in both periods are compared."""
+    """Per word and period: cosine distance to the previous period in the aligned space, read against
+    the same distance of every word the two periods share (distance_percentile: the share of shared
+    words that moved no more, in percent; their median and 95th percentile beside it), and the
+    nearest neighbours in each period. Only words above the minimum count in both periods are compared."""
     embs = [train_embedding(ws, p, "ppmi-svd", counts, settings, save=False) for p in periods]
     rotated, shared = aligned(embs)
     notes = [f"{p.name}: {n} words shared with {periods[-1].name} were used for the rotation"
@@ -380,14 +391,17 @@ def word_drift(ws, words: list[str], periods: list[Slice], counts: CountSettings
     change, near = [], []
     for k, (p, e) in enumerate(zip(periods, rotated)):
         prev = rotated[k - 1] if k else None
-        both = sum(1 for w in e.words if prev is not None and w in prev.index)
+        floor = _all_distances(e, prev) if prev is not None else np.array([])
         for w in words:
-            row = {"word": w, "period": p.name, "in_vocabulary": w in e}
+            row = {"word": w, "period": p.name, "in_vocabulary": w in e, "distance_from_previous": None,
+                   "distance_percentile": None, "median_distance_all_words": None,
+                   "distance_95th_all_words": None, "words_compared": len(floor) if prev is not None else None}
             if w in e and prev is not None and w in prev:
-                row["distance_from_previous"] = float(1 - e.unit_vectors[e.index[w]] @ prev.unit_vectors[prev.index[w]])
-            else:
-                row["distance_from_previous"] = None
-            row["words_compared"] = both if prev is not None else None
+                dist = float(1 - e.unit_vectors[e.index[w]] @ prev.unit_vectors[prev.index[w]])
+                row.update(distance_from_previous=dist,
+                           distance_percentile=float(100 * np.mean(floor <= dist + 1e-12)),
+                           median_distance_all_words=float(np.median(floor)),
+                           distance_95th_all_words=float(np.percentile(floor, 95)))
             change.append(row)
             if w in e:
                 near.extend({"word": w, "period": p.name, "rank": r + 1, "neighbour": n, "cosine": s}

@@ -325,13 +325,15 @@ CAUTIONS = ("Cautions: an association in an embedding is not proof of discrimina
               help="Monte Carlo re-partitions when exact enumeration does not fit the budget.")
 @click.option("--exact-budget", type=click.IntRange(min=1), default=200_000, show_default=True,
               help="Enumerate every re-partition when there are at most this many.")
+@click.option("--per-slice-words", is_flag=True, default=False,
+              help="Each slice keeps the test words it knows (default: only words known in every slice).")
 @click.option("--show", type=click.Choice(["summary", "words", "leave-one-out"]), default="summary",
               show_default=True, help="Which table to print.")
 @output_options
 @click.pass_context
 def measure(ctx, workspace, tests_file, test_names, by, picks, window, min_count, weighting, max_vocab, model, dim,
             seed, eig_power, alpha, shift, cbow, negative, epochs, workers, bootstrap, seeds, vectors, min_words,
-            permutations, exact_budget, show, fmt, out):
+            permutations, exact_budget, per_slice_words, show, fmt, out):
     """Measure association tests on each slice: effect size, p-value, bootstrap interval, PMI view.
 
     Example:  tracer measure -w work/ --tests configs/demo_tests.toml --by time:10y --format json
@@ -344,7 +346,8 @@ def measure(ctx, workspace, tests_file, test_names, by, picks, window, min_count
     if bootstrap is None:
         bootstrap = 20 if model == "ppmi-svd" else 0
     settings = MeasureSettings(min_words=min_words, bootstrap=bootstrap, seeds=seeds, permutations=permutations,
-                               exact_budget=exact_budget, seed=0 if seed is None else seed, alpha=alpha)
+                               exact_budget=exact_budget, seed=0 if seed is None else seed, alpha=alpha,
+                               per_slice_words=per_slice_words)
     from tracer.provenance.vectors_io import read_word2vec_format
     ext = read_word2vec_format(vectors) if vectors else None
     # with --vectors alone only those are measured; with slices too, both side by side
@@ -354,7 +357,8 @@ def measure(ctx, workspace, tests_file, test_names, by, picks, window, min_count
                          epochs, workers), settings, vectors=ext, progress=_progress(ctx))
     table = {"summary": result.summary, "words": result.words, "leave-one-out": result.leave_one_out}[show]
     if fmt == "table" and show == "summary":
-        cols = ["test", "model", "slice", "measured", "effect_size", "ci_low", "ci_high", "p_value", "p_method",
+        cols = ["test", "model", "slice", "measured", "effect_size", "ci_low", "ci_high", "p_value", "q_value",
+                "p_method",
                 "gap", "pmi_effect_size", "pmi_p_value", "mean_score", "n_targets_x", "n_targets_y",
                 "n_attributes_a", "n_attributes_b", "dropped_words", "reason"]
         shown = table[cols].copy()
@@ -363,7 +367,9 @@ def measure(ctx, workspace, tests_file, test_names, by, picks, window, min_count
         text = render(shown)
         notes = sorted({w for w in table["warning"] if w})
         text += ("\neffect_size: WEAT d, " + table["std_convention"].iloc[0] + "; p_value: one-sided permutation; "
-                 f"interval: {bootstrap} document-bootstrap replicates (percentile 2.5-97.5).\n"
+                 "q_value: Benjamini-Hochberg over every p-value in this table; "
+                 f"interval: 95%, {bootstrap} document-bootstrap replicates (standard error, t quantile, "
+                 "centred on the estimate).\n"
                  "Cohen's conventions: |d| 0.2 small, 0.5 medium, 0.8 large; |d| <= 2 for equal set sizes.\n"
                  + "".join(f"Warning: {w}\n" for w in notes) + CAUTIONS + "\n") if len(table) else ""
         _emit(text, out, ctx)
@@ -706,13 +712,15 @@ def plan(ctx, workspace, tests_file, test_name, goal, unit, slice_spec, max_step
               help="A period with fewer tokens is not measured.")
 @click.option("--neighbours", type=click.IntRange(min=1), default=10, show_default=True,
               help="With --words: nearest neighbours listed per period.")
+@click.option("--per-slice-words", is_flag=True, default=False,
+              help="Each period keeps the test words it knows (default: only words known in every period).")
 @click.option("--show", type=click.Choice(["all", "periods", "trend", "changes", "sources"]), default="all",
               show_default=True, help="Which table to print (json always gives all).")
 @output_options
 @click.pass_context
 def drift(ctx, workspace, tests_file, test_names, words, by, window, min_count, weighting, max_vocab, model, dim,
-          seed, eig_power, alpha, shift, cbow, negative, epochs, workers, bootstrap, min_tokens, neighbours, show,
-          fmt, out):
+          seed, eig_power, alpha, shift, cbow, negative, epochs, workers, bootstrap, min_tokens, neighbours,
+          per_slice_words, show, fmt, out):
     """How an association (or a word) moved from period to period, and why.
 
     Example:  tracer drift -w work/ --tests configs/demo_tests.toml --test tribune_mix --by time:10y
@@ -746,7 +754,8 @@ def drift(ctx, workspace, tests_file, test_names, words, by, window, min_count, 
         raise InputError("give --tests FILE (and --test NAME), or --words")
     tests = _load_tests(tests_file, test_names)
     chosen = list(tests.values()) if test_names else [t for t in tests.values() if t.two_target]
-    settings = MeasureSettings(bootstrap=bootstrap, seed=0 if seed is None else seed, alpha=alpha)
+    settings = MeasureSettings(bootstrap=bootstrap, seed=0 if seed is None else seed, alpha=alpha,
+                               per_slice_words=per_slice_words)
     results = list(drift_tests(ws, {t.name: t for t in chosen}, model, periods, counts,
                                _model_settings(model, dim, seed, eig_power, alpha, shift, cbow, negative, epochs,
                                                workers),

@@ -127,7 +127,7 @@ def min_replicates_for_percentiles(level: float = LEVEL) -> int:
     """Fewest replicates for which the (1 - level)/2 and (1 + level)/2 percentiles are order statistics
     strictly inside the sample: ``(n + 1) (1 - level) / 2 >= 1``, so 39 at 95%. Below it the
     interval is the sample's minimum and maximum, whose coverage depends on n, not on ``level``."""
-    return math.ceil(2.0 / (1.0 - level)) - 1
+    return math.ceil(round(2.0 / (1.0 - level), 9)) - 1
 
 
 def percentile_interval(replicates, level: float = LEVEL) -> tuple[float, float]:
