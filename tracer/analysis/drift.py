@@ -278,6 +278,9 @@ def _decompose(ws, test, measured, table, reps, shared: _Reweighted, notes):
             notes.append(f"{a.name} -> {b.name}: sources in one period only: "
                          + ", ".join([f"{s} ({a.name})" for s in only_a] + [f"{s} ({b.name})" for s in only_b]))
         sa, sb = source_shares(ws, a.weights), source_shares(ws, b.weights)
+        note = _upweight_note(a.name, b.name, sa, sb)
+        if note:
+            notes.append(note)
         within_by_source = _within_by_source(ws, test, a, rw_b, shared) if sum_b.loc[test.name].measured else {}
         for s in sorted(set(sa.index) | set(sb.index)):
             parts.append({"from": a.name, "to": b.name, "source": s, "share_from": float(sa.get(s, 0.0)),
@@ -290,6 +293,26 @@ CHANGE_COLUMNS = ["from", "to", "overall", "total", "total_ci_low", "total_ci_hi
                   "mix_ci_high", "within_part", "within_ci_low", "within_ci_high", "mix_share", "mix_part_at_from_mix",
                   "mix_part_at_to_mix", "reweighted_gap",
                   "sources_only_in_from", "sources_only_in_to"]
+
+
+UPWEIGHT_NOTE_FROM = 3.0
+
+
+def _upweight_note(a: str, b: str, sa: pd.Series, sb: pd.Series) -> str:
+    """A note when either reweighting multiplies one source's documents by UPWEIGHT_NOTE_FROM or more:
+    a model of few distinct documents weighted up gives smaller gaps (as bootstrap replicates do),
+    a bias the replicate intervals do not show."""
+    common = sa.index.intersection(sb.index)
+    if len(common) == 0:
+        return ""
+    fa, fb = sa[common] / sa[common].sum(), sb[common] / sb[common].sum()
+    worst = max(((fb / fa).max(), (fb / fa).idxmax(), a, b), ((fa / fb).max(), (fa / fb).idxmax(), b, a))
+    if worst[0] < UPWEIGHT_NOTE_FROM:
+        return ""
+    factor, source, period, other = worst
+    return (f"{a} -> {b}: {period} reweighted to the source mix of {other} weights the documents of {source} "
+            f"{factor:.1f}x; a model of so few distinct documents tends to give smaller gaps, which the "
+            "intervals do not show: compare mix_part_at_from_mix and mix_part_at_to_mix")
 
 
 def _part_intervals(rep_a, rep_b, rep_ab, rep_ba, ga, gb, gab, gba) -> dict:

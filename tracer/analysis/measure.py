@@ -199,32 +199,17 @@ def measure(ws, tests: dict[str, AssociationTest], model: str, slices: list[Slic
                        "text are unstable; read the interval, not the point estimate")
         known = set(embs[0].index) & (set(c.vocab.index) if c is not None else set(embs[0].index))
         for name, test in used.items():
-            original = tests[name]
-            base = {"test": test.name, "kind": "two-target" if test.two_target else "one-target",
-                    "model": model_name, "slice": slice_name, "slice_tokens": sl.n_tokens if sl else None,
-                    "std_convention": STD_CONVENTION, "warning": warning, "seeds": len(embs),
-                    "word_sets": "common" if common is not None else "per slice",
-                    "dropped_words": [w for w in original.all_words if w not in known],
-                    "not_in_every_slice": [w for w in original.all_words if w in known and common is not None
-                                           and w not in common]}
-            wsets = word_sets(test, known)
-            base.update(n_targets_x=len(wsets.x), n_targets_y=len(wsets.y) if test.two_target else None,
-                        n_attributes_a=len(wsets.a), n_attributes_b=len(wsets.b))
-            reason = wsets.reason_not_measured(test.two_target, settings.min_words)
+            base, wsets, reason = _row_base(test, tests[name], known, common, settings.min_words)
+            base.update({"model": model_name, "slice": slice_name, "slice_tokens": sl.n_tokens if sl else None,
+                         "warning": warning, "seeds": len(embs)})
             if reason:
-                if common is not None and not word_sets(original, known).reason_not_measured(
-                        test.two_target, settings.min_words):
-                    reason += " once the words missing from another slice are left out (see --per-slice-words)"
                 rows.append({**base, "measured": False, "reason": reason})
                 continue
             one = _measure_one(test, wsets, embs, c, ppmi, boot.get(test.name), settings,
                                _stream(settings.seed, "permutations", slice_name, test.name))
             note = one.pop("interval_note", "")
-            if one.get("p_method") == "exact" and one["p_value"] <= (1 + 1e-9) / one["n_partitions"]:
-                note = "; ".join(filter(None, [note, f"p = 1/{one['n_partitions']} is the smallest the exact "
-                                                     "permutation test can give with these target sets"]))
-            rows.append({**base, "warning": "; ".join(filter(None, [warning, note])), "measured": True, "reason": "",
-                         **one})
+            rows.append({**base, "warning": "; ".join(filter(None, [warning, note, _p_floor_note(one)])),
+                         "measured": True, "reason": "", **one})
             word_rows.extend({"test": test.name, "model": model_name, "slice": slice_name, **r}
                              for r in _word_table(test, wsets, embs[0], c, ppmi))
             loo_rows.extend({"test": test.name, "model": model_name, "slice": slice_name, **r}
@@ -234,6 +219,32 @@ def measure(ws, tests: dict[str, AssociationTest], model: str, slices: list[Slic
     return MeasureResult(summary, pd.DataFrame(word_rows, columns=WORD_COLUMNS),
                          pd.DataFrame(loo_rows, columns=LOO_COLUMNS),
                          pd.DataFrame(rep_rows, columns=["test", "model", "slice", "replicate", "effect_size", "gap"]))
+
+
+def _row_base(test, original, known, common, min_words) -> tuple[dict, object, str | None]:
+    """The columns of a summary row that do not need a model: kind, word counts, the words dropped
+    and why; with the test's word sets in this slice and the reason it cannot be measured, if any."""
+    base = {"test": test.name, "kind": "two-target" if test.two_target else "one-target",
+            "std_convention": STD_CONVENTION, "word_sets": "common" if common is not None else "per slice",
+            "dropped_words": [w for w in original.all_words if w not in known],
+            "not_in_every_slice": [w for w in original.all_words if w in known and common is not None
+                                   and w not in common]}
+    wsets = word_sets(test, known)
+    base.update(n_targets_x=len(wsets.x), n_targets_y=len(wsets.y) if test.two_target else None,
+                n_attributes_a=len(wsets.a), n_attributes_b=len(wsets.b))
+    reason = wsets.reason_not_measured(test.two_target, min_words)
+    if reason and common is not None and not word_sets(original, known).reason_not_measured(test.two_target,
+                                                                                            min_words):
+        reason += " once the words missing from another slice are left out (see --per-slice-words)"
+    return base, wsets, reason
+
+
+def _p_floor_note(one: dict) -> str:
+    """Says so when an exact permutation p is the smallest its partitions allow."""
+    if one.get("p_method") == "exact" and one["p_value"] <= (1 + 1e-9) / one["n_partitions"]:
+        return (f"p = 1/{one['n_partitions']} is the smallest the exact permutation test can give with these "
+                "target sets")
+    return ""
 
 
 SUMMARY_COLUMNS = ["test", "kind", "model", "slice", "measured", "reason", "effect_size", "gap", "statistic",
