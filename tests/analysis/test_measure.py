@@ -158,7 +158,9 @@ def test_intervals_are_the_replicates_standard_error_around_the_estimate(demo_re
         half = stats.t.ppf(0.975, len(g) - 1) * g.gap.std(ddof=1)
         assert (r.gap_ci_low, r.gap_ci_high) == pytest.approx((r.gap - half, r.gap + half), rel=1e-9)
         half_d = stats.t.ppf(0.975, len(g) - 1) * g.effect_size.std(ddof=1)
-        assert (r.ci_low, r.ci_high) == pytest.approx((r.effect_size - half_d, r.effect_size + half_d), rel=1e-9)
+        bound = (r.n_targets_x + r.n_targets_y) / np.sqrt(r.n_targets_x * r.n_targets_y)  # largest |d| possible
+        assert (r.ci_low, r.ci_high) == pytest.approx((max(r.effect_size - half_d, -bound),
+                                                       min(r.effect_size + half_d, bound)), rel=1e-9)
         assert r.replicate_shift == pytest.approx(g.gap.mean() - r.gap)
 
 

@@ -290,7 +290,9 @@ def _measure_one(test, wsets, embs, c, ppmi, boot, settings, rng) -> dict:
         if boot is not None:
             d, gap = boot
             di, gi = bootstrap_interval(out["effect_size"], d), bootstrap_interval(out["gap"], gap)
-            out.update(ci_low=di.low, ci_high=di.high, gap_ci_low=gi.low, gap_ci_high=gi.high, gap_se=gi.se,
+            # |d| cannot exceed n / sqrt(n_x n_y) (2 for equal sets): the symmetric interval stops there
+            bound = (len(wsets.x) + len(wsets.y)) / np.sqrt(len(wsets.x) * len(wsets.y))
+            out.update(ci_low=max(di.low, -bound), ci_high=min(di.high, bound), gap_ci_low=gi.low, gap_ci_high=gi.high, gap_se=gi.se,
                        replicate_shift=float(np.nanmean(gap)) - out["gap"], interval_method=INTERVAL_METHOD,
                        n_bootstrap=len(d), interval_note=gi.note)
         else:
