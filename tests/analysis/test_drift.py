@@ -7,13 +7,14 @@ import numpy as np
 import pandas as pd
 import pytest
 from click.testing import CliRunner
+from scipy import stats
 from scipy.linalg import orthogonal_procrustes
 
 from tracer.app.cli import cli
 from tracer.corpus.ingest import ingest
 from tracer.corpus.slices import slices_by
 from tracer.corpus.workspace import Workspace
-from tracer.analysis.drift import aligned, drift, drift_tests, procrustes_rotation, reweight_to, source_shares, word_drift
+from tracer.analysis.drift import _trend, aligned, drift, drift_tests, procrustes_rotation, reweight_to, source_shares, word_drift
 from tracer.core.ppmi_svd import PpmiSvdSettings
 from tracer.core.embedding import Embedding
 from tracer.analysis.measure import MeasureSettings
@@ -71,8 +72,44 @@ def test_rise_and_fall_peaks_inside_the_planted_peak(drifts):
 def test_a_change_through_one_outlets_share_is_mostly_mix(drifts):
     ch = drifts["tribune_mix"].changes
     overall = ch[ch.overall].iloc[0]
-    assert overall.total > 0.2 and overall.mix_part / overall.total > 0.7
+    # symmetric split: the parts add up to the change, and each is the mean of the two directions
+    np.testing.assert_allclose(ch.mix_part + ch.within_part, ch.total, atol=1e-12)
+    np.testing.assert_allclose((ch.mix_part_at_from_mix + ch.mix_part_at_to_mix) / 2, ch.mix_part, atol=1e-12)
+    np.testing.assert_allclose(ch.mix_share, ch.mix_part / ch.total)
+    # planted through the Tribune's share only: the mix part is positive with its interval above 0;
+    # the later period reweighted to the earlier mix alone puts more than 70% of the change there
+    assert overall.total > 0.2 and overall.mix_ci_low > 0 and overall.mix_part_at_from_mix / overall.total > 0.7
+    assert overall.mix_ci_low <= overall.mix_part <= overall.mix_ci_high
     assert drifts["tribune_mix"].trend["slope"] > 0 and drifts["tribune_mix"].trend["p_value"] < 0.05
+
+
+def test_changes_are_significant_where_the_independent_intervals_exclude_0(drifts):
+    p = drifts["rise_and_fall"].periods.iloc[1:]
+    gaps = drifts["rise_and_fall"].periods.gap.to_numpy()
+    np.testing.assert_allclose(p.change, np.diff(gaps))
+    excludes = (p.change_ci_low > 0) | (p.change_ci_high < 0)
+    assert (p.change_significant.astype(bool) == excludes).all()
+    # planted strength 0 -> .3 in the first step (corpora_demo/README.md): a clear rise
+    assert p.change_significant.iloc[0] and p.change_ci_low.iloc[0] > 0
+    assert ((p.change_ci_low <= p.change) & (p.change <= p.change_ci_high)).all()
+
+
+def test_the_slope_is_per_decade_and_its_interval_combines_the_periods():
+    """A gap rising by 0.1 per decade: slope 0.1 gap per decade (scipy.stats.linregress as the reference),
+    standard error sqrt(sum c_i^2 se_i^2) from each period's replicates."""
+    names = [f"time={y}..{y + 9}" for y in range(1950, 2020, 10)]
+    gaps = 0.1 * np.arange(7) + np.array([0.01, -0.02, 0.0, 0.015, -0.01, 0.0, 0.005])
+    rng = np.random.default_rng(0)
+    reps = {n: g + rng.normal(0, 0.02, 10) for n, g in zip(names, gaps)}
+    t = _trend(pd.DataFrame({"period": names, "gap": gaps}), reps)
+    x = np.array([(y + y + 9) / 2 / 10 for y in range(1950, 2020, 10)])
+    assert t["slope"] == pytest.approx(stats.linregress(x, gaps).slope, rel=1e-12)
+    assert t["slope"] == pytest.approx(0.1, abs=0.01) and t["slope_unit"] == "gap per decade"
+    c = (x - x.mean()) / np.sum((x - x.mean()) ** 2)
+    se = np.sqrt(np.sum(c ** 2 * np.array([reps[n].var(ddof=1) for n in names])))
+    assert t["slope_ci_low"] < t["slope"] < t["slope_ci_high"]
+    assert (t["slope_ci_high"] - t["slope_ci_low"]) / 2 == pytest.approx(1.96 * se, rel=0.15)
+    assert t["p_floor"] == pytest.approx(2 / 5040) and t["p_value"] == pytest.approx(t["p_floor"])
 
 
 def test_a_change_inside_the_outlets_is_mostly_within(drifts):
@@ -110,6 +147,9 @@ def test_word_drift_compares_shared_words_only(demo_ws):
     later = change.iloc[2:]
     assert (later.distance_from_previous.between(0, 2)).all() and (later.words_compared > 100).all()
     assert len(near) == 6 * 4 and len(notes) == 3
+    # each change read against every shared word's change between the same two periods
+    assert later.distance_percentile.between(0, 100).all() and (later.median_distance_all_words > 0).all()
+    assert (later.distance_95th_all_words >= later.median_distance_all_words).all()
 
 
 def test_drift_cli_json_keys(demo_ws):

@@ -2,6 +2,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from scipy import stats
 from scipy.stats.contingency import odds_ratio
 
 from tracer.core.counting import CountSettings
@@ -69,10 +70,11 @@ def test_conventions_and_guards_are_reported(demo_result):
     gazette = _row(demo_result, "gazette_outlet", "source=Gazette")
     assert "slice source=Gazette has" in gazette.warning and "fewer than 100000" in gazette.warning
     assert "fewer than 100000" not in _row(demo_result, "gazette_outlet", "all").warning
-    # the bootstrap caution appears exactly where the gap lies outside its own interval
     two = s[(s.kind == "two-target") & s.measured.astype(bool)]
-    outside = (two.gap < two.gap_ci_low) | (two.gap > two.gap_ci_high)
-    assert (two.warning.str.contains("outside its bootstrap interval") == outside).all()
+    # every estimate inside its interval; five replicates are flagged as too few for a sure width
+    assert ((two.ci_low <= two.effect_size) & (two.effect_size <= two.ci_high)).all()
+    assert ((two.gap_ci_low <= two.gap) & (two.gap <= two.gap_ci_high)).all()
+    assert two.warning.str.contains("interval from 5 replicates, fewer than 10").all()
     occ = _row(demo_result, "occupations", "all")
     assert occ.kind == "one-target" and np.isfinite(occ.mean_score) and np.isnan(occ.effect_size)
 
@@ -145,3 +147,44 @@ def test_a_result_does_not_depend_on_the_other_tests_or_slices_measured_with_it(
     a = alone.set_index(["test", "slice"]).loc[("gazette_outlet", "source=Herald"), cols]
     b = together.set_index(["test", "slice"]).loc[("gazette_outlet", "source=Herald"), cols]
     assert alone.loc[0, "p_method"] != "exact" and a.tolist() == b.tolist()
+
+
+def test_intervals_are_the_replicates_standard_error_around_the_estimate(demo_result):
+    """Half-width t(n-1) * sd of the replicate table (scipy.stats.t), centred on the estimate."""
+    s = demo_result.summary.set_index(["test", "slice"])
+    reps = demo_result.replicates
+    for (test, sl), g in reps.groupby(["test", "slice"]):
+        r = s.loc[(test, sl)]
+        half = stats.t.ppf(0.975, len(g) - 1) * g.gap.std(ddof=1)
+        assert (r.gap_ci_low, r.gap_ci_high) == pytest.approx((r.gap - half, r.gap + half), rel=1e-9)
+        half_d = stats.t.ppf(0.975, len(g) - 1) * g.effect_size.std(ddof=1)
+        bound = (r.n_targets_x + r.n_targets_y) / np.sqrt(r.n_targets_x * r.n_targets_y)  # largest |d| possible
+        assert (r.ci_low, r.ci_high) == pytest.approx((max(r.effect_size - half_d, -bound),
+                                                       min(r.effect_size + half_d, bound)), rel=1e-9)
+        assert r.replicate_shift == pytest.approx(g.gap.mean() - r.gap)
+
+
+def test_q_values_cover_every_test_and_slice_of_the_call(demo_result):
+    s = demo_result.summary
+    ok = s.p_value.notna()
+    # reference: scipy.stats.false_discovery_control, Benjamini-Hochberg
+    np.testing.assert_allclose(s.q_value[ok], stats.false_discovery_control(s.p_value[ok], method="bh"))
+    assert s.q_value[~ok].isna().all() and ok.sum() == 65
+
+
+def test_slices_compare_the_words_known_in_every_slice(demo_ws):
+    # at min count 40, "children", "family" and "marriage" are known in the Ledger but not in the Gazette
+    t = AssociationTest("partly", ("harbour", "boat", "captain", "children", "family"),
+                        ("wheat", "barn", "field", "marriage", "tide"), ("joy",), ("agony",), ())
+    slices = [slice_from_spec(demo_ws, "source=Ledger"), slice_from_spec(demo_ws, "source=Gazette")]
+    counts, svd = CountSettings(min_count=40), PpmiSvdSettings(dim=50)
+    common = measure(demo_ws, {"partly": t}, "ppmi-svd", slices, counts, svd).summary.set_index("slice")
+    own = measure(demo_ws, {"partly": t}, "ppmi-svd", slices, counts, svd,
+                  MeasureSettings(per_slice_words=True)).summary.set_index("slice")
+    assert set(common.word_sets) == {"common"} and set(own.word_sets) == {"per slice"}
+    assert (common.n_targets_x.tolist(), common.n_targets_y.tolist()) == ([3, 3], [4, 4])
+    assert common.loc["source=Ledger", "not_in_every_slice"] == ["children", "family", "marriage"]
+    assert common.loc["source=Gazette", "dropped_words"] == ["children", "family", "marriage"]
+    assert (own.loc["source=Ledger", "n_targets_x"], own.loc["source=Ledger", "n_targets_y"]) == (5, 5)
+    assert own.loc["source=Ledger", "effect_size"] != common.loc["source=Ledger", "effect_size"]
+    assert own.loc["source=Gazette", "effect_size"] == pytest.approx(common.loc["source=Gazette", "effect_size"])

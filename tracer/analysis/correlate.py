@@ -10,6 +10,7 @@ from scipy import stats
 
 from tracer.core.association import AssociationTest, association_scores, unit_rows
 from tracer.core.embedding import Embedding
+from tracer.core.intervals import min_replicates_for_percentiles, percentile_interval
 from tracer.errors import InputError
 from tracer.provenance.tables import WordValues
 
@@ -29,7 +30,8 @@ def single_word_scores(emb: Embedding, words: list[str], test: AssociationTest) 
 
 
 def correlation_with_intervals(x: np.ndarray, y: np.ndarray, n_boot: int, rng: np.random.Generator) -> dict:
-    """Pearson r and Spearman rho with their p-values and percentile intervals over words resampled."""
+    """Pearson r and Spearman rho with their p-values and percentile intervals over words resampled
+    (NaN below :func:`tracer.core.intervals.min_replicates_for_percentiles` usable resamples)."""
     n = len(x)
     pr = stats.pearsonr(x, y)
     sr = stats.spearmanr(x, y)
@@ -41,7 +43,7 @@ def correlation_with_intervals(x: np.ndarray, y: np.ndarray, n_boot: int, rng: n
         boot_p.append(stats.pearsonr(x[i], y[i]).statistic)
         boot_s.append(stats.spearmanr(x[i], y[i]).statistic)
     def ci(v):
-        return (float(np.percentile(v, 2.5)), float(np.percentile(v, 97.5))) if v else (np.nan, np.nan)
+        return percentile_interval(v) if len(v) >= min_replicates_for_percentiles() else (np.nan, np.nan)
     return {"pearson_r": float(pr.statistic), "pearson_p": float(pr.pvalue),
             "pearson_ci_low": ci(boot_p)[0], "pearson_ci_high": ci(boot_p)[1],
             "spearman_rho": float(sr.statistic), "spearman_p": float(sr.pvalue),

@@ -10,6 +10,7 @@ size is shown beside it.
 from __future__ import annotations
 
 import dataclasses
+import math
 
 import numpy as np
 import pandas as pd
@@ -17,12 +18,15 @@ from scipy import stats
 
 from tracer.core.counting import CountSettings
 from tracer.corpus.slices import Slice
-from tracer.core.ppmi_svd import PpmiSvdSettings
-from tracer.provenance.models import train_embedding
+from tracer.core.association import AssociationTest, unit_rows, weat
 from tracer.core.embedding import Embedding
+from tracer.core.intervals import combined_interval, difference_interval
+from tracer.core.ppmi_svd import PpmiSvdSettings, ppmi_svd_vectors_warm
 from tracer.errors import SettingError, WordNotInVocabulary
-from tracer.analysis.measure import MeasureSettings, measure
-from tracer.core.association import AssociationTest
+from tracer.analysis.measure import (MeasureSettings, bootstrap_stream, bootstrap_weights, common_words, measure,
+                                     restricted)
+from tracer.provenance.counts import count_slice
+from tracer.provenance.models import embedding_from_counts, train_embedding
 
 DEFAULT_MIN_TOKENS = 20_000
 
@@ -30,13 +34,18 @@ DEFAULT_MIN_TOKENS = 20_000
 @dataclasses.dataclass(frozen=True)
 class DriftResult:
     """``periods``: period, measured, reason, effect_size, ci_low, ci_high, gap, gap_ci_low, gap_ci_high,
-    tokens, documents, dropped_words, change_significant (the gap's change from the previous measured
-    period: its bootstrap interval excludes 0). ``trend``: slope (gap per decade), slope_ci_low,
-    slope_ci_high, p_value (Kendall's tau of gap against time), tau, periods_used. ``changes``: from, to,
-    total, mix_part, within_part, mix_share, reweighted_gap, sources_only_in_from, sources_only_in_to.
-    ``source_parts``: from, to, source, share_from, share_to, within_contribution (the source's share of
-    the within-source change, estimated with trace's machinery: the within change minus what it would
-    be without that source in both periods)."""
+    tokens, documents, dropped_words, change (the gap minus the previous measured period's),
+    change_ci_low, change_ci_high (from the two periods' independent replicate sets, no pairing),
+    change_significant (that interval excludes 0). ``trend``: slope, slope_unit ("gap per decade"),
+    slope_ci_low, slope_ci_high (the OLS slope's interval from each period's own replicates),
+    p_value (Kendall's tau of gap against time), tau, p_floor (the smallest p Kendall's exact test
+    can give with this many periods), periods_used. ``changes``: from, to, overall, total, total_ci_low,
+    total_ci_high, mix_part, mix_ci_low, mix_ci_high, within_part, within_ci_low, within_ci_high,
+    mix_share (mix_part / total, see :func:`_decompose`), mix_part_at_from_mix and mix_part_at_to_mix
+    (the mix part of each reweighting direction alone, whose mean is mix_part), reweighted_gap, sources_only_in_from,
+    sources_only_in_to. ``source_parts``: from, to, source, share_from, share_to, within_contribution
+    (the source's share of the within-source change, estimated with trace's machinery: the within
+    change minus what it would be without that source in both periods)."""
 
     test: str
     model: str
@@ -45,6 +54,9 @@ class DriftResult:
     changes: pd.DataFrame
     source_parts: pd.DataFrame
     notes: list[str]
+
+
+SLOPE_UNIT = "gap per decade"
 
 
 def _decade_position(name: str) -> float:
@@ -97,7 +109,8 @@ def drift_tests(ws, tests: dict[str, AssociationTest], model: str, periods: list
                 progress: bool = False) -> dict[str, DriftResult]:
     """:func:`drift` of several tests, by name: each period's models, bootstrap replicates and
     reweighted counterparts are made once for all of them (the results are those of one test at
-    a time: every test and slice draws from its own random stream)."""
+    a time: every test and slice draws from its own random stream). Unless
+    ``settings.per_slice_words``, every period uses the words known in every measured period."""
     for test in tests.values():
         if not test.two_target:
             raise SettingError(f"test {test.name} has one target set; drift takes two-target tests")
@@ -105,8 +118,11 @@ def drift_tests(ws, tests: dict[str, AssociationTest], model: str, periods: list
         raise SettingError("drift needs at least two periods (e.g. --by time:10y)")
     usable = [p for p in periods if p.n_tokens >= min_tokens]
     res = measure(ws, tests, model, usable, counts, model_settings, settings, progress=progress)
-    shared = _Reweighted(ws, tests, model, counts, model_settings, settings)
-    return {name: _one_drift(ws, test, model, periods, res, shared, min_tokens) for name, test in tests.items()}
+    used = tests
+    if not settings.per_slice_words and len(usable) > 1:
+        used = {n: restricted(t, common_words(ws, tests, usable, counts)) for n, t in tests.items()}
+    shared = _Reweighted(ws, used, model, counts, model_settings, settings)
+    return {name: _one_drift(ws, test, model, periods, res, shared, min_tokens) for name, test in used.items()}
 
 
 def _one_drift(ws, test, model, periods, res, shared, min_tokens) -> DriftResult:
@@ -129,99 +145,191 @@ def _one_drift(ws, test, model, periods, res, shared, min_tokens) -> DriftResult
     replicates = res.replicates[res.replicates["test"] == test.name]
     reps = {name: g.sort_values("replicate")["gap"].to_numpy() for name, g in replicates.groupby("slice")}
     measured = [p for p in periods if table.set_index("period").loc[p.name, "measured"]]
-    sig = {}
+    gaps = table.set_index("period")["gap"]
+    change = {}
     for a, b in zip(measured[:-1], measured[1:]):
-        if a.name in reps and b.name in reps:
-            diff = reps[b.name] - reps[a.name][: len(reps[b.name])]
-            lo, hi = np.percentile(diff, [2.5, 97.5])
-            sig[b.name] = bool(lo > 0 or hi < 0)
-    table["change_significant"] = table["period"].map(sig)
+        iv = difference_interval(gaps[a.name], reps.get(a.name, []), gaps[b.name], reps.get(b.name, []))
+        change[b.name] = (iv.estimate, iv.low, iv.high, bool(iv.low > 0 or iv.high < 0) if iv.n >= 2 else None)
+    for k, col in enumerate(["change", "change_ci_low", "change_ci_high", "change_significant"]):
+        table[col] = table["period"].map({n: v[k] for n, v in change.items()})
     trend = _trend(table[table["measured"] == True], reps)  # noqa: E712 - a column of bools
-    changes, parts = _decompose(ws, test, measured, table, shared, notes)
+    if trend["p_value"] is not None and trend["p_value"] <= trend["p_floor"] * (1 + 1e-9):
+        notes.append(f"trend: p = {trend['p_value']:.3g} is the smallest Kendall's exact test can give with "
+                     f"{trend['periods_used']} periods (2 / {trend['periods_used']}!); more periods are needed for "
+                     "a smaller one")
+    changes, parts = _decompose(ws, test, measured, table, reps, shared, notes)
     return DriftResult(test.name, model, table, trend, changes, parts, notes)
 
 
 def _trend(measured: pd.DataFrame, reps: dict) -> dict:
-    """OLS slope of the gap per decade, its interval from one bootstrap replicate per period, and
-    Kendall's tau (a rank-based trend test) of the gap against time."""
-    if len(measured) < 3:
-        return {"slope": None, "slope_ci_low": None, "slope_ci_high": None, "p_value": None, "tau": None,
-                "periods_used": len(measured)}
+    """OLS slope of the gap per decade with its interval, and Kendall's tau of the gap against time.
+
+    The slope is ``sum_i c_i gap_i`` with ``c_i = (x_i - mean x) / sum (x - mean x)^2`` (x in
+    decades), so its standard error combines each period's own bootstrap standard error
+    (independent periods, :func:`tracer.core.intervals.combined_interval`). The interval is for
+    the slope through these periods' gaps: it reflects the sampling of documents within the
+    periods, not how well a straight line fits.
+    """
+    n = len(measured)
+    if n < 3:
+        return {"slope": None, "slope_unit": SLOPE_UNIT, "slope_ci_low": None, "slope_ci_high": None,
+                "p_value": None, "tau": None, "p_floor": None, "periods_used": n}
     x = np.array([_decade_position(p) for p in measured["period"]])
     y = measured["gap"].to_numpy(dtype=float)
-    slope = float(np.polyfit(x, y, 1)[0])
+    coef = (x - x.mean()) / np.sum((x - x.mean()) ** 2)
+    slope = float(coef @ y)
     lo = hi = None
     if all(p in reps for p in measured["period"]):
-        n = min(len(reps[p]) for p in measured["period"])
-        draws = np.array([reps[p][:n] for p in measured["period"]])  # (periods, replicates)
-        slopes = np.polyfit(x, draws, 1)[0]
-        lo, hi = (float(v) for v in np.percentile(slopes, [2.5, 97.5]))
+        iv = combined_interval(slope, coef, [reps[p] for p in measured["period"]])
+        lo, hi = iv.low, iv.high
     tau = stats.kendalltau(x, y)
-    return {"slope": slope, "slope_ci_low": lo, "slope_ci_high": hi, "p_value": float(tau.pvalue),
-            "tau": float(tau.statistic), "periods_used": len(measured)}
+    return {"slope": slope, "slope_unit": SLOPE_UNIT, "slope_ci_low": lo, "slope_ci_high": hi,
+            "p_value": float(tau.pvalue), "tau": float(tau.statistic), "p_floor": 2.0 / math.factorial(n),
+            "periods_used": n}
 
 
 class _Reweighted:
-    """The later period of each pair reweighted to the earlier one's source mix: measured for every
-    test, and counted and factorised for the per-source split, once per pair."""
+    """Each period of a pair reweighted to the other's source mix: measured for every test, with
+    bootstrap replicates that reuse the period's own resamples (so that a period's plain and
+    reweighted replicates move together), and counted and factorised for the per-source split."""
 
     def __init__(self, ws, tests, model, counts, model_settings, settings: MeasureSettings):
         self.ws, self.tests, self.model, self.counts = ws, tests, model, counts
         self.model_settings = model_settings
+        self.settings = settings
         self.svd = model_settings if isinstance(model_settings, PpmiSvdSettings) else PpmiSvdSettings(
             dim=getattr(model_settings, "dim", 100))
-        self.one = MeasureSettings(min_words=settings.min_words, bootstrap=0, seeds=settings.seeds,
-                                   permutations=settings.permutations, exact_budget=settings.exact_budget,
-                                   seed=settings.seed, alpha=settings.alpha)
+        self.one = dataclasses.replace(settings, bootstrap=0, per_slice_words=True)
         self._pairs: dict = {}
         self._models: dict = {}
+        self._resamples: dict = {}
 
-    def pair(self, a: Slice, b: Slice):
-        """(the reweighted slice, sources only in b, sources only in a, its measure summary by test)."""
-        if (a.name, b.name) not in self._pairs:
-            rw, only_b, only_a = reweight_to(self.ws, b, a)
+    def pair(self, period: Slice, other: Slice):
+        """(period reweighted to other's mix, sources only in period, sources only in other, its measure
+        summary by test, its replicate gaps by test)."""
+        if (period.name, other.name) not in self._pairs:
+            rw, only_p, only_o = reweight_to(self.ws, period, other)
             summary = measure(self.ws, self.tests, self.model, [rw], self.counts, self.model_settings,
                               self.one).summary.set_index("test")
-            self._pairs[a.name, b.name] = (rw, only_b, only_a, summary)
-        return self._pairs[a.name, b.name]
+            self._pairs[period.name, other.name] = (rw, only_p, only_o, summary, self._replicates(period, other, rw))
+        return self._pairs[period.name, other.name]
+
+    def _replicates(self, period: Slice, other: Slice, rw: Slice) -> dict:
+        """Gaps of the reweighted period over the period's own bootstrap resamples, each reweighted to
+        ``other``'s mix (PPMI-SVD only: the replicates are warm-started from the reweighted model)."""
+        if self.model != "ppmi-svd" or self.settings.bootstrap < 2:
+            return {}
+        if period.name not in self._resamples:
+            rng = bootstrap_stream(self.settings.seed, period.name)
+            self._resamples[period.name] = [bootstrap_weights(period, rng) for _ in range(self.settings.bootstrap)]
+        c, emb = self.counts_and_model(rw)
+        start = emb.extras["context_vectors"].astype(np.float64)
+        out = {name: [] for name in self.tests}
+        for w in self._resamples[period.name]:
+            rw_k = reweight_to(self.ws, Slice(period.name, w, int((w > 0).sum()), period.n_tokens), other)[0]
+            rc = count_slice(self.ws, rw_k.weights, self.counts, slice_name=rw.name, vocab=c.vocab)
+            unit = unit_rows(ppmi_svd_vectors_warm(rc.matrix, self.svd, start))
+            for name, t in self.tests.items():
+                out[name].append(weat(unit, emb.index, t, with_p=False).gap)
+        return {name: np.array(v) for name, v in out.items()}
 
     def counts_and_model(self, period: Slice):
         """The PPMI-SVD counts and model of a period (for trace's machinery), made once."""
-        from tracer.provenance.counts import count_slice
-        from tracer.provenance.models import embedding_from_counts
         if period.name not in self._models:
             c = count_slice(self.ws, period.weights, self.counts, slice_name=period.name)
             self._models[period.name] = (c, embedding_from_counts(self.ws, period, c, self.svd))
         return self._models[period.name]
 
 
-def _decompose(ws, test, measured, table, shared: _Reweighted, notes):
+def _decompose(ws, test, measured, table, reps, shared: _Reweighted, notes):
+    """Split each change of the gap into the mix part and the within part, symmetrically.
+
+    With g the gap, b->a the later period reweighted to the earlier one's source mix and a->b
+    the reverse, the within part averages both directions,
+    ``within = ((g(b->a) - g(a)) + (g(b) - g(a->b))) / 2``, and ``mix = total - within``, so the
+    parts add up to the change. Regrouped by period, ``within = S_b - S_a`` with
+    ``S = (g(period) + g(period reweighted)) / 2`` (and ``mix`` likewise with differences), each S
+    a function of one period's documents: the intervals combine the two periods' independent
+    replicate sets. ``mix_share = mix / total`` is the share of the change due to the mix; it lies
+    outside 0..1 when the parts pull in opposite directions (then neither part is "most" of it).
+    """
     gaps = table.set_index("period")["gap"]
     rows, parts = [], []
     pairs = list(zip(measured[:-1], measured[1:]))
     if len(measured) > 2:
         pairs.append((measured[0], measured[-1]))
     for a, b in pairs:
-        rw, only_b, only_a, summary = shared.pair(a, b)
-        r = summary.loc[test.name]
-        total = float(gaps[b.name] - gaps[a.name])
-        within = float(r.gap - gaps[a.name]) if r.measured else float("nan")
+        rw_b, only_b, only_a, sum_b, rep_b = shared.pair(b, a)
+        rw_a, _, _, sum_a, rep_a = shared.pair(a, b)
+        ga, gb = float(gaps[a.name]), float(gaps[b.name])
+        gba, gab = float(sum_b.loc[test.name].gap), float(sum_a.loc[test.name].gap)
+        total = gb - ga
+        within = ((gba - ga) + (gb - gab)) / 2
         mix = total - within
-        rows.append({"from": a.name, "to": b.name, "overall": (a, b) == (measured[0], measured[-1]) and len(measured) > 2,
-                     "total": total, "mix_part": mix, "within_part": within,
-                     "mix_share": abs(mix) / (abs(mix) + abs(within)) if np.isfinite(within) and (mix or within) else None,
-                     "reweighted_gap": float(r.gap), "sources_only_in_from": only_a, "sources_only_in_to": only_b})
+        row = {"from": a.name, "to": b.name, "overall": (a, b) == (measured[0], measured[-1]) and len(measured) > 2,
+               "total": total, "mix_part": mix, "within_part": within,
+               "mix_share": mix / total if np.isfinite(mix) and total != 0 else None,
+               "mix_part_at_from_mix": gb - gba, "mix_part_at_to_mix": gab - ga,
+               "reweighted_gap": gba, "sources_only_in_from": only_a, "sources_only_in_to": only_b}
+        row.update(_part_intervals(reps.get(a.name), reps.get(b.name), rep_a.get(test.name), rep_b.get(test.name),
+                                   ga, gb, gab, gba))
+        rows.append(row)
         if only_a or only_b:
             notes.append(f"{a.name} -> {b.name}: sources in one period only: "
                          + ", ".join([f"{s} ({a.name})" for s in only_a] + [f"{s} ({b.name})" for s in only_b]))
         sa, sb = source_shares(ws, a.weights), source_shares(ws, b.weights)
-        within_by_source = _within_by_source(ws, test, a, rw, shared) if r.measured else {}
+        note = _upweight_note(a.name, b.name, sa, sb)
+        if note:
+            notes.append(note)
+        within_by_source = _within_by_source(ws, test, a, rw_b, shared) if sum_b.loc[test.name].measured else {}
         for s in sorted(set(sa.index) | set(sb.index)):
             parts.append({"from": a.name, "to": b.name, "source": s, "share_from": float(sa.get(s, 0.0)),
                           "share_to": float(sb.get(s, 0.0)), "within_contribution": within_by_source.get(s)})
-    return (pd.DataFrame(rows, columns=["from", "to", "overall", "total", "mix_part", "within_part", "mix_share",
-                                        "reweighted_gap", "sources_only_in_from", "sources_only_in_to"]),
+    return (pd.DataFrame(rows, columns=CHANGE_COLUMNS),
             pd.DataFrame(parts, columns=["from", "to", "source", "share_from", "share_to", "within_contribution"]))
+
+
+CHANGE_COLUMNS = ["from", "to", "overall", "total", "total_ci_low", "total_ci_high", "mix_part", "mix_ci_low",
+                  "mix_ci_high", "within_part", "within_ci_low", "within_ci_high", "mix_share", "mix_part_at_from_mix",
+                  "mix_part_at_to_mix", "reweighted_gap",
+                  "sources_only_in_from", "sources_only_in_to"]
+
+
+UPWEIGHT_NOTE_FROM = 3.0
+
+
+def _upweight_note(a: str, b: str, sa: pd.Series, sb: pd.Series) -> str:
+    """A note when either reweighting multiplies one source's documents by UPWEIGHT_NOTE_FROM or more:
+    a model of few distinct documents weighted up gives smaller gaps (as bootstrap replicates do),
+    a bias the replicate intervals do not show."""
+    common = sa.index.intersection(sb.index)
+    if len(common) == 0:
+        return ""
+    fa, fb = sa[common] / sa[common].sum(), sb[common] / sb[common].sum()
+    worst = max(((fb / fa).max(), (fb / fa).idxmax(), a, b), ((fa / fb).max(), (fa / fb).idxmax(), b, a))
+    if worst[0] < UPWEIGHT_NOTE_FROM:
+        return ""
+    factor, source, period, other = worst
+    return (f"{a} -> {b}: {period} reweighted to the source mix of {other} weights the documents of {source} "
+            f"{factor:.1f}x; a model of so few distinct documents tends to give smaller gaps, which the "
+            "intervals do not show: compare mix_part_at_from_mix and mix_part_at_to_mix")
+
+
+def _part_intervals(rep_a, rep_b, rep_ab, rep_ba, ga, gb, gab, gba) -> dict:
+    """Intervals of the total, mix and within parts from the periods' replicate sets (NaN without)."""
+    out = {}
+    if rep_a is not None and rep_b is not None:
+        iv = difference_interval(ga, rep_a, gb, rep_b)
+        out.update(total_ci_low=iv.low, total_ci_high=iv.high)
+    if rep_a is None or rep_b is None or rep_ab is None or rep_ba is None:
+        return out
+    n = min(len(rep_a), len(rep_ab), len(rep_b), len(rep_ba))  # a period's plain and reweighted replicates pair up
+    s_a, s_b = (rep_a[:n] + rep_ab[:n]) / 2, (rep_b[:n] + rep_ba[:n]) / 2
+    m_a, m_b = (rep_ab[:n] - rep_a[:n]) / 2, (rep_b[:n] - rep_ba[:n]) / 2
+    within = difference_interval((ga + gab) / 2, s_a, (gb + gba) / 2, s_b)
+    mix = combined_interval((gab - ga) / 2 + (gb - gba) / 2, [1.0, 1.0], [m_a, m_b])
+    out.update(within_ci_low=within.low, within_ci_high=within.high, mix_ci_low=mix.low, mix_ci_high=mix.high)
+    return out
 
 
 def _within_by_source(ws, test, earlier: Slice, reweighted: Slice, shared: _Reweighted) -> dict:
@@ -281,10 +389,21 @@ def aligned(embeddings: list[Embedding], reference: int = -1) -> tuple[list[Embe
     return out, shared_counts
 
 
+def _all_distances(e: Embedding, prev: Embedding) -> np.ndarray:
+    """Cosine distance between the two aligned periods of every word both know: the noise floor
+    against which one word's change is read (shape (n_shared,))."""
+    shared = [w for w in e.words if w in prev.index]
+    a = e.unit_vectors[[e.index[w] for w in shared]].astype(np.float64)
+    b = prev.unit_vectors[[prev.index[w] for w in shared]].astype(np.float64)
+    return 1 - np.einsum("ij,ij->i", a, b)
+
+
 def word_drift(ws, words: list[str], periods: list[Slice], counts: CountSettings = CountSettings(),
                settings: PpmiSvdSettings = PpmiSvdSettings(), neighbours: int = 10) -> tuple[pd.DataFrame, pd.DataFrame, list[str]]:
-    """Per word and period: cosine distance to the previous period in the aligned space, and the nearest
-    neighbours in each period. Only words above the minimum count in both periods are compared."""
+    """Per word and period: cosine distance to the previous period in the aligned space, read against
+    the same distance of every word the two periods share (distance_percentile: the share of shared
+    words that moved no more, in percent; their median and 95th percentile beside it), and the
+    nearest neighbours in each period. Only words above the minimum count in both periods are compared."""
     embs = [train_embedding(ws, p, "ppmi-svd", counts, settings, save=False) for p in periods]
     rotated, shared = aligned(embs)
     notes = [f"{p.name}: {n} words shared with {periods[-1].name} were used for the rotation"
@@ -295,14 +414,17 @@ def word_drift(ws, words: list[str], periods: list[Slice], counts: CountSettings
     change, near = [], []
     for k, (p, e) in enumerate(zip(periods, rotated)):
         prev = rotated[k - 1] if k else None
-        both = sum(1 for w in e.words if prev is not None and w in prev.index)
+        floor = _all_distances(e, prev) if prev is not None else np.array([])
         for w in words:
-            row = {"word": w, "period": p.name, "in_vocabulary": w in e}
+            row = {"word": w, "period": p.name, "in_vocabulary": w in e, "distance_from_previous": None,
+                   "distance_percentile": None, "median_distance_all_words": None,
+                   "distance_95th_all_words": None, "words_compared": len(floor) if prev is not None else None}
             if w in e and prev is not None and w in prev:
-                row["distance_from_previous"] = float(1 - e.unit_vectors[e.index[w]] @ prev.unit_vectors[prev.index[w]])
-            else:
-                row["distance_from_previous"] = None
-            row["words_compared"] = both if prev is not None else None
+                dist = float(1 - e.unit_vectors[e.index[w]] @ prev.unit_vectors[prev.index[w]])
+                row.update(distance_from_previous=dist,
+                           distance_percentile=float(100 * np.mean(floor <= dist + 1e-12)),
+                           median_distance_all_words=float(np.median(floor)),
+                           distance_95th_all_words=float(np.percentile(floor, 95)))
             change.append(row)
             if w in e:
                 near.extend({"word": w, "period": p.name, "rank": r + 1, "neighbour": n, "cosine": s}

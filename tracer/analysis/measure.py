@@ -1,9 +1,12 @@
 """Measure association tests per model and slice, with intervals that reflect the corpus.
 
 For every test, model and slice: the WEAT effect size and its permutation
-p-value, the same test on PMI rows (first order, no embedding), a document
-bootstrap interval (documents resampled as weights, models retrained), and for
-word2vec the spread across seeds. Per word: the association score, RIPA, and
+p-value with its Benjamini-Hochberg q-value over all tests and slices of the call,
+the same test on PMI rows (first order, no embedding), a document bootstrap
+interval (documents resampled as weights, models retrained; the interval is the
+bootstrap standard-error one of :mod:`tracer.core.intervals`, centred on the
+estimate), and for word2vec the spread across seeds. Across several slices every
+test uses the words known in every slice (``per_slice_words`` keeps each slice's own). Per word: the association score, RIPA, and
 the PMI log odds ratio with its analytic interval. Leave-one-word-out effect
 sizes show which words carry a result.
 """
@@ -20,7 +23,8 @@ from tqdm.auto import tqdm
 
 from tracer.core.association import (DEFAULT_EXACT_BUDGET, DEFAULT_MIN_WORDS, DEFAULT_PERMUTATIONS, STD_CONVENTION,
                         association_scores, effect_size, permutation_p_value, ripa_direction, unit_rows, weat, word_sets)
-from tracer.core.counting import CountSettings, Counts
+from tracer.core.counting import CountSettings, Counts, build_vocab
+from tracer.core.intervals import METHOD as INTERVAL_METHOD, bootstrap_interval, q_values
 from tracer.provenance.counts import count_slice
 from tracer.corpus.slices import Slice
 from tracer.core.ppmi_svd import PpmiSvdSettings, ppmi_svd_vectors_warm
@@ -34,9 +38,6 @@ from tracer.core.association import AssociationTest
 log = logging.getLogger(__name__)
 
 SMALL_SLICE_TOKENS = 100_000
-OUTSIDE_INTERVAL = ("the estimate lies outside its bootstrap interval: a replicate holds about 63% distinct "
-                    "documents, and embeddings of less text give smaller cosine gaps, so replicates run low; "
-                    "read the interval's width, not its position")
 Z95 = 1.959963984540054  # standard normal 97.5% quantile
 
 
@@ -51,6 +52,7 @@ class MeasureSettings:
     exact_budget: int = DEFAULT_EXACT_BUDGET
     seed: int = 0
     alpha: float = 0.75
+    per_slice_words: bool = False
 
     def __post_init__(self):
         for name in ("min_words", "seeds"):
@@ -110,12 +112,36 @@ def _stream(seed: int, *names: str) -> np.random.Generator:
     return np.random.default_rng([seed, *keys])
 
 
-def _bootstrap_weights(sl: Slice, rng: np.random.Generator) -> np.ndarray:
+def bootstrap_weights(sl: Slice, rng: np.random.Generator) -> np.ndarray:
     """Multinomial resample of the slice's documents: how often each is drawn, times its weight."""
     members = np.flatnonzero(sl.weights > 0)
     w = np.zeros_like(sl.weights)
     w[members] = rng.multinomial(len(members), np.full(len(members), 1.0 / len(members))) * sl.weights[members]
     return w
+
+
+def common_words(ws, tests: dict[str, AssociationTest], slices: list[Slice], counts: CountSettings) -> set[str]:
+    """The words of the tests known (at the count settings' minimum count) in every slice."""
+    wanted = {w for t in tests.values() for w in t.all_words}
+    known = set(wanted)
+    for sl in slices:
+        vocab = build_vocab(ws.tokens, ws.doc_offsets, sl.weights, ws.vocab.words, counts)
+        known &= set(vocab.words)
+    return known
+
+
+def restricted(test: AssociationTest, keep: set[str]) -> AssociationTest:
+    """The test with only the words in ``keep`` (word pairs kept when both words are)."""
+    def only(ws):
+        return tuple(w for w in ws if w in keep) if ws is not None else None
+    return dataclasses.replace(test, targets_x=only(test.targets_x), targets_y=only(test.targets_y),
+                               attributes_a=only(test.attributes_a), attributes_b=only(test.attributes_b),
+                               attribute_pairs=tuple((a, b) for a, b in test.attribute_pairs if a in keep and b in keep))
+
+
+def bootstrap_stream(seed: int, slice_name: str) -> np.random.Generator:
+    """The random stream of a slice's bootstrap resamples (drift redraws the same resamples)."""
+    return _stream(seed, "bootstrap", slice_name)
 
 
 def measure(ws, tests: dict[str, AssociationTest], model: str, slices: list[Slice],
@@ -124,15 +150,21 @@ def measure(ws, tests: dict[str, AssociationTest], model: str, slices: list[Slic
             progress: bool = False) -> MeasureResult:
     """Measure every test on every slice with one model, and on ``vectors`` trained elsewhere if given.
 
+    With more than one slice (and ``settings.per_slice_words`` off) each test keeps only the
+    words known in every slice, so that all slices compare the same word sets.
+
     Returns
     -------
     MeasureResult
         ``summary``: one row per test, model and slice with test, kind, model, slice, measured,
         reason, effect_size, gap (mean s over x minus over y, undivided), statistic, p_value,
-        p_method, n_partitions, ci_low, ci_high, gap_ci_low, gap_ci_high, n_bootstrap, seeds,
+        q_value (Benjamini-Hochberg over every p-value of the call), p_method, n_partitions,
+        ci_low, ci_high, gap_ci_low, gap_ci_high, gap_se, replicate_shift (mean replicate gap
+        minus the gap: how far the replicates run low), interval_method, n_bootstrap, seeds,
         effect_size_seed_sd, pmi_effect_size, pmi_p_value, mean_score (one-target tests),
-        n_targets_x, n_targets_y, n_attributes_a, n_attributes_b, dropped_words, slice_tokens,
-        warning, std_convention.
+        n_targets_x, n_targets_y, n_attributes_a, n_attributes_b, dropped_words (not known in
+        this slice), not_in_every_slice (known here, left out because another slice lacks
+        them), word_sets ("common" or "per slice"), slice_tokens, warning, std_convention.
         ``words``: one row per target word: test, model, slice, word, set, score, ripa, pmi_score,
         count_a, count_b, log_odds_ratio, lor_ci_low, lor_ci_high, lor_zero_cell_corrected.
         ``leave_one_out``: test, model, slice, left_out, set, effect_size, change.
@@ -140,6 +172,13 @@ def measure(ws, tests: dict[str, AssociationTest], model: str, slices: list[Slic
     """
     if model_settings is None:
         model_settings = PpmiSvdSettings() if model == "ppmi-svd" else Word2VecSettings()
+    compared = len(slices) + (vectors is not None)
+    common = None
+    if compared > 1 and not settings.per_slice_words:
+        common = common_words(ws, tests, slices, counts)
+        if vectors is not None:
+            common &= set(vectors.index)
+    used = {n: restricted(t, common) for n, t in tests.items()} if common is not None else dict(tests)
     rows, word_rows, loo_rows, rep_rows = [], [], [], []
     # trained models slice by slice, then the outside vectors if given: side by side in one table
     for sl in list(slices) + ([None] if vectors is not None else []):
@@ -147,8 +186,8 @@ def measure(ws, tests: dict[str, AssociationTest], model: str, slices: list[Slic
         c = count_slice(ws, sl.weights, counts, slice_name=sl.name) if sl is not None else None
         embs = _embeddings(ws, sl, c, model, counts, model_settings, settings) if sl is not None else [vectors]
         model_name = model if sl is not None else "external"
-        boot = _bootstrap(ws, sl, c, tests, model, counts, model_settings, settings, embs[0],
-                          _stream(settings.seed, "bootstrap", sl.name), progress) \
+        boot = _bootstrap(ws, sl, c, used, model, counts, model_settings, settings, embs[0],
+                          bootstrap_stream(settings.seed, sl.name), progress) \
             if sl is not None and settings.bootstrap > 0 else {}
         ppmi = ppmi_matrix(c.matrix, alpha=settings.alpha).tocsr() if c is not None else None
         for name, (ds, gaps) in boot.items():
@@ -158,41 +197,61 @@ def measure(ws, tests: dict[str, AssociationTest], model: str, slices: list[Slic
         if sl is not None and sl.n_tokens < SMALL_SLICE_TOKENS:
             warning = (f"slice {sl.name} has {sl.n_tokens} tokens, fewer than {SMALL_SLICE_TOKENS}: embeddings of so little "
                        "text are unstable; read the interval, not the point estimate")
-        for test in tests.values():
-            base = {"test": test.name, "kind": "two-target" if test.two_target else "one-target",
-                    "model": model_name, "slice": slice_name, "slice_tokens": sl.n_tokens if sl else None,
-                    "std_convention": STD_CONVENTION, "warning": warning, "seeds": len(embs)}
-            known = set(embs[0].index)
-            if c is not None:
-                known &= set(c.vocab.index)
-            wsets = word_sets(test, known)
-            base.update(n_targets_x=len(wsets.x), n_targets_y=len(wsets.y) if test.two_target else None,
-                        n_attributes_a=len(wsets.a), n_attributes_b=len(wsets.b), dropped_words=wsets.dropped)
-            reason = wsets.reason_not_measured(test.two_target, settings.min_words)
+        known = set(embs[0].index) & (set(c.vocab.index) if c is not None else set(embs[0].index))
+        for name, test in used.items():
+            base, wsets, reason = _row_base(test, tests[name], known, common, settings.min_words)
+            base.update({"model": model_name, "slice": slice_name, "slice_tokens": sl.n_tokens if sl else None,
+                         "warning": warning, "seeds": len(embs)})
             if reason:
                 rows.append({**base, "measured": False, "reason": reason})
                 continue
             one = _measure_one(test, wsets, embs, c, ppmi, boot.get(test.name), settings,
                                _stream(settings.seed, "permutations", slice_name, test.name))
-            row_warning = warning
-            if one.get("n_bootstrap") and not (one["gap_ci_low"] <= one["gap"] <= one["gap_ci_high"]):
-                row_warning = "; ".join(filter(None, [warning, OUTSIDE_INTERVAL]))
-            rows.append({**base, "warning": row_warning, "measured": True, "reason": "", **one})
+            note = one.pop("interval_note", "")
+            rows.append({**base, "warning": "; ".join(filter(None, [warning, note, _p_floor_note(one)])),
+                         "measured": True, "reason": "", **one})
             word_rows.extend({"test": test.name, "model": model_name, "slice": slice_name, **r}
                              for r in _word_table(test, wsets, embs[0], c, ppmi))
             loo_rows.extend({"test": test.name, "model": model_name, "slice": slice_name, **r}
                             for r in _leave_one_out(test, wsets, embs, rows[-1]))
     summary = pd.DataFrame(rows, columns=SUMMARY_COLUMNS)
+    summary["q_value"] = q_values(summary["p_value"].to_numpy(dtype=float))
     return MeasureResult(summary, pd.DataFrame(word_rows, columns=WORD_COLUMNS),
                          pd.DataFrame(loo_rows, columns=LOO_COLUMNS),
                          pd.DataFrame(rep_rows, columns=["test", "model", "slice", "replicate", "effect_size", "gap"]))
 
 
+def _row_base(test, original, known, common, min_words) -> tuple[dict, object, str | None]:
+    """The columns of a summary row that do not need a model: kind, word counts, the words dropped
+    and why; with the test's word sets in this slice and the reason it cannot be measured, if any."""
+    base = {"test": test.name, "kind": "two-target" if test.two_target else "one-target",
+            "std_convention": STD_CONVENTION, "word_sets": "common" if common is not None else "per slice",
+            "dropped_words": [w for w in original.all_words if w not in known],
+            "not_in_every_slice": [w for w in original.all_words if w in known and common is not None
+                                   and w not in common]}
+    wsets = word_sets(test, known)
+    base.update(n_targets_x=len(wsets.x), n_targets_y=len(wsets.y) if test.two_target else None,
+                n_attributes_a=len(wsets.a), n_attributes_b=len(wsets.b))
+    reason = wsets.reason_not_measured(test.two_target, min_words)
+    if reason and common is not None and not word_sets(original, known).reason_not_measured(test.two_target,
+                                                                                            min_words):
+        reason += " once the words missing from another slice are left out (see --per-slice-words)"
+    return base, wsets, reason
+
+
+def _p_floor_note(one: dict) -> str:
+    """Says so when an exact permutation p is the smallest its partitions allow."""
+    if one.get("p_method") == "exact" and one["p_value"] <= (1 + 1e-9) / one["n_partitions"]:
+        return (f"p = 1/{one['n_partitions']} is the smallest the exact permutation test can give with these "
+                "target sets")
+    return ""
+
+
 SUMMARY_COLUMNS = ["test", "kind", "model", "slice", "measured", "reason", "effect_size", "gap", "statistic",
-                   "p_value", "p_method", "n_partitions", "ci_low", "ci_high", "gap_ci_low", "gap_ci_high",
-                   "n_bootstrap", "seeds", "effect_size_seed_sd", "pmi_effect_size", "pmi_p_value", "mean_score",
+                   "p_value", "q_value", "p_method", "n_partitions", "ci_low", "ci_high", "gap_ci_low", "gap_ci_high",
+                   "gap_se", "replicate_shift", "interval_method", "n_bootstrap", "seeds", "effect_size_seed_sd", "pmi_effect_size", "pmi_p_value", "mean_score",
                    "n_targets_x", "n_targets_y", "n_attributes_a", "n_attributes_b", "dropped_words",
-                   "slice_tokens", "warning", "std_convention"]
+                   "not_in_every_slice", "word_sets", "slice_tokens", "warning", "std_convention"]
 WORD_COLUMNS = ["test", "model", "slice", "word", "set", "score", "ripa", "pmi_score", "count_a", "count_b",
                 "log_odds_ratio", "lor_ci_low", "lor_ci_high", "lor_zero_cell_corrected"]
 LOO_COLUMNS = ["test", "model", "slice", "left_out", "set", "effect_size", "change"]
@@ -230,9 +289,12 @@ def _measure_one(test, wsets, embs, c, ppmi, boot, settings, rng) -> dict:
             out.update(pmi_effect_size=effect_size(px, py), pmi_p_value=perm.p_value)
         if boot is not None:
             d, gap = boot
-            out.update(ci_low=float(np.percentile(d, 2.5)), ci_high=float(np.percentile(d, 97.5)),
-                       gap_ci_low=float(np.percentile(gap, 2.5)), gap_ci_high=float(np.percentile(gap, 97.5)),
-                       n_bootstrap=len(d))
+            di, gi = bootstrap_interval(out["effect_size"], d), bootstrap_interval(out["gap"], gap)
+            # |d| cannot exceed n / sqrt(n_x n_y) (2 for equal sets): the symmetric interval stops there
+            bound = (len(wsets.x) + len(wsets.y)) / np.sqrt(len(wsets.x) * len(wsets.y))
+            out.update(ci_low=max(di.low, -bound), ci_high=min(di.high, bound), gap_ci_low=gi.low, gap_ci_high=gi.high, gap_se=gi.se,
+                       replicate_shift=float(np.nanmean(gap)) - out["gap"], interval_method=INTERVAL_METHOD,
+                       n_bootstrap=len(d), interval_note=gi.note)
         else:
             out.update(n_bootstrap=0)
     else:
@@ -297,7 +359,7 @@ def _bootstrap(ws, sl, c, tests, model, counts, model_settings, settings, emb, r
     d = {t.name: [] for t in two}
     gaps = {t.name: [] for t in two}
     for _ in tqdm(range(settings.bootstrap), desc=f"bootstrap {sl.name}", disable=not progress, leave=False):
-        w = _bootstrap_weights(sl, rng)
+        w = bootstrap_weights(sl, rng)
         if model == "ppmi-svd":
             rc = count_slice(ws, w, counts, slice_name=sl.name, vocab=c.vocab)
             reps = [Embedding(emb.words, ppmi_svd_vectors_warm(rc.matrix, model_settings,

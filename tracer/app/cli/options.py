@@ -195,6 +195,9 @@ MEASURE_OPTIONS = MODEL_OPTIONS + [
                  help="Monte Carlo re-partitions when exact enumeration does not fit the budget."),
     click.option("--exact-budget", type=click.IntRange(min=1), default=200_000, show_default=True,
                  help="Enumerate every re-partition when there are at most this many."),
+    click.option("--per-slice-words", is_flag=True, default=False,
+                 help="Each slice keeps the test words it knows (default: only words known in every slice "
+                      "compared)."),
 ]
 
 
@@ -205,7 +208,8 @@ def _measure_settings(v: dict) -> dict:
     return {"model": model,
             "measuring": MeasureSettings(min_words=v["min_words"], bootstrap=bootstrap, seeds=v["seeds"],
                                          permutations=v["permutations"], exact_budget=v["exact_budget"],
-                                         seed=model.seed, alpha=model.alpha)}
+                                         seed=model.seed, alpha=model.alpha,
+                                         per_slice_words=v["per_slice_words"])}
 
 
 measuring_options = option_group(MEASURE_OPTIONS, _measure_settings)

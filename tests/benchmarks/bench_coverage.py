@@ -1,0 +1,58 @@
+#!/usr/bin/env python3
+"""Coverage benchmark: how often the 95% measure intervals cover the value they speak about.
+
+    .venv/bin/python tests/benchmarks/bench_coverage.py [--corpora 80] [--docs 150] [--replicates 20]
+
+Draws many small corpora from tests/analysis/coverage_corpus.py and measures the planted
+test with document-bootstrap intervals on each. Two targets are reported, for d and for
+the gap: the value expected at this corpus size (mean over the corpora, each left out of
+its own target; what a document-bootstrap interval is about), and the value on one corpus
+20 times larger from the same generator (which also includes how embedding statistics move
+with corpus size, something no resampling of one corpus can see).
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE.parent / "analysis"))
+
+
+def main():
+    from coverage_corpus import COUNTS, POPULATION_FACTOR, SVD, TEST, workspace
+    from test_coverage import coverage, simulate
+
+    from tracer.analysis.measure import measure
+    from tracer.corpus.slices import slice_from_spec
+
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--corpora", type=int, default=80)
+    ap.add_argument("--docs", type=int, default=150)
+    ap.add_argument("--replicates", type=int, default=20)
+    args = ap.parse_args()
+    t0 = time.perf_counter()
+    with tempfile.TemporaryDirectory() as tmp:
+        root = Path(tmp)
+        big = workspace(root / "big", 10_000, args.docs * POPULATION_FACTOR)
+        pop = measure(big, {"planted": TEST}, "ppmi-svd", [slice_from_spec(big, "all")], COUNTS, SVD).summary.iloc[0]
+        rows = simulate(root, args.corpora, args.docs, args.replicates)
+    n = len(rows)
+    for name, col, big_value in (("d", 0, pop.effect_size), ("gap", 3, pop.gap)):
+        big_cov = np.mean((rows[:, col + 1] <= big_value) & (big_value <= rows[:, col + 2]))
+        se = np.sqrt(0.95 * 0.05 / n)
+        print(f"{name:4s} coverage of the same-size value {coverage(rows, col):.3f} (binomial se {se:.3f}); "
+              f"of the {POPULATION_FACTOR}x corpus value {big_cov:.3f}; mean estimate {rows[:, col].mean():.4f}, "
+              f"sd over corpora {rows[:, col].std(ddof=1):.4f}, mean half-width "
+              f"{np.mean(rows[:, col + 2] - rows[:, col + 1]) / 2:.4f}, {POPULATION_FACTOR}x value {big_value:.4f}")
+    print(f"{n} corpora of {args.docs} documents, {args.replicates} replicates each: {time.perf_counter() - t0:.0f} s")
+
+
+if __name__ == "__main__":
+    main()
