@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 
 from tests.conftest import SMALL_RECORDS, write_jsonl
-from tracer.corpus import ingest as ingest_module
+from tracer.corpus import store as store_module
 from tracer.corpus.ingest import FieldMap, ingest
 from tracer.corpus.tokenize import Tokenizer, TokenizerSettings
 from tracer.corpus.workspace import Workspace
@@ -109,7 +109,7 @@ def test_an_interrupted_ingest_leaves_the_previous_corpus(tmp_path, small_jsonl,
     def crash(*args, **kwargs):
         raise KeyboardInterrupt
 
-    monkeypatch.setattr(ingest_module, "_write_postings", crash)
+    monkeypatch.setattr(store_module, "write_postings", crash)
     with pytest.raises(KeyboardInterrupt):
         ingest(tmp_path / "ws", [more])
     ws = Workspace(tmp_path / "ws")
