@@ -111,11 +111,26 @@ def _count_settings(window, min_count, weighting, max_vocab):
     return CountSettings(window=window, weighting=weighting, min_count=min_count, max_vocab=max_vocab)
 
 
+_OUTPUT_PARAMS = ("out", "drop_list", "write_corpus")
+
+
+def _check_out(ctx: click.Context, out: Path) -> None:
+    """Refuse an output path that would overwrite the workspace's own files or the command's inputs."""
+    from tracer.corpus.workspace import protected_paths
+    from tracer.files import check_output_path
+    params = {k: v for k, v in ctx.params.items() if k not in _OUTPUT_PARAMS}
+    ws = params.pop("workspace", None)
+    protected = [v for val in params.values() for v in (val if isinstance(val, tuple) else (val,))
+                 if isinstance(v, Path)]
+    check_output_path(out, protected + (protected_paths(ws) if ws is not None else []))
+
+
 def _emit(text: str, out: Path | None, ctx: click.Context) -> None:
     if out is None:
         click.echo(text, nl=False)
     else:
         from tracer.files import write_atomic
+        _check_out(ctx, out)
         write_atomic(out, text)
         _say(ctx, f"wrote {out}")
 
@@ -186,10 +201,13 @@ def cli(ctx, quiet, verbose, debug):
 @click.option("--keep-case", is_flag=True, help="Do not lower-case (new workspaces only).")
 @click.option("--normalization", type=click.Choice(["NFKC", "NFC", "NFD", "NFKD", "none"]), default=None,
               help="Unicode normal form before tokenizing (new workspaces only; default NFKC).")
+@click.option("--replace", is_flag=True,
+              help="Rebuild the corpus from these inputs alone (to re-read a file with other fields or settings).")
+@click.option("--no-wait", is_flag=True, help="Fail at once if another command is writing to the workspace.")
 @output_options
 @click.pass_context
 def ingest(ctx, inputs, workspace, text_field, id_field, source_field, time_field, title_field,
-           default_source, input_format, strict, keep_case, normalization, fmt, out):
+           default_source, input_format, strict, keep_case, normalization, replace, no_wait, fmt, out):
     """Read corpus files (JSONL, JSONL.gz, CSV, .txt folders, Parquet) into a workspace.
 
     Running it again on the same file changes nothing; a new file is appended.
@@ -208,10 +226,15 @@ def ingest(ctx, inputs, workspace, text_field, id_field, source_field, time_fiel
                          fields=FieldMap(text=text_field, id=id_field, source=source_field, time=time_field,
                                          title=title_field),
                          tokenizer=tok, input_format=input_format, default_source=default_source,
-                         strict=strict, progress=_progress(ctx))
+                         strict=strict, progress=_progress(ctx), replace=replace, wait=not no_wait,
+                         command="tracer ingest " + " ".join(map(str, inputs)))
     df = pd.DataFrame([{"input": i.path, "status": i.status, "records": i.records, "documents": i.documents,
                         "tokens": i.tokens, "rejected": i.rejects} for i in summary.inputs])
     _emit_table(df, fmt, out, ctx)
+    for warning in summary.warnings:
+        _say(ctx, f"Warning: {warning}")
+    if summary.replaced:
+        _say(ctx, "replaced the corpus with these inputs")
     _say(ctx, f"workspace {summary.workspace}: {summary.documents_total} documents, "
               f"{summary.tokens_total} tokens, {summary.vocabulary_total} word types")
     if summary.rejects:
@@ -235,6 +258,27 @@ def info(ctx, workspace, show_sources, fmt, out):
         _emit_table(ws.sources_table(), fmt, out, ctx)
     else:
         _emit(render_mapping(ws.summary(), fmt), out, ctx)
+
+
+@cli.command()
+@workspace_option()
+@click.pass_context
+def verify(ctx, workspace):
+    """Check a workspace: its CURRENT pointer, manifest, arrays against the documents table, postings.
+
+    Example:  tracer verify -w work/
+    """
+    from tracer.corpus.verify import verify_workspace
+    from tracer.errors import WorkspaceError
+    report = verify_workspace(workspace)
+    for line in report.checked:
+        click.echo(f"ok       {line}")
+    for line in report.notes:
+        click.echo(f"note     {line}")
+    for line in report.problems:
+        click.echo(f"PROBLEM  {line}")
+    if not report.ok:
+        raise WorkspaceError(f"workspace {workspace} has {len(report.problems)} problem(s), listed above")
 
 
 # ---- counts -----------------------------------------------------------------------------------
@@ -443,6 +487,7 @@ def export(ctx, workspace, model, slice_name, out, binary):
     """
     from tracer.corpus.slices import slice_from_spec
     from tracer.provenance.models import load_embedding
+    _check_out(ctx, out)
     ws = _open(workspace)
     emb = load_embedding(ws, model, slice_from_spec(ws, slice_name).name)
     from tracer.provenance.vectors_io import write_word2vec_format
@@ -665,6 +710,9 @@ def plan(ctx, workspace, tests_file, test_name, goal, unit, slice_spec, max_step
     from tracer.core.ppmi_svd import PpmiSvdSettings
     from tracer.app.output import plain_values, render, to_records
     from tracer.files import write_atomic
+    for path in (drop_list, write_corpus):
+        if path is not None:
+            _check_out(ctx, path)
     ws = _open(workspace)
     sl = _one_slice(ws, slice_spec)
     p = run_plan(ws, _one_test(tests_file, test_name), sl, goal, unit=unit, max_steps=max_steps,
@@ -813,6 +861,7 @@ def report(ctx, workspace, run_id, out):
     """
     from tracer.app.report.html import write_report
     from tracer.app.pipeline import find_run
+    _check_out(ctx, out)
     folder = find_run(workspace, run_id)
     write_report(folder, out)
     _say(ctx, f"wrote the report of run {folder.name} to {out}")

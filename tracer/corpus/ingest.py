@@ -72,7 +72,12 @@ class IngestSummary:
     @property
     def warnings(self) -> list[str]:
         """Fields absent in most records of an input, with what was used instead (one line each)."""
-        return [f"{Path(i.path).name}: {w} (fields found: {i.fields_found})" for i in self.inputs for w in i.warnings]
+        out = []
+        for i in self.inputs:
+            if i.warnings:
+                name = Path(i.path).name
+                out += [f"{name}: {w}" for w in i.warnings] + [f"{name}: fields found (records): {i.fields_found}"]
+        return out
 
 
 def hash_input(path: Path) -> str:

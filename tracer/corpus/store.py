@@ -96,15 +96,17 @@ def remove_abandoned(ws_path: Path) -> str | None:
     """Remove generations left by dead writers; return the current store's name (None if no corpus yet).
 
     Must be called with the workspace lock held. A folder is removed only if
-    ``CURRENT`` is valid and names another one, and the process that made the
-    folder is not running; without ``CURRENT``, complete generations are an
-    error rather than garbage.
+    the process that made it is not running and either ``CURRENT`` is valid and
+    names another folder, or the folder still has its writer's mark
+    (``writer.json``, removed at the switch), so it never was current. Without
+    ``CURRENT``, a folder that was current once is an error, not garbage.
     """
     if not holds_lock(ws_path):
         raise RuntimeError("remove_abandoned needs the workspace lock")
     current = read_current(ws_path)  # raises on an invalid CURRENT: nothing is removed then
     if current is None:
-        complete = [p.name for p in store_folders(ws_path) if (p / MANIFEST_FILE).is_file()]
+        complete = [p.name for p in store_folders(ws_path)
+                    if (p / MANIFEST_FILE).is_file() and not (p / WRITER_FILE).exists()]
         if complete:
             raise WorkspaceError(
                 f"workspace {ws_path} has store folders ({', '.join(complete)}) but no {CURRENT_FILE} file; "
@@ -212,7 +214,6 @@ class StoreWriter:
             (self.store / REJECTS_FILE).unlink()
         manifest = dict(manifest, written_at=dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds"))
         write_atomic(self.store / MANIFEST_FILE, json.dumps(manifest, indent=1))
-        (self.store / WRITER_FILE).unlink()
         fsync_tree(self.store)
         checkpoint("manifest-written")
 
@@ -220,6 +221,8 @@ class StoreWriter:
         """Make this generation current (the commit point), then remove the one it replaces."""
         write_atomic(self.ws_path / CURRENT_FILE, self.store.name + "\n")
         checkpoint("switched")
+        # without its writer's mark, a folder is one that was current once (see remove_abandoned)
+        (self.store / WRITER_FILE).unlink()
         if self.previous is not None:
             shutil.rmtree(self.previous, ignore_errors=True)
         checkpoint("cleaned")
