@@ -73,10 +73,9 @@ def check_output_path(out: str | os.PathLike, protected: Iterable[str | os.PathL
     target = Path(out).resolve()
     for p in protected:
         p = Path(p)
-        if not os.path.lexists(p):
-            continue
         real = p.resolve()
-        same = target == real or (target.exists() and os.path.samefile(target, real))
-        if same or (real.is_dir() and _inside(target, real)):
+        same = target.exists() and real.exists() and os.path.samefile(target, real)
+        # a protected folder protects what lies inside it, whether it exists yet or not
+        if same or _inside(target, real):
             raise SettingError(f"will not write the output to {out}: it would overwrite {p}, which this "
                                f"command reads or the workspace keeps; choose another -o path")
