@@ -54,6 +54,19 @@ def test_swapped_postings_are_found(ws_path):
     assert any("postings do not list" in p for p in verify_workspace(ws_path).problems)
 
 
+def test_postings_in_order_but_of_another_word_are_found(ws_path):
+    store = _store(ws_path)
+    tokens = np.fromfile(store / "tokens.u32", dtype="<u4")
+    ptr = np.fromfile(store / "postings_ptr.i64", dtype="<i8")
+    pos = np.fromfile(store / "postings_pos.i64", dtype="<i8")
+    # one posting moved to the next token, still ascending, but that token is another word
+    k = next(k for k in range(len(pos) - 1) if pos[k + 1] > pos[k] + 1 and tokens[pos[k] + 1] != tokens[pos[k]]
+             and k + 1 not in ptr)
+    pos[k] += 1
+    pos.tofile(store / "postings_pos.i64")
+    assert any("postings do not list" in p for p in verify_workspace(ws_path).problems)
+
+
 def test_offsets_that_disagree_with_the_documents_table_are_found(ws_path):
     f = _store(ws_path) / "doc_offsets.i64"
     off = np.fromfile(f, dtype="<i8")
