@@ -89,6 +89,9 @@ def test_bad_records_are_counted_and_written_to_the_rejects_file(tmp_path):
         (8, "the text has no tokens"),
     ]
     assert all(r["file"] == str(p) for r in rejects)
+    # the rejects live in the store generation they belong to, and info names the file
+    assert Workspace(tmp_path / "ws").summary()["rejects_file"] == s.rejects_file
+    assert s.rejects_file == str(Workspace(tmp_path / "ws").store / "rejects.jsonl")
 
 
 def test_strict_fails_on_the_first_reject_and_leaves_the_workspace_as_it_was(tmp_path, small_jsonl):

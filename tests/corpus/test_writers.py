@@ -82,7 +82,8 @@ def test_two_concurrent_appends_never_lose_the_corpus(tmp_path, wait):
             assert added == kinds.count("ok") and len(docs) == 50 + N_APPEND * added
             for kind, message in outcomes:
                 if kind == "error":
-                    assert "is in use by process" in message and "--no-wait" in message
+                    # names the holder, or "another process" if it left before its record was read
+                    assert "is in use by" in message and "--no-wait" in message
         assert len(list(ws.glob("store-*"))) == 1
 
 

@@ -79,6 +79,16 @@ def _describe(holder: dict | None) -> str:
             f"({holder.get('command') or 'unknown command'}, since {holder.get('since')})")
 
 
+def _holder_soon(path: Path, tries: int = 25) -> dict | None:
+    """The holder's record; a holder that has just taken the lock writes it a moment later."""
+    for _ in range(tries):
+        holder = lock_holder(path)
+        if holder:
+            return holder
+        time.sleep(0.02)
+    return None
+
+
 def _try_lock(fd: int) -> bool:
     try:
         fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
@@ -95,7 +105,7 @@ def _acquire(path: Path, command: str, wait: bool, timeout: float | None,
     fd = os.open(path / LOCK_FILE, os.O_RDWR | os.O_CREAT, 0o644)
     try:
         if not _try_lock(fd):
-            holder = _describe(lock_holder(path))
+            holder = _describe(_holder_soon(path))
             if not wait:
                 raise WorkspaceBusy(f"workspace {path} is in use by {holder}; try again when it has "
                                     f"finished (without --no-wait this command waits for it)")

@@ -311,6 +311,7 @@ class Workspace:
             "documents_without_time": int(docs["year"].isna().sum()),
             "inputs": len(self.manifest["inputs"]),
             "field_mapping": self.field_mapping,
+            "rejects_file": str(self.rejects_file) if self.rejects_file.is_file() else None,
             "corpus_hash": self.corpus_hash,
         }
 
