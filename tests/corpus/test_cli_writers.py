@@ -95,3 +95,15 @@ def test_ingest_warns_of_missing_fields_and_replace_rebuilds(tmp_path):
     res = run("ingest", p, "-w", tmp_path / "ws", "--text-field", "body", "--source-field", "outlet", "--replace")
     assert res.exit_code == 0 and "replaced the corpus" in res.stderr
     assert "source=outlet" in run("info", "-w", tmp_path / "ws").stdout
+
+
+def test_tracer_run_holds_the_workspace_lock_throughout(tmp_path, monkeypatch):
+    from types import SimpleNamespace
+
+    from tracer.app import pipeline
+    from tracer.corpus.lock import holds_lock, is_locked
+    seen = []
+    monkeypatch.setattr(pipeline, "_run_locked", lambda exp, **kw: seen.append(holds_lock(exp.workspace)))
+    exp = SimpleNamespace(workspace=tmp_path / "ws", path=tmp_path / "exp.toml")
+    pipeline.run_experiment(exp, command="tracer run exp.toml")
+    assert seen == [True] and not is_locked(tmp_path / "ws")
