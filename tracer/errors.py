@@ -38,3 +38,7 @@ class ModelNotFound(TracerError):
 
 class SettingError(TracerError):
     """An option or setting with a value outside what it accepts."""
+
+
+class WorkspaceBusy(WorkspaceError):
+    """Another process holds the workspace's write lock."""

@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 
 from tests.conftest import SMALL_RECORDS, write_jsonl
-from tracer.corpus import ingest as ingest_module
+from tracer.corpus import store as store_module
 from tracer.corpus.ingest import FieldMap, ingest
 from tracer.corpus.tokenize import Tokenizer, TokenizerSettings
 from tracer.corpus.workspace import Workspace
@@ -89,6 +89,9 @@ def test_bad_records_are_counted_and_written_to_the_rejects_file(tmp_path):
         (8, "the text has no tokens"),
     ]
     assert all(r["file"] == str(p) for r in rejects)
+    # the rejects live in the store generation they belong to, and info names the file
+    assert Workspace(tmp_path / "ws").summary()["rejects_file"] == s.rejects_file
+    assert s.rejects_file == str(Workspace(tmp_path / "ws").store / "rejects.jsonl")
 
 
 def test_strict_fails_on_the_first_reject_and_leaves_the_workspace_as_it_was(tmp_path, small_jsonl):
@@ -109,7 +112,7 @@ def test_an_interrupted_ingest_leaves_the_previous_corpus(tmp_path, small_jsonl,
     def crash(*args, **kwargs):
         raise KeyboardInterrupt
 
-    monkeypatch.setattr(ingest_module, "_write_postings", crash)
+    monkeypatch.setattr(store_module, "write_postings", crash)
     with pytest.raises(KeyboardInterrupt):
         ingest(tmp_path / "ws", [more])
     ws = Workspace(tmp_path / "ws")
@@ -158,3 +161,81 @@ def test_tokenizer_normalises_and_keeps_inner_hyphens():
 def test_token_file_matches_offsets(small_ws):
     assert small_ws.tokens.dtype == np.dtype("<u4")
     assert np.all(np.diff(small_ws.doc_offsets) == small_ws.documents["n_tokens"].to_numpy())
+
+
+# ---- honest ingest: field use, mapping changes, the corpus hash ---------------------------------
+
+OUTLET_RECORDS = [{"doc_id": f"k{i}", "outlet": ["North Herald", "South Wire"][i % 2], "year": 1960 + i,
+                   "body": f"the harbour lantern number {i} shone"} for i in range(6)]
+
+
+def test_fields_absent_in_most_records_are_named_with_what_was_used(tmp_path):
+    # issue 14: with only --text-field body, one source named after the file and no times, silently
+    p = write_jsonl(tmp_path / "outlets.jsonl", OUTLET_RECORDS)
+    s = ingest(tmp_path / "ws", [p], fields=FieldMap(text="body"))
+    w = "\n".join(s.warnings)
+    assert "outlets.jsonl: source: no 'source' field in 6 of 6 records; the source is the file name 'outlets'" in w
+    assert "time: no 'time' or 'date' field in 6 of 6 records; documents have no time" in w
+    assert "id: no 'id' field in 6 of 6 records" in w
+    assert "fields found (records): body (6), doc_id (6), outlet (6), year (6)" in w
+    assert "text:" not in w  # the text field is there
+
+
+def test_fields_present_in_most_records_give_no_warning(tmp_path):
+    records = [dict(r, id=r["doc_id"], title="t") for r in OUTLET_RECORDS]
+    records[0] = {"body": "one record without the others"}  # 1 of 6 absent is not "most"
+    p = write_jsonl(tmp_path / "o.jsonl", records)
+    s = ingest(tmp_path / "ws", [p], fields=FieldMap(text="body", id="id", source="outlet", time="year"))
+    assert s.warnings == [] and s.rejects == 1  # the record without a year is rejected (named time field)
+    assert Workspace(tmp_path / "ws").manifest["inputs"][0]["fields_found"]["outlet"] == 5
+
+
+def test_reingesting_with_another_mapping_asks_for_replace_which_rebuilds(tmp_path):
+    # issue 14: re-ingesting with --source-field outlet --time-field year said "already ingested"
+    p = write_jsonl(tmp_path / "outlets.jsonl", OUTLET_RECORDS)
+    other = write_jsonl(tmp_path / "other.jsonl", [{"body": "a second file", "outlet": "East Post"}])
+    ingest(tmp_path / "ws", [p, other], fields=FieldMap(text="body"))
+    mapping = FieldMap(text="body", id="doc_id", source="outlet", time="year")
+    with pytest.raises(WorkspaceError, match=r"outlets.jsonl is already in workspace .* source=source time=auto"
+                                             r".* source=outlet time=year.* add --replace"):
+        ingest(tmp_path / "ws", [p], fields=mapping)
+    s = ingest(tmp_path / "ws", [p], fields=mapping, replace=True)
+    assert s.replaced and [i.status for i in s.inputs] == ["added"]
+    ws = Workspace(tmp_path / "ws")
+    docs = ws.documents
+    assert set(docs["source"]) == {"North Herald", "South Wire"}  # the other file is gone: a rebuild
+    assert list(docs["year"]) == [1960 + i for i in range(6)] and list(docs["doc_id"])[0] == "k0"
+    assert ws.summary()["field_mapping"] == "outlets.jsonl: text=body id=doc_id source=outlet time=year title=title"
+    assert len(list((tmp_path / "ws").glob("store-*"))) == 1
+
+
+def test_replace_may_change_the_tokenizer_and_drops_old_rejects(tmp_path, small_jsonl):
+    bad = tmp_path / "bad.jsonl"
+    bad.write_text('{"text": ""}\n', encoding="utf-8")
+    ingest(tmp_path / "ws", [small_jsonl, bad])
+    s = ingest(tmp_path / "ws", [small_jsonl], tokenizer=TokenizerSettings(lowercase=False), replace=True)
+    ws = Workspace(tmp_path / "ws")
+    assert "The" in ws.vocab.index and s.rejects_file is None and not ws.rejects_file.exists()
+
+
+def test_the_corpus_hash_covers_mapping_sources_and_times(tmp_path):
+    # issue 14: both workspaces (text only, and the full mapping) hashed the same
+    p = write_jsonl(tmp_path / "outlets.jsonl", OUTLET_RECORDS)
+    full = FieldMap(text="body", id="doc_id", source="outlet", time="year")
+    hashes = {}
+    for name, fields, default in [("plain", FieldMap(text="body"), None), ("full", full, None),
+                                  ("again", full, None), ("named", FieldMap(text="body"), "Gazette"),
+                                  ("headline", FieldMap(text="body", title="headline"), None)]:
+        ingest(tmp_path / name, [p], fields=fields, default_source=default)
+        hashes[name] = Workspace(tmp_path / name).corpus_hash
+    assert hashes["full"] == hashes["again"]  # same file, same mapping: the same corpus
+    # "headline" is in no record, so only the mapping differs from "plain", not the stored documents
+    assert len({hashes["plain"], hashes["full"], hashes["named"], hashes["headline"]}) == 4
+
+
+def test_the_corpus_hash_covers_stored_document_content():
+    from tracer.corpus.ingest import corpus_hash
+    entry = {"sha256": "f" * 64, "fields": FieldMap().to_dict(), "default_source": None, "content_sha256": "a"}
+    tok = TokenizerSettings().to_dict()
+    assert corpus_hash(tok, [entry]) != corpus_hash(tok, [dict(entry, content_sha256="b")])
+    assert corpus_hash(tok, [entry]) == corpus_hash(dict(tok), [dict(entry)])

@@ -27,6 +27,7 @@ import pandas as pd
 
 from tracer.provenance.experiment import Experiment, experiment_summary
 from tracer.corpus.ingest import ingest
+from tracer.corpus.lock import workspace_lock
 from tracer.versions import package_versions
 from tracer.corpus.slices import resolve_slices, slice_from_spec, slices_by
 from tracer.corpus.workspace import Workspace
@@ -49,7 +50,15 @@ class RunResult:
 
 def run_experiment(exp: Experiment, *, progress: bool = False, say: Callable[[str], None] = lambda s: None,
                    command: str = "") -> RunResult:
-    """Ingest (if needed), measure, trace, drift; store every table; render the report."""
+    """Ingest (if needed), measure, trace, drift; store every table; render the report.
+
+    Holds the workspace's write lock throughout, so a second writer waits.
+    """
+    with workspace_lock(exp.workspace, command=command or f"run {exp.path}", say=say):
+        return _run_locked(exp, progress=progress, say=say, command=command)
+
+
+def _run_locked(exp: Experiment, *, progress: bool, say: Callable[[str], None], command: str) -> RunResult:
     from tracer.analysis.drift import drift_tests, word_drift
     from tracer.app.report.html import write_report
     from tracer.analysis.trace import TraceSettings, trace

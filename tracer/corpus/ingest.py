@@ -1,10 +1,14 @@
 """Ingest corpus files into a workspace, streaming, atomically and idempotently.
 
-A new store generation is built beside the current one and made current by
-one atomic rename of the ``CURRENT`` pointer; an interrupted ingest leaves the
-workspace as it was. An input whose content hash was ingested before is
-skipped, so running the same command twice changes nothing; a new file is
-appended.
+Four steps, one module each: read (:mod:`tracer.corpus.readers`), validate
+(:mod:`tracer.corpus.validate`), tokenize (:mod:`tracer.corpus.encode`) and
+store (:mod:`tracer.corpus.store`); this module runs them under the workspace
+lock. A new store generation is built beside the current one and made current
+by one atomic rename of the ``CURRENT`` pointer; an interrupted ingest leaves
+the workspace as it was. An input whose content hash was ingested before (with
+the same field mapping) is skipped, so running the same command twice changes
+nothing; a new file is appended; ``replace=True`` rebuilds the corpus from the
+given inputs alone.
 """
 
 from __future__ import annotations
@@ -14,61 +18,23 @@ import datetime as dt
 import hashlib
 import json
 import os
-import shutil
-import sqlite3
-import sys
 from pathlib import Path
 from typing import Iterable
 
-import numpy as np
 from tqdm.auto import tqdm
 
 from tracer.errors import InputError, WorkspaceError
-from tracer.files import write_atomic
 from tracer.versions import package_versions
+from tracer.corpus.lock import workspace_lock
 from tracer.corpus.readers import RawRecord, Reject, detect_format, read_records
-from tracer.corpus.timeparse import TimeParseError, parse_time
-from tracer.corpus.tokenize import Tokenizer, TokenizerSettings
-from tracer.corpus.workspace import (CURRENT_FILE, DB_FILE, MANIFEST_FILE, OFFSETS_FILE, POSTINGS_POS_FILE,
-                        POSTINGS_PTR_FILE, REJECTS_FILE, TOKENS_FILE, VOCAB_FILE, Workspace)
+from tracer.corpus.store import StoreWriter, remove_abandoned
+from tracer.corpus.tokenize import TokenizerSettings
+from tracer.corpus.validate import FieldMap, FieldUse, RecordValidator, reason_kind
+from tracer.corpus.workspace import Workspace, mapping_text
+
+__all__ = ["FieldMap", "IngestSummary", "InputSummary", "corpus_hash", "hash_input", "ingest"]
 
 FORMAT_VERSION = 1
-_FLUSH_TOKENS = 1 << 20
-
-_SCHEMA = """
-CREATE TABLE IF NOT EXISTS documents (
-    doc_index   INTEGER PRIMARY KEY,
-    doc_id      TEXT NOT NULL UNIQUE,
-    source      TEXT NOT NULL,
-    time        TEXT,
-    year        INTEGER,
-    time_value  REAL,
-    title       TEXT,
-    text        TEXT NOT NULL,
-    n_tokens    INTEGER NOT NULL,
-    token_start INTEGER NOT NULL,
-    input_file  TEXT NOT NULL,
-    input_line  INTEGER NOT NULL,
-    fields      TEXT NOT NULL
-);
-CREATE INDEX IF NOT EXISTS documents_source ON documents(source);
-CREATE INDEX IF NOT EXISTS documents_year ON documents(year);
-"""
-
-
-@dataclasses.dataclass(frozen=True)
-class FieldMap:
-    """Which field of a record holds what.
-
-    ``time=None`` means: use ``time`` if the record has it, else ``date``, and
-    accept records with neither. Naming a time field makes it required.
-    """
-
-    text: str = "text"
-    id: str = "id"
-    source: str = "source"
-    time: str | None = None
-    title: str = "title"
 
 
 @dataclasses.dataclass(frozen=True)
@@ -80,6 +46,8 @@ class InputSummary:
     documents: int
     tokens: int
     rejects: int
+    fields_found: str = ""
+    warnings: tuple[str, ...] = ()
 
 
 @dataclasses.dataclass(frozen=True)
@@ -91,6 +59,7 @@ class IngestSummary:
     vocabulary_total: int
     rejects_file: str | None
     reject_reasons: dict[str, int]
+    replaced: bool = False
 
     @property
     def documents_added(self) -> int:
@@ -99,6 +68,16 @@ class IngestSummary:
     @property
     def rejects(self) -> int:
         return sum(i.rejects for i in self.inputs)
+
+    @property
+    def warnings(self) -> list[str]:
+        """Fields absent in most records of an input, with what was used instead (one line each)."""
+        out = []
+        for i in self.inputs:
+            if i.warnings:
+                name = Path(i.path).name
+                out += [f"{name}: {w}" for w in i.warnings] + [f"{name}: fields found (records): {i.fields_found}"]
+        return out
 
 
 def hash_input(path: Path) -> str:
@@ -115,74 +94,43 @@ def hash_input(path: Path) -> str:
     return h.hexdigest()
 
 
-class _Validator:
-    """Turn a raw record into a document row, or say why it cannot be one."""
+def corpus_hash(tokenizer: dict, inputs: list[dict]) -> str:
+    """The corpus's identity: tokenizer settings, and per input its bytes, field mapping and stored documents.
 
-    def __init__(self, fields: FieldMap, default_source: str | None):
-        self.f = fields
-        self.default_source = default_source
-
-    def __call__(self, rec: RawRecord, tokens: list[str] | None = None):
-        f, d = self.f, rec.fields
-        text = d.get(f.text)
-        if text is None:
-            return f"no {f.text!r} field (set the text field with --text-field)"
-        if not isinstance(text, str):
-            return f"field {f.text!r} is not a string"
-        if not text.strip():
-            return "empty text"
-        doc_id = d.get(f.id)
-        if doc_id is None or doc_id == "":
-            doc_id = f"{Path(rec.file).stem}:{rec.line}"
-        elif isinstance(doc_id, (dict, list, float)):
-            return f"field {f.id!r} must be a string or an integer, found {doc_id!r}"
-        source = d.get(f.source)
-        if source is None or source == "":
-            source = self.default_source or Path(rec.file).stem
-        time_field = f.time
-        if time_field is None:
-            time_field = "time" if "time" in d else "date" if "date" in d else None
-            required = False
-        else:
-            required = True
-        parsed = None
-        raw_time = d.get(time_field) if time_field else None
-        if raw_time is None or raw_time == "":
-            if required:
-                return f"missing time (field {time_field!r})"
-        else:
-            try:
-                parsed = parse_time(raw_time)
-            except TimeParseError as e:
-                return f"field {time_field!r}: {e}"
-        title = d.get(f.title)
-        extra = {k: v for k, v in d.items() if k != f.text}
-        return {
-            "doc_id": str(doc_id), "source": str(source),
-            "time": parsed.iso if parsed else None,
-            "year": parsed.year if parsed else None,
-            "time_value": parsed.value if parsed else None,
-            "title": None if title is None else str(title),
-            "text": text, "input_file": rec.file, "input_line": rec.line,
-            "fields": json.dumps(extra, ensure_ascii=False, default=str),
-        }
+    The documents' hash (``content_sha256``) covers each stored document's id,
+    source, time, title and text, so two workspaces made from one file with
+    different mappings hash differently.
+    """
+    parts = [[i["sha256"], i.get("fields"), i.get("default_source"), i.get("content_sha256")] for i in inputs]
+    return hashlib.sha256(json.dumps([tokenizer, parts], sort_keys=True).encode()).hexdigest()
 
 
-def _recover(ws_path: Path) -> str | None:
-    """Remove store folders left by an interrupted ingest; return the current store name."""
-    current_file = ws_path / CURRENT_FILE
-    current = current_file.read_text(encoding="utf-8").strip() if current_file.is_file() else None
-    for p in ws_path.glob("store-*"):
-        if p.is_dir() and p.name != current:
-            shutil.rmtree(p)
-    return current
+@dataclasses.dataclass
+class _Run:
+    """What one ingest carries from input to input."""
+
+    writer: StoreWriter
+    validate: RecordValidator
+    strict: bool
+    reasons: dict[str, int] = dataclasses.field(default_factory=dict)
+    first_reject: Reject | None = None
+
+    def reject(self, rej: Reject) -> None:
+        if self.strict:
+            raise InputError(f"{rej.file}, line {rej.line}: {rej.reason} "
+                             "(--strict stops at the first rejected record)")
+        self.writer.reject(rej)
+        kind = reason_kind(rej.reason)
+        self.reasons[kind] = self.reasons.get(kind, 0) + 1
+        self.first_reject = self.first_reject or rej
 
 
 def ingest(workspace: str | os.PathLike, inputs: Iterable[str | os.PathLike], *,
            fields: FieldMap = FieldMap(), tokenizer: TokenizerSettings | None = None,
            input_format: str | None = None, default_source: str | None = None,
-           strict: bool = False, progress: bool = False) -> IngestSummary:
-    """Read corpus files into the workspace (created if needed).
+           strict: bool = False, progress: bool = False, replace: bool = False,
+           wait: bool = True, command: str = "") -> IngestSummary:
+    """Read corpus files into the workspace (created if needed), holding its write lock.
 
     Parameters
     ----------
@@ -202,6 +150,14 @@ def ingest(workspace: str | os.PathLike, inputs: Iterable[str | os.PathLike], *,
         Fail on the first rejected record instead of skipping it.
     progress : bool
         Show a progress bar.
+    replace : bool
+        Build the corpus from these inputs alone, dropping what the workspace held
+        (needed to re-read an input with another field mapping or tokenizer).
+    wait : bool
+        If another process writes to the workspace, wait for it (saying so on
+        standard error); with False fail at once with :class:`tracer.errors.WorkspaceBusy`.
+    command : str
+        What to call this writer in the lock file.
 
     Returns
     -------
@@ -216,189 +172,139 @@ def ingest(workspace: str | os.PathLike, inputs: Iterable[str | os.PathLike], *,
             raise InputError(f"{p}: no such file or folder")
         if input_format is None:
             detect_format(p)
-    ws_path.mkdir(parents=True, exist_ok=True)
-    current = _recover(ws_path)
+    with workspace_lock(ws_path, command=command or f"ingest {' '.join(map(str, inputs))}", wait=wait):
+        return _ingest_locked(ws_path, inputs, fields, tokenizer, input_format, default_source, strict,
+                              progress, replace)
 
-    old = Workspace(ws_path) if current else None
-    if old is not None:
-        settings = old.tokenizer_settings
-        if tokenizer is not None and tokenizer != settings:
+
+def _settings(ws_path: Path, current: Workspace | None, tokenizer: TokenizerSettings | None,
+              replace: bool) -> TokenizerSettings:
+    if current is None:
+        return tokenizer or TokenizerSettings()
+    settings = current.tokenizer_settings
+    if tokenizer is not None and tokenizer != settings:
+        if replace:
+            return tokenizer
+        raise WorkspaceError(
+            f"workspace {ws_path} was made with tokenizer settings {settings.to_dict()}; "
+            f"these inputs ask for {tokenizer.to_dict()}. Use a new workspace for other settings, "
+            f"or --replace to rebuild this one from the given inputs"
+        )
+    return settings
+
+
+def _check_mapping(ws_path: Path, known: list[dict], inputs: list[Path], hashes: list[str],
+                   fields: FieldMap, default_source: str | None) -> None:
+    """An input ingested before may only come again with the mapping it was read with."""
+    by_hash = {i["sha256"]: i for i in known}
+    asked = {"path": "", "fields": fields.to_dict(), "default_source": default_source}
+    for p, h in zip(inputs, hashes):
+        prev = by_hash.get(h)
+        if prev is not None and (prev.get("fields") != asked["fields"]
+                                 or prev.get("default_source") != default_source):
             raise WorkspaceError(
-                f"workspace {ws_path} was made with tokenizer settings {settings.to_dict()}; "
-                f"these inputs ask for {tokenizer.to_dict()}. Use a new workspace for other settings"
-            )
-        words = list(old.vocab.words)
-        manifest_inputs = list(old.manifest["inputs"])
-        n_docs = old.n_documents
-        n_tokens = old.n_tokens
-        offsets_old = old.doc_offsets
-    else:
-        settings = tokenizer or TokenizerSettings()
-        words, manifest_inputs, n_docs, n_tokens = [], [], 0, 0
-        offsets_old = np.zeros(1, dtype=np.int64)
-    known_hashes = {i["sha256"] for i in manifest_inputs}
+                f"{p} is already in workspace {ws_path}, read with the fields "
+                f"{mapping_text(prev).split(': ', 1)[1]}; this time the fields asked for are "
+                f"{mapping_text(asked).split(': ', 1)[1]}. To read it again with the new fields, add --replace, "
+                f"which rebuilds the corpus from the inputs given now (and drops the others)")
+
+
+def _ingest_locked(ws_path: Path, inputs: list[Path], fields: FieldMap, tokenizer: TokenizerSettings | None,
+                   input_format: str | None, default_source: str | None, strict: bool, progress: bool,
+                   replace: bool) -> IngestSummary:
+    current_name = remove_abandoned(ws_path)
+    current = Workspace(ws_path) if current_name else None
+    settings = _settings(ws_path, current, tokenizer, replace)
+    old = None if replace else current
+    manifest_inputs = list(old.manifest["inputs"]) if old is not None else []
     input_hashes = [hash_input(p) for p in inputs]
-    if old is not None and all(h in known_hashes for h in input_hashes):
+    _check_mapping(ws_path, manifest_inputs, inputs, input_hashes, fields, default_source)
+    known = {i["sha256"] for i in manifest_inputs}
+    if old is not None and all(h in known for h in input_hashes):
         # nothing new: leave the store untouched
         return IngestSummary(str(ws_path), [InputSummary(str(p), h, "already ingested", 0, 0, 0, 0)
                                             for p, h in zip(inputs, input_hashes)],
                              old.n_documents, old.n_tokens, len(old.vocab), None, {})
-    word_ids = {w: i for i, w in enumerate(words)}
-    tok = Tokenizer(settings)
-    validate = _Validator(fields, default_source)
-
-    gen = 1 + max([int(p.name.split("-")[1]) for p in ws_path.glob("store-*") if p.is_dir()] or [0])
-    store = ws_path / f"store-{gen:04d}"
-    store.mkdir()
+    writer = StoreWriter(ws_path, old, settings, previous=current_name)
+    committed = False
     try:
-        if old is not None:
-            # the sqlite backup API gives a consistent copy even of an open database
-            with sqlite3.connect(old.store / DB_FILE) as src, sqlite3.connect(store / DB_FILE) as dst:
-                src.backup(dst)
-            shutil.copyfile(old.store / TOKENS_FILE, store / TOKENS_FILE)
-        else:
-            (store / TOKENS_FILE).write_bytes(b"")
-        con = sqlite3.connect(store / DB_FILE)
-        con.executescript(_SCHEMA)
-        new_offsets: list[int] = []
-        # rejects go to a file as they come, so a corpus full of bad records does not fill memory
-        reject_log = open(store / "rejects.new.jsonl", "w", encoding="utf-8")
-        reasons: dict[str, int] = {}
-        first_reject: Reject | None = None
-        summaries: list[InputSummary] = []
-        bar = tqdm(desc="ingest", unit=" docs", disable=not progress, leave=False)
-        with open(store / TOKENS_FILE, "ab") as tok_file:
-            buffer: list[np.ndarray] = []
-            buffered = 0
+        run = _Run(writer, RecordValidator(fields, default_source), strict)
+        summaries = []
+        with tqdm(desc="ingest", unit=" docs", disable=not progress, leave=False) as bar:
             for path, sha in zip(inputs, input_hashes):
-                if sha in known_hashes:
+                if sha in known:
                     summaries.append(InputSummary(str(path), sha, "already ingested", 0, 0, 0, 0))
                     continue
-                known_hashes.add(sha)
-                n_rec = n_doc = n_tok = n_rej = 0
-                for rec in read_records(path, input_format):
-                    n_rec += 1
-                    row = rec if isinstance(rec, Reject) else validate(rec)
-                    if isinstance(row, dict):
-                        strings = tok.tokenize(row["text"])
-                        if not strings:
-                            row = "the text has no tokens"
-                    if isinstance(row, str):
-                        row = Reject(rec.file, rec.line, row, "")
-                    if isinstance(row, dict):
-                        row.update(doc_index=n_docs, n_tokens=len(strings), token_start=n_tokens)
-                        try:
-                            con.execute(
-                                "INSERT INTO documents (doc_index, doc_id, source, time, year, time_value, "
-                                "title, text, n_tokens, token_start, input_file, input_line, fields) VALUES "
-                                "(:doc_index, :doc_id, :source, :time, :year, :time_value, :title, :text, "
-                                ":n_tokens, :token_start, :input_file, :input_line, :fields)", row)
-                        except sqlite3.IntegrityError:
-                            row = Reject(rec.file, rec.line, f"duplicate id {row['doc_id']!r}", "")
-                    if isinstance(row, Reject):
-                        if strict:
-                            raise InputError(f"{row.file}, line {row.line}: {row.reason} "
-                                             "(--strict stops at the first rejected record)")
-                        reject_log.write(json.dumps(row.to_dict(), ensure_ascii=False) + "\n")
-                        kind = _reason_kind(row.reason)
-                        reasons[kind] = reasons.get(kind, 0) + 1
-                        first_reject = first_reject or row
-                        n_rej += 1
-                        continue
-                    ids = np.empty(len(strings), dtype=np.uint32)
-                    for k, s in enumerate(strings):
-                        i = word_ids.get(s)
-                        if i is None:
-                            if "\t" in s or "\n" in s:
-                                raise InputError(f"the tokenizer pattern produced a token with a tab or "
-                                                 f"newline ({s!r}); use a pattern that cannot")
-                            i = word_ids[s] = len(words)
-                            words.append(s)
-                        ids[k] = i
-                    buffer.append(ids)
-                    buffered += len(ids)
-                    new_offsets.append(n_tokens)
-                    n_tokens += len(ids)
-                    n_docs += 1
-                    n_doc += 1
-                    n_tok += len(ids)
-                    bar.update()
-                    if buffered >= _FLUSH_TOKENS:
-                        tok_file.write(np.concatenate(buffer).astype("<u4").tobytes())
-                        buffer, buffered = [], 0
-                summaries.append(InputSummary(str(path), sha, "added", n_rec, n_doc, n_tok, n_rej))
-                manifest_inputs.append({"path": str(path), "sha256": sha, "format": input_format or
-                                        detect_format(path), "records": n_rec, "documents": n_doc,
-                                        "tokens": n_tok, "rejects": n_rej,
-                                        "fields": dataclasses.asdict(fields),
-                                        "ingested_at": dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds")})
-            if buffer:
-                tok_file.write(np.concatenate(buffer).astype("<u4").tobytes())
-        bar.close()
-        reject_log.close()
-        con.commit()
-        con.close()
-        if n_docs == 0:
-            n_rejected = sum(reasons.values())
+                known.add(sha)
+                summary, entry = _read_input(run, path, sha, input_format, fields, default_source, bar)
+                summaries.append(summary)
+                manifest_inputs.append(entry)
+        if writer.n_docs == 0:
+            first = run.first_reject
             raise InputError("empty corpus: no usable records in " + ", ".join(str(p) for p in inputs)
-                             + (f" ({n_rejected} rejected; first: {first_reject.reason})" if first_reject else ""))
-        offsets = np.concatenate([offsets_old[:-1], np.asarray(new_offsets, dtype=np.int64),
-                                  np.asarray([n_tokens], dtype=np.int64)]).astype("<i8")
-        offsets.tofile(store / OFFSETS_FILE)
-        tokens = (np.memmap(store / TOKENS_FILE, dtype="<u4", mode="r") if n_tokens
-                  else np.zeros(0, dtype=np.uint32))
-        counts = np.bincount(tokens, minlength=len(words)).astype(np.int64)
-        _write_vocab(store / VOCAB_FILE, words, counts)
-        _write_postings(store, tokens, counts)
-        del tokens
-        added_hashes = [i["sha256"] for i in manifest_inputs]
-        manifest = {
-            "format_version": FORMAT_VERSION,
-            "tokenizer": settings.to_dict(),
-            "tokenizer_engine": "nltk.tokenize.RegexpTokenizer",
-            "inputs": manifest_inputs,
-            "n_documents": n_docs, "n_tokens": n_tokens, "n_types": len(words),
-            "corpus_hash": hashlib.sha256(json.dumps([settings.to_dict(), added_hashes]).encode()).hexdigest(),
-            "versions": package_versions(),
-            "written_at": dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds"),
-        }
-        write_atomic(store / MANIFEST_FILE, json.dumps(manifest, indent=1))
-        # the commit point: one atomic rename makes the new store current
-        write_atomic(ws_path / CURRENT_FILE, store.name + "\n")
-    except BaseException:
-        shutil.rmtree(store, ignore_errors=True)
-        raise
-    _recover(ws_path)
-    rejects_file = None
-    new_rejects = store / "rejects.new.jsonl"
-    if reasons:
-        rejects_file = ws_path / REJECTS_FILE
-        with open(rejects_file, "a", encoding="utf-8") as out, open(new_rejects, encoding="utf-8") as f:
-            shutil.copyfileobj(f, out)
-    new_rejects.unlink()
-    return IngestSummary(str(ws_path), summaries, n_docs, n_tokens, len(words),
-                         str(rejects_file) if rejects_file else None, reasons)
+                             + (f" ({sum(run.reasons.values())} rejected; first: {first.reason})" if first else ""))
+        writer.finish(_manifest(settings, manifest_inputs, writer))
+        writer.commit()
+        committed = True
+    finally:
+        if not committed:
+            writer.abort()
+    rejects_file = writer.store / "rejects.jsonl"
+    return IngestSummary(str(ws_path), summaries, writer.n_docs, writer.n_tokens, len(writer.words),
+                         str(rejects_file) if run.reasons else None, run.reasons, replaced=replace)
 
 
-def _reason_kind(reason: str) -> str:
-    """A reject's reason without the details that differ from record to record."""
-    for prefix in ("duplicate id", "malformed JSON", "not valid UTF-8", "missing time"):
-        if reason.startswith(prefix):
-            return prefix
-    if reason.startswith("field "):
-        return reason.split(":")[0] + " unreadable"
-    return reason.split(" (")[0]
+def _read_input(run: _Run, path: Path, sha: str, input_format: str | None, fields: FieldMap,
+                default_source: str | None, bar) -> tuple[InputSummary, dict]:
+    """Read, validate, tokenize and store the records of one input; its summary and manifest entry."""
+    use = FieldUse(fields, default_source, str(path))
+    content = hashlib.sha256()
+    n_rec = n_doc = n_tok = n_rej = 0
+    for rec in read_records(path, input_format):
+        n_rec += 1
+        stored = _store_record(run, rec, use, content)
+        if isinstance(stored, Reject):
+            run.reject(stored)
+            n_rej += 1
+            continue
+        n_doc += 1
+        n_tok += stored
+        bar.update()
+    warnings = tuple(use.warnings())
+    entry = {"path": str(path), "sha256": sha, "format": input_format or detect_format(path),
+             "records": n_rec, "documents": n_doc, "tokens": n_tok, "rejects": n_rej,
+             "fields": fields.to_dict(), "default_source": default_source, "fields_found": dict(use.found),
+             "field_warnings": list(warnings), "content_sha256": content.hexdigest(),
+             "ingested_at": dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds")}
+    return InputSummary(str(path), sha, "added", n_rec, n_doc, n_tok, n_rej, use.fields_found(), warnings), entry
 
 
-def _write_vocab(path: Path, words: list[str], counts: np.ndarray) -> None:
-    order = np.lexsort((np.arange(len(words)), -counts))
-    lines = ["id\tword\tcount\n"] + [f"{i}\t{words[i]}\t{counts[i]}\n" for i in order]
-    write_atomic(path, "".join(lines))
+def _store_record(run: _Run, rec: RawRecord | Reject, use: FieldUse, content) -> int | Reject:
+    """One record through validate, tokenize and store: its token count, or why it was rejected."""
+    if isinstance(rec, Reject):
+        return rec
+    use.add(rec)
+    row = run.validate(rec)
+    if isinstance(row, str):
+        return Reject(rec.file, rec.line, row, "")
+    tokens = run.writer.encoder.tokenize(row["text"])
+    if not tokens:
+        return Reject(rec.file, rec.line, "the text has no tokens", "")
+    taken = run.writer.add(row, tokens)
+    if taken:
+        return Reject(rec.file, rec.line, taken, "")
+    doc = [row["doc_id"], row["source"], row["time"], row["title"], row["text"]]
+    content.update(json.dumps(doc, ensure_ascii=False).encode("utf-8", "surrogatepass") + b"\n")
+    return len(tokens)
 
 
-def _write_postings(store: Path, tokens: np.ndarray, counts: np.ndarray) -> None:
-    ptr = np.zeros(len(counts) + 1, dtype="<i8")
-    np.cumsum(counts, out=ptr[1:])
-    ptr.tofile(store / POSTINGS_PTR_FILE)
-    # a stable sort by word keeps each word's positions ascending
-    np.argsort(tokens, kind="stable").astype("<i8").tofile(store / POSTINGS_POS_FILE)
+def _manifest(settings: TokenizerSettings, inputs: list[dict], writer: StoreWriter) -> dict:
+    return {
+        "format_version": FORMAT_VERSION,
+        "tokenizer": settings.to_dict(),
+        "tokenizer_engine": "nltk.tokenize.RegexpTokenizer",
+        "inputs": inputs,
+        "n_documents": writer.n_docs, "n_tokens": writer.n_tokens, "n_types": len(writer.words),
+        "corpus_hash": corpus_hash(settings.to_dict(), inputs),
+        "versions": package_versions(),
+    }

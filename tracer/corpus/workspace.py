@@ -14,8 +14,13 @@ ingest leaves the previous corpus in place)::
         postings_ptr.i64      word id -> start in postings_pos (n_words + 1 values)
         postings_pos.i64      token positions grouped by word, ascending within a word
         manifest.json         tokenizer settings, inputs and their hashes, versions, corpus hash
-      rejects.jsonl           records that ingest skipped, with file, line and reason
-      models/                 trained embeddings (see tracer.embed)
+        rejects.jsonl         every record that ingest skipped so far, with file, line and reason
+      LOCK                    the write lock (see tracer.corpus.lock)
+      models/                 trained embeddings (see tracer.provenance.models)
+
+``CURRENT`` must hold the name of a store folder directly inside the workspace
+(``store-`` and digits) and nothing else; anything else is reported as damage,
+never followed and never taken as "no corpus".
 """
 
 from __future__ import annotations
@@ -23,6 +28,7 @@ from __future__ import annotations
 import dataclasses
 import json
 import os
+import re
 import sqlite3
 from functools import cached_property
 from pathlib import Path
@@ -42,6 +48,10 @@ MANIFEST_FILE = "manifest.json"
 DB_FILE = "corpus.sqlite"
 CURRENT_FILE = "CURRENT"
 REJECTS_FILE = "rejects.jsonl"
+LOCK_FILE = "LOCK"
+STORE_NAME = re.compile(r"store-[0-9]{4,}")
+# what the workspace itself keeps: an output (-o) must never land on these
+OWN_ENTRIES = (CURRENT_FILE, LOCK_FILE, REJECTS_FILE, "models", "cache", "runs")
 
 DOCUMENT_COLUMNS = ("doc_index", "doc_id", "source", "time", "year", "time_value", "title",
                     "n_tokens", "token_start")
@@ -77,6 +87,55 @@ class Vocabulary:
             raise WordNotInVocabulary(f"the word {word!r} does not occur in the corpus") from None
 
 
+def store_folders(ws_path: Path) -> list[Path]:
+    """The store generation folders of a workspace, oldest first."""
+    return sorted((p for p in Path(ws_path).glob("store-*") if STORE_NAME.fullmatch(p.name) and p.is_dir()),
+                  key=lambda p: int(p.name.split("-")[1]))
+
+
+def _store_list(ws_path: Path) -> str:
+    found = [f"{p.name} ({'complete' if (p / MANIFEST_FILE).is_file() else 'incomplete'})"
+             for p in store_folders(ws_path)]
+    return ", ".join(found) if found else "none"
+
+
+def read_current(ws_path: str | os.PathLike) -> str | None:
+    """The store folder ``CURRENT`` names, checked; None if there is no ``CURRENT``.
+
+    Raises
+    ------
+    WorkspaceError
+        If ``CURRENT`` is empty, unreadable, names anything but a store folder
+        directly inside the workspace, or names one that does not exist.
+    """
+    ws_path = Path(ws_path)
+    current = ws_path / CURRENT_FILE
+    if not os.path.lexists(current):
+        return None
+    fix = (f"write the name of the store folder that holds the corpus into {current} (store folders "
+           f"here: {_store_list(ws_path)}), then check with  tracer verify -w {ws_path}")
+    try:
+        raw = current.read_bytes()
+    except OSError as e:
+        raise WorkspaceError(f"workspace {ws_path} is damaged: cannot read {current} ({e.strerror}); {fix}") from None
+    name = raw.decode("utf-8", errors="replace").strip()
+    if not STORE_NAME.fullmatch(name):
+        shown = repr(name[:80]) if name else "nothing"
+        raise WorkspaceError(f"workspace {ws_path} is damaged: {current} holds {shown}, not the name of a "
+                             f"store folder; {fix}")
+    store = ws_path / name
+    if store.is_symlink() or not store.is_dir():
+        raise WorkspaceError(f"workspace {ws_path} is damaged: {current} names {name}, which is not a folder "
+                             f"inside the workspace; {fix}")
+    return name
+
+
+def protected_paths(ws_path: str | os.PathLike) -> list[Path]:
+    """The workspace's own files and folders (store generations included), for output checks."""
+    ws_path = Path(ws_path)
+    return [ws_path / n for n in OWN_ENTRIES] + list(ws_path.glob("store-*"))
+
+
 class Workspace:
     """Read access to an ingested corpus.
 
@@ -89,12 +148,12 @@ class Workspace:
     def __init__(self, path: str | os.PathLike, *, cache=None):
         self.path = Path(path)
         self.cache = cache
-        current = self.path / CURRENT_FILE
-        if not current.is_file():
+        name = read_current(self.path)
+        if name is None:
             raise WorkspaceNotFound(
                 f"no corpus in workspace {self.path}; run  tracer ingest FILE -w {self.path}  first"
             )
-        self.store = self.path / current.read_text(encoding="utf-8").strip()
+        self.store = self.path / name
         try:
             self.manifest = json.loads((self.store / MANIFEST_FILE).read_text(encoding="utf-8"))
         except (OSError, json.JSONDecodeError) as e:
@@ -112,6 +171,16 @@ class Workspace:
     @property
     def corpus_hash(self) -> str:
         return self.manifest["corpus_hash"]
+
+    @property
+    def rejects_file(self) -> Path:
+        """Every record skipped by the ingests that made this store (JSON lines; may be absent)."""
+        return self.store / REJECTS_FILE
+
+    @property
+    def field_mapping(self) -> str:
+        """Which record field gave the text, id, source, time and title, per input (one line)."""
+        return "; ".join(mapping_text(i) for i in self.manifest["inputs"])
 
     @property
     def models_dir(self) -> Path:
@@ -241,6 +310,8 @@ class Workspace:
             "last_year": int(years.max()) if len(years) else None,
             "documents_without_time": int(docs["year"].isna().sum()),
             "inputs": len(self.manifest["inputs"]),
+            "field_mapping": self.field_mapping,
+            "rejects_file": str(self.rejects_file) if self.rejects_file.is_file() else None,
             "corpus_hash": self.corpus_hash,
         }
 
@@ -255,3 +326,11 @@ class Workspace:
         }).reset_index()
         out["token_share"] = out["tokens"] / max(1, int(docs["n_tokens"].sum()))
         return out
+
+
+def mapping_text(entry: dict) -> str:
+    """One input's field mapping as ``name: text=body id=doc_id ...`` (time "auto": time, else date)."""
+    f = entry.get("fields") or {}
+    roles = " ".join(f"{k}={'auto' if f.get(k) is None else f[k]}" for k in ("text", "id", "source", "time", "title"))
+    default = entry.get("default_source")
+    return f"{Path(entry['path']).name}: {roles}" + (f" (default source {default})" if default else "")

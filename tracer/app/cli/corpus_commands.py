@@ -51,8 +51,11 @@ def _tokenizer(v: dict) -> dict:
               help="Format of the inputs (default: from the file name).")
 @click.option("--strict", is_flag=True, help="Fail on the first rejected record instead of skipping it.")
 @option_group(TOKENIZER_OPTIONS, _tokenizer)
+@click.option("--replace", is_flag=True,
+              help="Rebuild the corpus from these inputs alone (to re-read a file with other fields or settings).")
+@click.option("--no-wait", is_flag=True, help="Fail at once if another command is writing to the workspace.")
 @output_options
-def ingest(inputs, workspace, fields, default_source, input_format, strict, tokenizer, out):
+def ingest(inputs, workspace, fields, default_source, input_format, strict, tokenizer, replace, no_wait, out):
     """Read corpus files (JSONL, JSONL.gz, CSV, .txt folders, Parquet) into a workspace.
 
     Running it again on the same file changes nothing; a new file is appended.
@@ -63,9 +66,14 @@ def ingest(inputs, workspace, fields, default_source, input_format, strict, toke
 
     from tracer.corpus.ingest import ingest as run_ingest
     summary = run_ingest(workspace, inputs, fields=fields, tokenizer=tokenizer, input_format=input_format,
-                         default_source=default_source, strict=strict, progress=progress_on())
+                         default_source=default_source, strict=strict, progress=progress_on(), replace=replace,
+                         wait=not no_wait, command="tracer ingest " + " ".join(map(str, inputs)))
     out.table(pd.DataFrame([{"input": i.path, "status": i.status, "records": i.records, "documents": i.documents,
                              "tokens": i.tokens, "rejected": i.rejects} for i in summary.inputs]))
+    for warning in summary.warnings:
+        say(f"Warning: {warning}")
+    if summary.replaced:
+        say("replaced the corpus with these inputs")
     say(f"workspace {summary.workspace}: {summary.documents_total} documents, "
         f"{summary.tokens_total} tokens, {summary.vocabulary_total} word types")
     if summary.rejects:
@@ -88,6 +96,26 @@ def info(workspace, show_sources, out):
         out.table(ws.sources_table())
     else:
         out.write(render_mapping(ws.summary(), out.fmt, width=out.width))
+
+
+@cli.command()
+@workspace_option()
+def verify(workspace):
+    """Check a workspace: its CURRENT pointer, manifest, arrays against the documents table, postings.
+
+    Example:  tracer verify -w work/
+    """
+    from tracer.corpus.verify import verify_workspace
+    from tracer.errors import WorkspaceError
+    report = verify_workspace(workspace)
+    for line in report.checked:
+        click.echo(f"ok       {line}")
+    for line in report.notes:
+        click.echo(f"note     {line}")
+    for line in report.problems:
+        click.echo(f"PROBLEM  {line}")
+    if not report.ok:
+        raise WorkspaceError(f"workspace {workspace} has {len(report.problems)} problem(s), listed above")
 
 
 def known_words(words: list[str], vocabulary, where: str) -> tuple[list[str], list[str]]:

@@ -8,7 +8,7 @@ import click
 
 from tracer.app.cli.corpus_commands import known_words
 from tracer.app.cli.group import cli, progress_on, say, steps
-from tracer.app.cli.options import (MODELS, NEIGHBOURS_OPTION, counting_options, model_options, open_workspace,
+from tracer.app.cli.options import (MODELS, NEIGHBOURS_OPTION, check_out, counting_options, model_options, open_workspace,
                                     output_options,
                                     slice_options, words_of, workspace_option)
 
@@ -75,6 +75,7 @@ def export(workspace, model, slice_name, out, binary):
     Example:  tracer export -w work/ --model ppmi-svd --slice all -o vectors.txt
     """
     from tracer.provenance.vectors_io import write_word2vec_format
+    check_out(out)
     emb = _stored_model(open_workspace(workspace), model, slice_name)
     write_word2vec_format(emb, out, binary=binary)
     say(f"wrote {len(emb.words)} vectors of {emb.dim} dimensions to {out}")

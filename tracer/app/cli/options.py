@@ -250,6 +250,22 @@ def one_test(tests_file, name: str):
 
 # ---- output -----------------------------------------------------------------------------------
 
+_OUTPUT_PARAMS = ("out", "drop_list", "write_corpus")
+
+
+def check_out(path: Path) -> None:
+    """Refuse an output path that would overwrite the workspace's own files or the command's inputs
+    (every path-valued parameter of the running command that is not itself an output)."""
+    from tracer.corpus.workspace import protected_paths
+    from tracer.files import check_output_path
+    ctx = click.get_current_context(silent=True)
+    params = {k: v for k, v in (ctx.params if ctx else {}).items() if k not in _OUTPUT_PARAMS}
+    ws = params.pop("workspace", None)
+    protected = [v for val in params.values() for v in (val if isinstance(val, tuple) else (val,))
+                 if isinstance(v, Path)]
+    check_output_path(path, protected + (protected_paths(ws) if ws is not None else []))
+
+
 def labelled(note: str) -> str:
     """A note line: ``Note: ...`` unless it is already a ``Warning: ...``."""
     return note if note.startswith(("Warning: ", "Note: ")) else f"Note: {note}"
@@ -273,6 +289,7 @@ class Output:
             click.echo(text, nl=False)
         else:
             from tracer.files import write_atomic
+            check_out(self.path)
             write_atomic(self.path, text)
             say(f"wrote {self.path}")
 

@@ -7,7 +7,7 @@ from pathlib import Path
 import click
 
 from tracer.app.cli.group import cli, progress_on, say
-from tracer.app.cli.options import workspace_option
+from tracer.app.cli.options import check_out, workspace_option
 
 
 @cli.command()
@@ -42,6 +42,7 @@ def report(workspace, run_id, out):
     """
     from tracer.app.pipeline import find_run
     from tracer.app.report.html import write_report
+    check_out(out)
     folder = find_run(workspace, run_id)
     write_report(folder, out)
     say(f"wrote the report of run {folder.name} to {out}")
