@@ -23,6 +23,7 @@ from tracer.core.embedding import Embedding
 from tracer.errors import SettingError, WordNotInVocabulary
 from tracer.analysis.measure import MeasureSettings, measure
 from tracer.core.association import AssociationTest
+from tracer.provenance.specs import normalized_tests
 
 DEFAULT_MIN_TOKENS = 20_000
 
@@ -98,6 +99,7 @@ def drift_tests(ws, tests: dict[str, AssociationTest], model: str, periods: list
     """:func:`drift` of several tests, by name: each period's models, bootstrap replicates and
     reweighted counterparts are made once for all of them (the results are those of one test at
     a time: every test and slice draws from its own random stream)."""
+    tests = normalized_tests(tests, ws)
     for test in tests.values():
         if not test.two_target:
             raise SettingError(f"test {test.name} has one target set; drift takes two-target tests")
@@ -285,6 +287,7 @@ def word_drift(ws, words: list[str], periods: list[Slice], counts: CountSettings
                settings: PpmiSvdSettings = PpmiSvdSettings(), neighbours: int = 10) -> tuple[pd.DataFrame, pd.DataFrame, list[str]]:
     """Per word and period: cosine distance to the previous period in the aligned space, and the nearest
     neighbours in each period. Only words above the minimum count in both periods are compared."""
+    words = ws.normalize_words(words)
     embs = [train_embedding(ws, p, "ppmi-svd", counts, settings, save=False) for p in periods]
     rotated, shared = aligned(embs)
     notes = [f"{p.name}: {n} words shared with {periods[-1].name} were used for the rotation"

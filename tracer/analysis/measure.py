@@ -30,6 +30,7 @@ from tracer.core.word2vec import Word2VecSettings
 from tracer.errors import SettingError
 from tracer.core.pmi import ppmi_matrix
 from tracer.core.association import AssociationTest
+from tracer.provenance.specs import normalized_tests
 
 log = logging.getLogger(__name__)
 
@@ -140,6 +141,7 @@ def measure(ws, tests: dict[str, AssociationTest], model: str, slices: list[Slic
     """
     if model_settings is None:
         model_settings = PpmiSvdSettings() if model == "ppmi-svd" else Word2VecSettings()
+    tests = normalized_tests(tests, ws)
     rows, word_rows, loo_rows, rep_rows = [], [], [], []
     # trained models slice by slice, then the outside vectors if given: side by side in one table
     for sl in list(slices) + ([None] if vectors is not None else []):

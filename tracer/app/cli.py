@@ -581,7 +581,7 @@ def passages(ctx, word, contexts, workspace, slice_spec, window, min_count, weig
     """
     from tracer.analysis.trace import pair_passages
     ws = _open(workspace)
-    df = pair_passages(ws, word.lower(), [w.lower() for w in _words(contexts)], _one_slice(ws, slice_spec),
+    df = pair_passages(ws, word, _words(contexts), _one_slice(ws, slice_spec),
                        _count_settings(window, min_count, weighting, max_vocab), top=top, per_doc=per_doc)
     if fmt == "table":
         df = df.drop(columns=["text"])
@@ -733,7 +733,7 @@ def drift(ctx, workspace, tests_file, test_names, words, by, window, min_count, 
     periods = slices_by(ws, by)
     counts = _count_settings(window, min_count, weighting, max_vocab)
     if words:
-        change, near, notes = word_drift(ws, [w.lower() for w in _words(words)], periods, counts,
+        change, near, notes = word_drift(ws, _words(words), periods, counts,
                                          PpmiSvdSettings(dim=dim, alpha=alpha, shift=shift, eig_power=eig_power),
                                          neighbours=neighbours)
         if fmt == "json":

@@ -26,9 +26,9 @@ from tqdm.auto import tqdm
 from tracer.errors import InputError, WorkspaceError
 from tracer.files import write_atomic
 from tracer.versions import package_versions
-from tracer.corpus.readers import RawRecord, Reject, detect_format, read_records
+from tracer.corpus.readers import RawRecord, ReadLimits, Reject, detect_format, read_records
 from tracer.corpus.timeparse import TimeParseError, parse_time
-from tracer.corpus.tokenize import Tokenizer, TokenizerSettings
+from tracer.corpus.tokenize import ENGINE, Tokenizer, TokenizerSettings
 from tracer.corpus.workspace import (CURRENT_FILE, DB_FILE, MANIFEST_FILE, OFFSETS_FILE, POSTINGS_POS_FILE,
                         POSTINGS_PTR_FILE, REJECTS_FILE, TOKENS_FILE, VOCAB_FILE, Workspace)
 
@@ -108,7 +108,7 @@ def hash_input(path: Path) -> str:
              sorted(p for p in path.rglob("*") if p.is_file() and p.suffix.lower() == ".txt"))
     for p in files:
         if path.is_dir():
-            h.update(p.relative_to(path).as_posix().encode("utf-8") + b"\0")
+            h.update(p.relative_to(path).as_posix().encode("utf-8", "surrogateescape") + b"\0")
         with open(p, "rb") as f:
             for block in iter(lambda: f.read(1 << 20), b""):
                 h.update(block)
@@ -181,7 +181,7 @@ def _recover(ws_path: Path) -> str | None:
 def ingest(workspace: str | os.PathLike, inputs: Iterable[str | os.PathLike], *,
            fields: FieldMap = FieldMap(), tokenizer: TokenizerSettings | None = None,
            input_format: str | None = None, default_source: str | None = None,
-           strict: bool = False, progress: bool = False) -> IngestSummary:
+           strict: bool = False, progress: bool = False, limits: ReadLimits = ReadLimits()) -> IngestSummary:
     """Read corpus files into the workspace (created if needed).
 
     Parameters
@@ -202,6 +202,8 @@ def ingest(workspace: str | os.PathLike, inputs: Iterable[str | os.PathLike], *,
         Fail on the first rejected record instead of skipping it.
     progress : bool
         Show a progress bar.
+    limits : ReadLimits
+        Bounds on one record (size, line length, nesting, gzip ratio); beyond them a reject.
 
     Returns
     -------
@@ -276,7 +278,7 @@ def ingest(workspace: str | os.PathLike, inputs: Iterable[str | os.PathLike], *,
                     continue
                 known_hashes.add(sha)
                 n_rec = n_doc = n_tok = n_rej = 0
-                for rec in read_records(path, input_format):
+                for rec in read_records(path, input_format, limits):
                     n_rec += 1
                     row = rec if isinstance(rec, Reject) else validate(rec)
                     if isinstance(row, dict):
@@ -355,7 +357,7 @@ def ingest(workspace: str | os.PathLike, inputs: Iterable[str | os.PathLike], *,
         manifest = {
             "format_version": FORMAT_VERSION,
             "tokenizer": settings.to_dict(),
-            "tokenizer_engine": "nltk.tokenize.RegexpTokenizer",
+            "tokenizer_engine": ENGINE,
             "inputs": manifest_inputs,
             "n_documents": n_docs, "n_tokens": n_tokens, "n_types": len(words),
             "corpus_hash": hashlib.sha256(json.dumps([settings.to_dict(), added_hashes]).encode()).hexdigest(),
