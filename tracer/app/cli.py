@@ -186,10 +186,22 @@ def cli(ctx, quiet, verbose, debug):
 @click.option("--keep-case", is_flag=True, help="Do not lower-case (new workspaces only).")
 @click.option("--normalization", type=click.Choice(["NFKC", "NFC", "NFD", "NFKD", "none"]), default=None,
               help="Unicode normal form before tokenizing (new workspaces only; default NFKC).")
+@click.option("--case-rule", type=click.Choice(["fold", "turkish"]), default=None,
+              help="Case rule (new workspaces only): Unicode case folding (default), or Turkish/Azeri dotted "
+                   "and dotless i.")
+@click.option("--max-record-mb", type=click.FloatRange(min=0.001), default=64, show_default=True,
+              help="Largest record (also the CSV field limit); larger ones are rejected.")
+@click.option("--max-line-mb", type=click.FloatRange(min=0.001), default=64, show_default=True,
+              help="Longest line of a JSONL or CSV file; longer ones are rejected unread.")
+@click.option("--max-depth", type=click.IntRange(min=1), default=64, show_default=True,
+              help="Deepest nesting of a JSON record.")
+@click.option("--max-gzip-ratio", type=click.FloatRange(min=1, min_open=True), default=200, show_default=True,
+              help="Largest decompressed/compressed size of a .gz input (checked past 64 MB).")
 @output_options
 @click.pass_context
 def ingest(ctx, inputs, workspace, text_field, id_field, source_field, time_field, title_field,
-           default_source, input_format, strict, keep_case, normalization, fmt, out):
+           default_source, input_format, strict, keep_case, normalization, case_rule, max_record_mb, max_line_mb,
+           max_depth, max_gzip_ratio, fmt, out):
     """Read corpus files (JSONL, JSONL.gz, CSV, .txt folders, Parquet) into a workspace.
 
     Running it again on the same file changes nothing; a new file is appended.
@@ -199,16 +211,20 @@ def ingest(ctx, inputs, workspace, text_field, id_field, source_field, time_fiel
     import pandas as pd
 
     from tracer.corpus.ingest import FieldMap, ingest as run_ingest
+    from tracer.corpus.readers import ReadLimits
     from tracer.corpus.tokenize import TokenizerSettings
 
     tok = None
-    if keep_case or normalization:
-        tok = TokenizerSettings(lowercase=not keep_case, normalization=normalization or "NFKC")
+    if keep_case or normalization or case_rule:
+        tok = TokenizerSettings(lowercase=not keep_case, normalization=normalization or "NFKC",
+                                case_rule=case_rule or "fold")
+    limits = ReadLimits(max_record_bytes=int(max_record_mb * 2 ** 20), max_line_bytes=int(max_line_mb * 2 ** 20),
+                        max_depth=max_depth, max_gzip_ratio=max_gzip_ratio)
     summary = run_ingest(workspace, inputs,
                          fields=FieldMap(text=text_field, id=id_field, source=source_field, time=time_field,
                                          title=title_field),
                          tokenizer=tok, input_format=input_format, default_source=default_source,
-                         strict=strict, progress=_progress(ctx))
+                         strict=strict, progress=_progress(ctx), limits=limits)
     df = pd.DataFrame([{"input": i.path, "status": i.status, "records": i.records, "documents": i.documents,
                         "tokens": i.tokens, "rejected": i.rejects} for i in summary.inputs])
     _emit_table(df, fmt, out, ctx)
@@ -470,7 +486,7 @@ def neighbours(ctx, words, workspace, model, slice_name, top, fmt, out):
     ws = _open(workspace)
     emb = load_embedding(ws, model, slice_from_spec(ws, slice_name).name)
     rows = [{"word": w, "rank": r + 1, "neighbour": n, "cosine": s}
-            for w in _words(words) for r, (n, s) in enumerate(emb.neighbours(w, top))]
+            for w in ws.normalize_words(_words(words)) for r, (n, s) in enumerate(emb.neighbours(w, top))]
     _emit_table(pd.DataFrame(rows), fmt, out, ctx)
 
 

@@ -147,7 +147,8 @@ def _chunks(path: Path, limits: ReadLimits) -> Iterator[bytes]:
         out = 0
         try:
             with gzip.GzipFile(fileobj=raw) as f:
-                for chunk in iter(lambda: f.read(_CHUNK), b""):
+                # read1 returns what one compressed block gives, so records before damage come out
+                for chunk in iter(lambda: f.read1(_CHUNK), b""):
                     out += len(chunk)
                     if out > limits.gzip_ratio_floor_bytes and out > limits.max_gzip_ratio * max(raw.tell(), 1):
                         raise _StopFile(f"decompression ratio over the limit (over {limits.max_gzip_ratio:g} "
@@ -350,14 +351,14 @@ def _inside(target: str, root: Path) -> bool:
 def _txt_entries(root: Path) -> Iterator[tuple[Path, str | None]]:
     """(path relative to root, why it is skipped or None) of every .txt file, sorted by path.
 
-    Links are followed when their target is inside ``root``; a folder reached twice
-    (a link loop or two links to one folder) is read once.
+    Links are followed when their target is inside ``root`` (a linked file or folder
+    is read under the link's name too); a link to a folder that holds the link is a
+    loop, counted and not followed.
     """
-    seen = {str(root)}
-    stack = [Path()]
+    stack: list[tuple[Path, frozenset]] = [(Path(), frozenset([str(root)]))]
     found: list[tuple[Path, str | None]] = []
     while stack:
-        rel = stack.pop()
+        rel, ancestors = stack.pop()
         try:
             entries = sorted(os.scandir(root / rel), key=lambda e: e.name)
         except OSError as e:
@@ -366,14 +367,14 @@ def _txt_entries(root: Path) -> Iterator[tuple[Path, str | None]]:
         for entry in entries:
             sub = rel / entry.name
             is_txt = entry.name.lower().endswith(".txt")
+            real = os.path.realpath(root / sub)
             if entry.is_symlink():
-                target = os.path.realpath(root / sub)
-                if not os.path.exists(target):
+                if not os.path.exists(real):
                     if is_txt:
                         found.append((sub, "broken symbolic link, skipped"))
                     continue
-                if not _inside(target, root):
-                    if is_txt or os.path.isdir(target):
+                if not _inside(real, root):
+                    if is_txt or os.path.isdir(real):
                         found.append((sub, "symbolic link to outside the input folder, skipped"))
                     continue
             try:
@@ -381,12 +382,10 @@ def _txt_entries(root: Path) -> Iterator[tuple[Path, str | None]]:
             except OSError:
                 is_dir = False
             if is_dir:
-                real = os.path.realpath(root / sub)
-                if real in seen:
-                    found.append((sub, "folder reached again through a symbolic link, skipped"))
+                if real in ancestors:
+                    found.append((sub, "symbolic link loop (to a folder that holds it), skipped"))
                 else:
-                    seen.add(real)
-                    stack.append(sub)
+                    stack.append((sub, ancestors | {real}))
             elif is_txt:
                 found.append((sub, None if entry.is_file() else "not a regular file, skipped"))
     return iter(sorted(found, key=lambda x: os.fsencode(x[0])))
