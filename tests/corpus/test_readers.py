@@ -146,8 +146,8 @@ def test_lone_cr_and_crlf_lines_and_a_bom(tmp_path):
 
 
 def test_a_crlf_split_between_chunks_is_one_line_end(tmp_path, monkeypatch):
-    from tracer.corpus import readers
-    monkeypatch.setattr(readers, "_CHUNK", 8)
+    from tracer.corpus import streams
+    monkeypatch.setattr(streams, "_CHUNK", 8)
     p = tmp_path / "x.jsonl"
     p.write_bytes(b'{"a":1}\r\n{"text":"t"}\r\n\r\n{"text":"u"}')
     out = _read(p)

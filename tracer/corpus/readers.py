@@ -23,61 +23,17 @@ from __future__ import annotations
 
 import csv
 import dataclasses
-import gzip
 import json
 import os
-import re
-import zlib
 from pathlib import Path
-from typing import Iterable, Iterator
+from typing import Iterator
 
-from tracer.errors import InputError, SettingError
+from tracer.corpus.streams import ReadLimits, StopFile, chunks, lines
+from tracer.errors import InputError
+
+__all__ = ["FORMATS", "RawRecord", "ReadLimits", "Reject", "detect_format", "read_records", "shown_path"]
 
 FORMATS = ("jsonl", "csv", "txt", "parquet")
-_MIB = 1 << 20
-_CHUNK = _MIB
-_NEWLINE = re.compile(rb"\r\n|\r|\n")
-_BOM = b"\xef\xbb\xbf"
-
-
-@dataclasses.dataclass(frozen=True)
-class ReadLimits:
-    """Bounds on one record, so a single hostile record cannot exhaust the machine.
-
-    The defaults keep the peak memory of one record (its bytes, decoded text and
-    token list, about 15 bytes per input byte) near 1 GB, safe on a 24 GB machine
-    with room for the counting that follows.
-
-    Parameters
-    ----------
-    max_record_bytes : int
-        Size of one record: a JSONL line, a CSV row (sum of its fields), a .txt
-        file, the strings of a Parquet row. Also the CSV field limit.
-    max_line_bytes : int
-        Size of one physical line of a JSONL or CSV file; a longer line is skipped
-        without being held in memory and rejects the record it belongs to.
-    max_depth : int
-        Nesting depth of a JSON record (objects and lists).
-    max_gzip_ratio : float
-        Decompressed over compressed size of a .gz input, checked once more than
-        ``gzip_ratio_floor_bytes`` were decompressed (small files compress well
-        without being bombs).
-    gzip_ratio_floor_bytes : int
-        Decompressed bytes before the ratio is checked.
-    """
-
-    max_record_bytes: int = 64 * _MIB
-    max_line_bytes: int = 64 * _MIB
-    max_depth: int = 64
-    max_gzip_ratio: float = 200.0
-    gzip_ratio_floor_bytes: int = 64 * _MIB
-
-    def __post_init__(self):
-        for name in ("max_record_bytes", "max_line_bytes", "max_depth", "gzip_ratio_floor_bytes"):
-            if not isinstance(getattr(self, name), int) or getattr(self, name) < 1:
-                raise SettingError(f"{name} must be a positive integer; got {getattr(self, name)!r}")
-        if not self.max_gzip_ratio > 1:
-            raise SettingError(f"max_gzip_ratio must be above 1; got {self.max_gzip_ratio!r}")
 
 
 @dataclasses.dataclass(frozen=True)
@@ -96,10 +52,6 @@ class Reject:
 
     def to_dict(self) -> dict:
         return dataclasses.asdict(self)
-
-
-class _StopFile(Exception):
-    """Reading a file cannot go on (damaged stream, ratio limit): the reason becomes a reject."""
 
 
 def shown_path(path) -> str:
@@ -136,76 +88,6 @@ def _has_surrogates(s: str) -> bool:
     except UnicodeEncodeError:
         return True
     return False
-
-
-def _chunks(path: Path, limits: ReadLimits) -> Iterator[bytes]:
-    """The bytes of a file in chunks, decompressed if .gz, under the ratio limit."""
-    with open(path, "rb") as raw:
-        if not path.name.lower().endswith(".gz"):
-            yield from iter(lambda: raw.read(_CHUNK), b"")
-            return
-        out = 0
-        try:
-            with gzip.GzipFile(fileobj=raw) as f:
-                # read1 returns what one compressed block gives, so records before damage come out
-                for chunk in iter(lambda: f.read1(_CHUNK), b""):
-                    out += len(chunk)
-                    if out > limits.gzip_ratio_floor_bytes and out > limits.max_gzip_ratio * max(raw.tell(), 1):
-                        raise _StopFile(f"decompression ratio over the limit (over {limits.max_gzip_ratio:g} "
-                                        "times the compressed size, limit max_gzip_ratio: a gzip bomb?); "
-                                        "the rest of the file is skipped")
-                    yield chunk
-        except (OSError, EOFError, zlib.error) as e:  # a damaged or truncated gzip stream
-            raise _StopFile(f"damaged gzip data ({e}); the rest of the file is skipped") from None
-
-
-class _Line:
-    """The line being read: its pieces, or only its size and quote count once over the limit."""
-
-    def __init__(self, max_line: int):
-        self.max_line = max_line
-        self.parts: list[bytes] = []
-        self.size = self.quotes = 0
-        self.over = False
-
-    def add(self, piece: bytes) -> None:
-        self.size += len(piece)
-        if self.over:
-            self.quotes += piece.count(b'"')
-        elif self.size > self.max_line:
-            self.over = True
-            self.quotes = sum(p.count(b'"') for p in self.parts) + piece.count(b'"')
-            self.parts = []
-        elif piece:
-            self.parts.append(piece)
-
-    def value(self) -> tuple[bytes | None, int]:
-        return (None, self.quotes) if self.over else (b"".join(self.parts), 0)
-
-
-def _lines(chunks: Iterable[bytes], max_line: int) -> Iterator[tuple[int, bytes | None, int]]:
-    """Physical lines as (number, bytes without the line end, count of '"' when too long).
-
-    Ends are ``\\r\\n``, ``\\r`` or ``\\n``. A line over ``max_line`` bytes comes as
-    None: its bytes are dropped as they are read; its quote count lets a CSV
-    reader keep its quoting state. A leading byte-order mark is dropped.
-    """
-    line = _Line(max_line)
-    number, first, cr_before = 1, True, False
-    for chunk in chunks:
-        if first:
-            chunk, first = chunk[3:] if chunk.startswith(_BOM) else chunk, False
-        if cr_before and chunk.startswith(b"\n"):
-            chunk = chunk[1:]  # the \\n of a \\r\\n split between two chunks
-        cr_before = chunk.endswith(b"\r")
-        pos = 0
-        for m in _NEWLINE.finditer(chunk):
-            line.add(chunk[pos:m.start()])
-            yield (number, *line.value())
-            number, line, pos = number + 1, _Line(max_line), m.end()
-        line.add(chunk[pos:])
-    if line.size:
-        yield (number, *line.value())
 
 
 def _value_problem(obj, limits: ReadLimits) -> str | None:
@@ -265,18 +147,18 @@ def read_jsonl(path: Path, limits: ReadLimits = ReadLimits()) -> Iterator[RawRec
     max_line = min(limits.max_line_bytes, limits.max_record_bytes)
     line_no = 0
     try:
-        for line_no, raw, _ in _lines(_chunks(path, limits), max_line):
+        for line_no, raw, _ in lines(chunks(path, limits), max_line):
             if raw is None:
                 yield _too_long(name, line_no, dataclasses.replace(limits, max_line_bytes=max_line))
             elif raw.strip():
                 yield _json_record(raw, name, line_no, limits)
-    except _StopFile as e:
+    except StopFile as e:
         yield Reject(name, line_no + 1, str(e), "")
 
 
-def _csv_text_lines(lines, long_lines: list[int]):
+def _csv_text_lines(numbered, long_lines: list[int]):
     """CSV text lines for :mod:`csv`; a too-long line becomes its quotes only, and is noted."""
-    for line_no, raw, quotes in lines:
+    for line_no, raw, quotes in numbered:
         if raw is None:
             long_lines.append(line_no)
             yield '"' * (quotes % 2) + "\n"
@@ -289,9 +171,12 @@ def read_csv(path: Path, limits: ReadLimits = ReadLimits()) -> Iterator[RawRecor
     name = shown_path(path)
     long_lines: list[int] = []
     csv.field_size_limit(limits.max_record_bytes)
-    reader = csv.reader(_csv_text_lines(_lines(_chunks(path, limits), limits.max_line_bytes), long_lines))
+    reader = csv.reader(_csv_text_lines(lines(chunks(path, limits), limits.max_line_bytes), long_lines))
     try:
-        header = next(reader, None)
+        try:
+            header = next(reader, None)
+        except csv.Error as e:
+            raise InputError(f"{name}, line 1: malformed CSV header: {e}") from None
         if header is None:
             return
         if long_lines or any(_has_surrogates(h) for h in header):
@@ -314,7 +199,7 @@ def read_csv(path: Path, limits: ReadLimits = ReadLimits()) -> Iterator[RawRecor
             if not row:
                 continue  # a blank line
             yield _csv_row(row, header, name, line_no, limits)
-    except _StopFile as e:
+    except StopFile as e:
         yield Reject(name, reader.line_num + 1, str(e), "")
 
 
