@@ -25,7 +25,7 @@ from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
 from tracer.corpus.ingest import ingest
-from tracer.corpus.readers import ReadLimits
+from tracer.corpus.readers import ReadLimits, Reject, read_records
 from tracer.corpus.workspace import REJECTS_FILE, Workspace
 from tracer.errors import TracerError
 
@@ -34,7 +34,7 @@ EXAMPLES = int(os.environ.get("TRACER_FUZZ_EXAMPLES", "8"))
 LIMITS = ReadLimits(max_record_bytes=4000, max_line_bytes=3000, max_depth=8, max_gzip_ratio=20,
                     gzip_ratio_floor_bytes=2000)
 
-_TIMES = ["1965", 1965, "9999-12", "9999-12-31", "0001-01-01T00:30:00+05:00", 2 ** 63, 99999, "99999", "65", 65,
+_TIMES = ["1965", 1965, "1970-01-01", 1999, "2001-02", None, None, "9999-12", "9999-12-31", "0001-01-01T00:30:00+05:00", 2 ** 63, 99999, "99999", "65", 65,
           "1965-13", "1999-12-31T23:00:00Z", "soon", 1965.5, None, True, [], {}]
 _PIECES = ["\\udfff", "\\ud800x", "\\ud83d\\ude00", "\ufeff", "\r", "\r\n", "\x00", '"', "'", "’", "İ", "ß",
            "[" * 50, "9" * 5000, "caf\u0065\u0301", "\u202e", "{}", "=HYPERLINK(1)", ",", "\\", "\t"]
@@ -47,13 +47,21 @@ record = st.fixed_dictionaries({"id": st.one_of(st.integers(-2, 2 ** 70), st.tex
                                 "source": st.one_of(st.sampled_from(["A", "B", ""]), st.text(max_size=4))})
 
 
-def _jsonl(records, raw_pieces) -> bytes:
+_ANCHOR = {"id": "anchor", "text": "alpha beta gamma", "time": 1965, "source": "A"}
+# raw JSON values spliced into records as written: escapes and nesting that json.dumps would not write
+_RAW_VALUES = ['"\\udfff"', '{"\\ud800": 1}', '["ok \\udc00"]', "[" * 20 + "]" * 20, "[" * 2000 + "]" * 2000,
+               "9" * 5000, "1e999", "NaN", '"\\ud83d\\ude00"', '{"a": {"b": {"c": [1, 2, {"d": null}]}}}']
+
+
+def _jsonl(records, raw_pieces, raw_values) -> bytes:
     lines = []
-    for r in records:
+    for k, r in enumerate(records):
         line = json.dumps(r, ensure_ascii=True)
-        # splice a raw piece into a string value: escapes such as \udfff reach the reader as written
-        for p in raw_pieces[:1]:
-            line = line.replace('"text": "', '"text": "' + p.replace('"', '\\"'), 1)
+        # splice a raw piece into the text: escapes such as \udfff reach the reader as written
+        if raw_pieces and k % 2:
+            line = line.replace('"text": "', '"text": "' + raw_pieces[0].replace('"', '\\"'), 1)
+        if raw_values and k % 2 == 0:
+            line = line[:-1] + f', "meta": {raw_values[k % len(raw_values)]}}}'
         lines.append(line.encode("utf-8", "surrogatepass"))
     return b"\n".join(lines) + b"\n"
 
@@ -92,13 +100,14 @@ def mutated(draw, data: bytes) -> bytes:
 @st.composite
 def case(draw):
     fmt = draw(st.sampled_from(["jsonl", "jsonl.gz", "csv", "txt"]))
-    records = draw(st.lists(record, min_size=1, max_size=6))
+    records = [_ANCHOR] + draw(st.lists(record, min_size=1, max_size=6))
     if fmt == "txt":
-        files = draw(st.lists(st.tuples(st.sampled_from([b"a", b"b\xff", b"S/c", b"S/d", b"\xe9t\xe9", b"T/e"]),
+        files = [(b"anchor", b"alpha beta gamma")] + draw(st.lists(st.tuples(st.sampled_from([b"a", b"b\xff", b"S/c", b"S/d", b"\xe9t\xe9", b"T/e"]),
                                         text.map(lambda t: t.encode("utf-8", "replace"))), max_size=5))
         links = draw(st.lists(st.sampled_from(["dangling", "inside", "outside", "folder", "loop"]), max_size=3))
         return fmt, [(n, draw(mutated(c))) for n, c in files], links
-    base = _jsonl(records, draw(st.lists(st.sampled_from(_PIECES), max_size=1))) if fmt != "csv" else _csv(records)
+    base = (_jsonl(records, draw(st.lists(st.sampled_from(_PIECES), max_size=1)),
+                   draw(st.lists(st.sampled_from(_RAW_VALUES), max_size=2))) if fmt != "csv" else _csv(records))
     data = draw(mutated(base))
     if fmt == "jsonl.gz":
         if draw(st.integers(0, 9)) == 0:
@@ -148,6 +157,10 @@ def _independent_count(fmt, path: Path) -> int | None:
     return sum(1 for line in re.split(rb"\r\n|\r|\n", data) if line.strip())
 
 
+def _kind(reason: str) -> str:
+    return re.split(r" \(|:|,", reason)[0][:50]
+
+
 def _check(fmt, payload, links):
     with tempfile.TemporaryDirectory() as tmp:
         tmp = Path(tmp)
@@ -157,21 +170,31 @@ def _check(fmt, payload, links):
         else:
             path = tmp / f"in.{fmt}"
             path.write_bytes(payload)
+        # the readers alone: every record an independent count finds comes out, as a record or a reject
+        try:
+            records = list(read_records(path, limits=LIMITS))
+        except TracerError as e:
+            event(f"{fmt}: reader error {type(e).__name__}")
+            records = None
+        else:
+            for kind in sorted({_kind(r.reason) for r in records if isinstance(r, Reject)}):
+                event(f"{fmt}: reject {kind}")
+            expected = _independent_count(fmt, path)
+            assert expected is None or len(records) == expected
+        # ingest: nothing but named errors, and nothing lost between the readers and the store
         try:
             s = ingest(tmp / "ws", [path], limits=LIMITS)
         except TracerError as e:
-            event(f"{fmt}: named error {str(e).split(':')[0][:40] if 'empty corpus' in str(e) else type(e).__name__}")
+            event(f"{fmt}: ingest error {'empty corpus' if 'empty corpus' in str(e) else type(e).__name__}")
             return  # a named error with a message: not silent, not a traceback
         for kind in s.reject_reasons:
-            event(f"{fmt}: reject {kind[:50]}")
+            event(f"{fmt}: ingest reject {_kind(kind)}")
         (inp,) = s.inputs
-        assert inp.records == inp.documents + inp.rejects
+        assert inp.records == inp.documents + inp.rejects == len(records)
         ws = Workspace(tmp / "ws")
         assert ws.n_documents == inp.documents == s.documents_total
         rejected = (tmp / "ws" / REJECTS_FILE).read_text(encoding="utf-8").splitlines() if inp.rejects else []
         assert len(rejected) == inp.rejects
-        expected = _independent_count(fmt, path)
-        assert expected is None or inp.records == expected
 
 
 @settings(max_examples=EXAMPLES, deadline=None, database=None, derandomize=EXAMPLES <= 50,

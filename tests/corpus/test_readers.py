@@ -172,8 +172,8 @@ def test_a_line_over_the_line_limit_rejects_only_its_record(tmp_path):
     assert [(type(r).__name__, r.line) for r in read_records(p, limits=limits)] == [
         ("RawRecord", 1), ("Reject", 2), ("RawRecord", 3)]
     c = tmp_path / "l.csv"
-    # the long line sits inside a quoted field with an odd number of quotes: the rows after it still parse
-    c.write_text('id,text\n1,"first\n' + '"" ' * 2000 + 'x\nend"\n2,second\n3,"th""ird"\n', encoding="ascii")
+    # the long line closes a quoted field (an odd number of quotes): the rows after it still parse
+    c.write_text('id,text\n1,"first\n' + '"" ' * 500 + "y" * 2000 + '"\n2,second\n3,"th""ird"\n', encoding="ascii")
     out = list(read_records(c, limits=limits))
     assert [type(r).__name__ for r in out] == ["Reject", "RawRecord", "RawRecord"]
     assert out[0].reason.startswith("line over the length limit") and out[0].line == 3
