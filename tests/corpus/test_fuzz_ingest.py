@@ -34,7 +34,8 @@ EXAMPLES = int(os.environ.get("TRACER_FUZZ_EXAMPLES", "8"))
 LIMITS = ReadLimits(max_record_bytes=4000, max_line_bytes=3000, max_depth=8, max_gzip_ratio=20,
                     gzip_ratio_floor_bytes=2000)
 
-_TIMES = ["1965", 1965, "1970-01-01", 1999, "2001-02", None, None, "9999-12", "9999-12-31", "0001-01-01T00:30:00+05:00", 2 ** 63, 99999, "99999", "65", 65,
+_TIMES = ["1965", 1965, "1970-01-01", 1999, "2001-02", None, None, "9999-12", "9999-12-31",
+          "0001-01-01T00:30:00+05:00", 2 ** 63, 99999, "99999", "65", 65,
           "1965-13", "1999-12-31T23:00:00Z", "soon", 1965.5, None, True, [], {}]
 _PIECES = ["\\udfff", "\\ud800x", "\\ud83d\\ude00", "\ufeff", "\r", "\r\n", "\x00", '"', "'", "’", "İ", "ß",
            "[" * 50, "9" * 5000, "caf\u0065\u0301", "\u202e", "{}", "=HYPERLINK(1)", ",", "\\", "\t"]
@@ -102,8 +103,9 @@ def case(draw):
     fmt = draw(st.sampled_from(["jsonl", "jsonl.gz", "csv", "txt"]))
     records = [_ANCHOR] + draw(st.lists(record, min_size=1, max_size=6))
     if fmt == "txt":
-        files = [(b"anchor", b"alpha beta gamma")] + draw(st.lists(st.tuples(st.sampled_from([b"a", b"b\xff", b"S/c", b"S/d", b"\xe9t\xe9", b"T/e"]),
-                                        text.map(lambda t: t.encode("utf-8", "replace"))), max_size=5))
+        names = st.sampled_from([b"a", b"b\xff", b"S/c", b"S/d", b"\xe9t\xe9", b"T/e"])
+        contents = text.map(lambda t: t.encode("utf-8", "replace"))
+        files = [(b"anchor", b"alpha beta gamma")] + draw(st.lists(st.tuples(names, contents), max_size=5))
         links = draw(st.lists(st.sampled_from(["dangling", "inside", "outside", "folder", "loop"]), max_size=3))
         return fmt, [(n, draw(mutated(c))) for n, c in files], links
     base = (_jsonl(records, draw(st.lists(st.sampled_from(_PIECES), max_size=1)),

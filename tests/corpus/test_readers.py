@@ -271,3 +271,20 @@ def test_limits_are_checked(tmp_path):
         ReadLimits(max_depth=0)
     with pytest.raises(SettingError, match="max_gzip_ratio"):
         ReadLimits(max_gzip_ratio=1)
+
+
+def test_ingest_command_takes_the_limits_and_the_case_rule(tmp_path):
+    from click.testing import CliRunner
+
+    from tracer.app.cli import cli
+    from tracer.corpus.workspace import Workspace
+    p = tmp_path / "a.jsonl"
+    p.write_text('{"text": "' + "word " * 400 + '"}\n{"text": "KIZ kız"}\n', encoding="utf-8")
+    res = CliRunner().invoke(cli, ["ingest", str(p), "-w", str(tmp_path / "ws"), "--max-record-mb", "0.001",
+                                   "--case-rule", "turkish", "--format", "json"], catch_exceptions=False)
+    assert res.exit_code == 0, res.output
+    assert json.loads(res.stdout)[0]["rejected"] == 1
+    ws = Workspace(tmp_path / "ws")
+    assert ws.manifest["tokenizer"]["case_rule"] == "turkish" and ws.vocab.words == ["kız"]
+    res = CliRunner().invoke(cli, ["ingest", str(p), "-w", str(tmp_path / "ws2"), "--max-depth", "0"])
+    assert res.exit_code != 0 and "--max-depth" in res.output
