@@ -135,3 +135,22 @@ def _run(*args):
     result = CliRunner().invoke(cli, [str(a) for a in args], catch_exceptions=False)
     assert result.exit_code == 0, result.output
     return result
+
+
+def test_an_old_workspace_takes_appends_under_its_own_rule(multi, tmp_path):
+    import shutil
+
+    from tracer.errors import WorkspaceError
+    shutil.copytree(multi / "fold", tmp_path / "old")
+    manifest = Workspace(tmp_path / "old").store / "manifest.json"
+    m = json.loads(manifest.read_text(encoding="utf-8"))
+    m["tokenizer"] = {"lowercase": True, "normalization": "NFKC", "pattern": r"\w+(?:[-']\w+)*"}
+    manifest.write_text(json.dumps(m), encoding="utf-8")
+    more = write_jsonl(tmp_path / "more.jsonl", [{"id": "new", "text": "Straße don’t"}])
+    # an experiment states the defaults of its release: they fit the workspace the older release made
+    ingest(tmp_path / "old", [more], tokenizer=TokenizerSettings())
+    ws = Workspace(tmp_path / "old")
+    assert ws.tokenizer_settings.case_rule == "lower" and {"straße", "don", "t"} <= set(ws.vocab.index)
+    with pytest.raises(WorkspaceError, match="tokenizer settings"):
+        ingest(tmp_path / "old", [write_jsonl(tmp_path / "m2.jsonl", [{"text": "x"}])],
+               tokenizer=TokenizerSettings(case_rule="turkish"))

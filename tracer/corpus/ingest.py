@@ -224,7 +224,7 @@ def ingest(workspace: str | os.PathLike, inputs: Iterable[str | os.PathLike], *,
     old = Workspace(ws_path) if current else None
     if old is not None:
         settings = old.tokenizer_settings
-        if tokenizer is not None and tokenizer != settings:
+        if tokenizer is not None and not settings.matches(tokenizer):
             raise WorkspaceError(
                 f"workspace {ws_path} was made with tokenizer settings {settings.to_dict()}; "
                 f"these inputs ask for {tokenizer.to_dict()}. Use a new workspace for other settings"

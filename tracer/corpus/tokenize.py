@@ -103,6 +103,19 @@ class TokenizerSettings:
             raise SettingError(f"unknown tokenizer setting {sorted(unknown)[0]!r}; a newer release wrote it")
         return cls(**{**_LEGACY, **d})
 
+    def matches(self, request: "TokenizerSettings") -> bool:
+        """Whether ``request`` (asked for by an ingest or an experiment) fits a workspace with these settings.
+
+        Equal settings fit; so do the defaults of this release and the defaults of the release that
+        made an older workspace, for the same case and normal form: an experiment that states no new
+        rule keeps working on the workspace it made.
+        """
+        if request == self:
+            return True
+        legacy = dataclasses.replace(request, pattern=LEGACY_PATTERN, **_LEGACY)
+        default = TokenizerSettings(lowercase=request.lowercase, normalization=request.normalization)
+        return request == default and self == legacy
+
 
 def normalize_text(text: str, settings: TokenizerSettings) -> str:
     """The one normalisation of corpus text and user words: normal form, marks, case rule."""
