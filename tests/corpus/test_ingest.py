@@ -29,7 +29,7 @@ def test_store_holds_documents_tokens_vocab_and_postings(small_ws):
     assert counts["the"] == expected.count("the")
     assert ws.texts([2])[2] == SMALL_RECORDS[2]["text"]
     m = ws.manifest
-    assert m["tokenizer"] == {"lowercase": True, "normalization": "NFKC", "pattern": TokenizerSettings().pattern}
+    assert m["tokenizer"] == TokenizerSettings().to_dict()
     assert {"numpy", "scipy", "nltk", "gensim", "tracer"} <= set(m["versions"])
     assert m["inputs"][0]["sha256"] and m["n_tokens"] == len(expected)
 

@@ -23,7 +23,7 @@ def test_reads_two_and_one_target_tests(tmp_path):
     p = tmp_path / "t.toml"
     p.write_text(GOOD, encoding="utf-8")
     tests = load_tests(p)
-    assert tests["one"].two_target and tests["one"].targets_x == ("a", "b", "c")  # lower-cased
+    assert tests["one"].two_target and tests["one"].targets_x == ("A", "b", "c")  # as written: the workspace's rule applies later
     assert not tests["single"].two_target and tests["single"].attribute_pairs == (("g", "h"),)
     assert tests["one"].attribute_pairs == (("g", "h"),)  # default: a_i with b_i
 

@@ -21,6 +21,7 @@ from tracer.provenance.models import embedding_from_counts, train_embedding
 from tracer.errors import InputError, SettingError
 from tracer.analysis.measure import MeasureSettings, measure
 from tracer.core.association import AssociationTest
+from tracer.provenance.specs import normalized_test
 
 
 def drop_mask(ws, drops: list[str] = (), doc_ids: list[str] = ()) -> tuple[np.ndarray, str]:
@@ -93,6 +94,7 @@ def plan(ws, test: AssociationTest, sl: Slice, goal: float, *, unit: str = "docu
         raise SettingError(f"unit must be document or source; got {unit!r}")
     if goal < 0:
         raise SettingError(f"goal must be >= 0 (a bound on |d|); got {goal}")
+    test = normalized_test(test, ws)
     c = count_slice(ws, sl.weights, counts, slice_name=sl.name)
     emb = embedding_from_counts(ws, sl, c, settings)
     attr = Attribution(ws, sl.weights, c, emb, test, alpha=settings.alpha, shift=settings.shift,

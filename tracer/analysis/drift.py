@@ -27,6 +27,7 @@ from tracer.analysis.measure import (MeasureSettings, bootstrap_stream, bootstra
                                      restricted)
 from tracer.provenance.counts import count_slice
 from tracer.provenance.models import embedding_from_counts, train_embedding
+from tracer.provenance.specs import normalized_tests
 
 DEFAULT_MIN_TOKENS = 20_000
 
@@ -111,6 +112,7 @@ def drift_tests(ws, tests: dict[str, AssociationTest], model: str, periods: list
     reweighted counterparts are made once for all of them (the results are those of one test at
     a time: every test and slice draws from its own random stream). Unless
     ``settings.per_slice_words``, every period uses the words known in every measured period."""
+    tests = normalized_tests(tests, ws)
     for test in tests.values():
         if not test.two_target:
             raise SettingError(f"test {test.name} has one target set; drift takes two-target tests")
@@ -404,6 +406,7 @@ def word_drift(ws, words: list[str], periods: list[Slice], counts: CountSettings
     the same distance of every word the two periods share (distance_percentile: the share of shared
     words that moved no more, in percent; their median and 95th percentile beside it), and the
     nearest neighbours in each period. Only words above the minimum count in both periods are compared."""
+    words = ws.normalize_words(words)
     embs = [train_embedding(ws, p, "ppmi-svd", counts, settings, save=False) for p in periods]
     rotated, shared = aligned(embs)
     notes = [f"{p.name}: {n} words shared with {periods[-1].name} were used for the rotation"

@@ -34,6 +34,7 @@ from tracer.core.word2vec import Word2VecSettings
 from tracer.errors import SettingError
 from tracer.core.pmi import ppmi_matrix
 from tracer.core.association import AssociationTest
+from tracer.provenance.specs import normalized_tests
 
 log = logging.getLogger(__name__)
 
@@ -172,6 +173,7 @@ def measure(ws, tests: dict[str, AssociationTest], model: str, slices: list[Slic
     """
     if model_settings is None:
         model_settings = PpmiSvdSettings() if model == "ppmi-svd" else Word2VecSettings()
+    tests = normalized_tests(tests, ws)
     compared = len(slices) + (vectors is not None)
     common = None
     if compared > 1 and not settings.per_slice_words:

@@ -23,6 +23,7 @@ def pmi_table(ws, word: str, contexts: list[str], slices: list[Slice], settings:
     the PMI), pmi (natural log; NaN where the count is 0), ppmi, and note (why a
     row has no value: a word below the minimum count in that slice).
     """
+    word, contexts = ws.normalize_words([word])[0], ws.normalize_words(contexts)
     missing = [w for w in dict.fromkeys([word] + list(contexts)) if w not in ws.vocab.index]
     if missing:
         raise WordNotInVocabulary(f"not in the corpus at all: {', '.join(missing)}")

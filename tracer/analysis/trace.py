@@ -27,6 +27,7 @@ from tracer.provenance.models import embedding_from_counts, train_embedding
 from tracer.core.word2vec import Word2VecSettings
 from tracer.errors import SettingError, WordNotInVocabulary
 from tracer.core.association import AssociationTest
+from tracer.provenance.specs import normalized_test
 
 RANK_BY = ("gap", "effect_size")
 
@@ -95,6 +96,7 @@ def trace(ws, test: AssociationTest, model: str, sl: Slice, counts: CountSetting
     """
     if not test.two_target:
         raise SettingError(f"test {test.name} has one target set; trace takes two-target tests")
+    test = normalized_test(test, ws)
     if model_settings is None:
         model_settings = PpmiSvdSettings() if model == "ppmi-svd" else Word2VecSettings()
     svd_settings = model_settings if model == "ppmi-svd" else PpmiSvdSettings(dim=model_settings.dim)
@@ -319,6 +321,7 @@ def pair_passages(ws, word: str, contexts: list[str], sl: Slice, counts: CountSe
                   top: int = 10, per_doc: int = 3, context_tokens: int = 8) -> pd.DataFrame:
     """KWIC evidence for a pair: passages of the ``top`` documents where ``word`` co-occurs most with the
     context words (window counts, as counted), with character offsets into the stored text."""
+    word, contexts = ws.normalize_words([word])[0], ws.normalize_words(contexts)
     c = count_slice(ws, sl.weights, counts, slice_name=sl.name)
     missing = [w for w in [word] + contexts if w not in c.vocab.index]
     if missing:

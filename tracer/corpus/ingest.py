@@ -26,9 +26,9 @@ from tqdm.auto import tqdm
 from tracer.errors import InputError, WorkspaceError
 from tracer.versions import package_versions
 from tracer.corpus.lock import workspace_lock
-from tracer.corpus.readers import RawRecord, Reject, detect_format, read_records
+from tracer.corpus.readers import RawRecord, ReadLimits, Reject, detect_format, read_records
 from tracer.corpus.store import StoreWriter, remove_abandoned
-from tracer.corpus.tokenize import TokenizerSettings
+from tracer.corpus.tokenize import ENGINE, TokenizerSettings
 from tracer.corpus.validate import FieldMap, FieldUse, RecordValidator, reason_kind
 from tracer.corpus.workspace import Workspace, mapping_text
 
@@ -87,7 +87,7 @@ def hash_input(path: Path) -> str:
              sorted(p for p in path.rglob("*") if p.is_file() and p.suffix.lower() == ".txt"))
     for p in files:
         if path.is_dir():
-            h.update(p.relative_to(path).as_posix().encode("utf-8") + b"\0")
+            h.update(p.relative_to(path).as_posix().encode("utf-8", "surrogateescape") + b"\0")
         with open(p, "rb") as f:
             for block in iter(lambda: f.read(1 << 20), b""):
                 h.update(block)
@@ -112,6 +112,7 @@ class _Run:
     writer: StoreWriter
     validate: RecordValidator
     strict: bool
+    limits: ReadLimits = ReadLimits()
     reasons: dict[str, int] = dataclasses.field(default_factory=dict)
     first_reject: Reject | None = None
 
@@ -129,7 +130,7 @@ def ingest(workspace: str | os.PathLike, inputs: Iterable[str | os.PathLike], *,
            fields: FieldMap = FieldMap(), tokenizer: TokenizerSettings | None = None,
            input_format: str | None = None, default_source: str | None = None,
            strict: bool = False, progress: bool = False, replace: bool = False,
-           wait: bool = True, command: str = "") -> IngestSummary:
+           wait: bool = True, command: str = "", limits: ReadLimits = ReadLimits()) -> IngestSummary:
     """Read corpus files into the workspace (created if needed), holding its write lock.
 
     Parameters
@@ -158,6 +159,8 @@ def ingest(workspace: str | os.PathLike, inputs: Iterable[str | os.PathLike], *,
         standard error); with False fail at once with :class:`tracer.errors.WorkspaceBusy`.
     command : str
         What to call this writer in the lock file.
+    limits : ReadLimits
+        Bounds on one record (size, line length, nesting, gzip ratio); beyond them a reject.
 
     Returns
     -------
@@ -174,7 +177,7 @@ def ingest(workspace: str | os.PathLike, inputs: Iterable[str | os.PathLike], *,
             detect_format(p)
     with workspace_lock(ws_path, command=command or f"ingest {' '.join(map(str, inputs))}", wait=wait):
         return _ingest_locked(ws_path, inputs, fields, tokenizer, input_format, default_source, strict,
-                              progress, replace)
+                              progress, replace, limits)
 
 
 def _settings(ws_path: Path, current: Workspace | None, tokenizer: TokenizerSettings | None,
@@ -182,7 +185,7 @@ def _settings(ws_path: Path, current: Workspace | None, tokenizer: TokenizerSett
     if current is None:
         return tokenizer or TokenizerSettings()
     settings = current.tokenizer_settings
-    if tokenizer is not None and tokenizer != settings:
+    if tokenizer is not None and not settings.matches(tokenizer):
         if replace:
             return tokenizer
         raise WorkspaceError(
@@ -211,7 +214,7 @@ def _check_mapping(ws_path: Path, known: list[dict], inputs: list[Path], hashes:
 
 def _ingest_locked(ws_path: Path, inputs: list[Path], fields: FieldMap, tokenizer: TokenizerSettings | None,
                    input_format: str | None, default_source: str | None, strict: bool, progress: bool,
-                   replace: bool) -> IngestSummary:
+                   replace: bool, limits: ReadLimits) -> IngestSummary:
     current_name = remove_abandoned(ws_path)
     current = Workspace(ws_path) if current_name else None
     settings = _settings(ws_path, current, tokenizer, replace)
@@ -228,7 +231,7 @@ def _ingest_locked(ws_path: Path, inputs: list[Path], fields: FieldMap, tokenize
     writer = StoreWriter(ws_path, old, settings, previous=current_name)
     committed = False
     try:
-        run = _Run(writer, RecordValidator(fields, default_source), strict)
+        run = _Run(writer, RecordValidator(fields, default_source), strict, limits)
         summaries = []
         with tqdm(desc="ingest", unit=" docs", disable=not progress, leave=False) as bar:
             for path, sha in zip(inputs, input_hashes):
@@ -260,7 +263,7 @@ def _read_input(run: _Run, path: Path, sha: str, input_format: str | None, field
     use = FieldUse(fields, default_source, str(path))
     content = hashlib.sha256()
     n_rec = n_doc = n_tok = n_rej = 0
-    for rec in read_records(path, input_format):
+    for rec in read_records(path, input_format, run.limits):
         n_rec += 1
         stored = _store_record(run, rec, use, content)
         if isinstance(stored, Reject):
@@ -302,7 +305,7 @@ def _manifest(settings: TokenizerSettings, inputs: list[dict], writer: StoreWrit
     return {
         "format_version": FORMAT_VERSION,
         "tokenizer": settings.to_dict(),
-        "tokenizer_engine": "nltk.tokenize.RegexpTokenizer",
+        "tokenizer_engine": ENGINE,
         "inputs": inputs,
         "n_documents": writer.n_docs, "n_tokens": writer.n_tokens, "n_types": len(writer.words),
         "corpus_hash": corpus_hash(settings.to_dict(), inputs),

@@ -3,21 +3,35 @@
 Each reader yields, record by record, either a :class:`RawRecord` (the record's
 fields as a dict, with the file and line it came from) or a :class:`Reject`
 (with the reason it cannot be read). Nothing is held in memory beyond one
-record, so a corpus of any size streams through.
+record, and one record never beyond the :class:`ReadLimits`, so a corpus of
+any size streams through and a hostile file costs at most one reject.
+
+Whatever goes wrong inside one record (bad UTF-8, a lone surrogate escape,
+nesting beyond the limit, a record or line over the size limit, an unreadable
+value) is a reject with file, line and reason. Whatever stops a file part-way
+(a damaged gzip or Parquet stream, a decompression ratio over the limit) is one
+more reject at the line where reading stopped, after the records read before
+it. Line ends may be ``\\n``, ``\\r\\n`` or a lone ``\\r``; a UTF-8 byte-order
+mark at the start of a file is dropped. In a folder of .txt files, a symbolic
+link is followed when its target lies inside the input folder; any other link
+(outside, broken, or a loop), an unreadable entry and a file that is not a
+regular file is a reject, so every skipped file is counted. Files whose names
+do not end in .txt are not part of the input and are passed over.
 """
 
 from __future__ import annotations
 
 import csv
 import dataclasses
-import gzip
-import io
 import json
 import os
 from pathlib import Path
 from typing import Iterator
 
+from tracer.corpus.streams import ReadLimits, StopFile, chunks, lines
 from tracer.errors import InputError
+
+__all__ = ["FORMATS", "RawRecord", "ReadLimits", "Reject", "detect_format", "read_records", "shown_path"]
 
 FORMATS = ("jsonl", "csv", "txt", "parquet")
 
@@ -40,6 +54,11 @@ class Reject:
         return dataclasses.asdict(self)
 
 
+def shown_path(path) -> str:
+    """A path as printable UTF-8 text: bytes that are not UTF-8 appear as ``\\xNN``."""
+    return os.fsencode(path).decode("utf-8", "backslashreplace")
+
+
 def detect_format(path: Path) -> str:
     """Tell the format from the path: a folder is .txt files, else by suffix."""
     if path.is_dir():
@@ -52,47 +71,15 @@ def detect_format(path: Path) -> str:
         if name.endswith(suffix):
             return fmt
     raise InputError(
-        f"{path}: cannot tell the format from the name; use .jsonl, .jsonl.gz, .csv, .parquet, "
+        f"{shown_path(path)}: cannot tell the format from the name; use .jsonl, .jsonl.gz, .csv, .parquet, "
         "a .txt file or a folder of .txt files, or pass --input-format"
     )
 
 
-def _open_binary(path: Path):
-    if path.name.lower().endswith(".gz"):
-        return gzip.open(path, "rb")
-    return open(path, "rb")
-
-
 def _excerpt(text: str, n: int = 80) -> str:
-    text = text.replace("\n", " ")
+    text = text[: n + 1].replace("\n", " ")
+    text = text.encode("utf-8", "surrogatepass").decode("utf-8", "backslashreplace")
     return text if len(text) <= n else text[: n - 3] + "..."
-
-
-def read_jsonl(path: Path) -> Iterator[RawRecord | Reject]:
-    name = str(path)
-    with _open_binary(path) as f:
-        try:
-            for line_no, raw in enumerate(f, start=1):
-                if not raw.strip():
-                    continue
-                try:
-                    line = raw.decode("utf-8")
-                except UnicodeDecodeError as e:
-                    yield Reject(name, line_no, f"not valid UTF-8 (byte {e.start} of the line)",
-                                 _excerpt(raw.decode("utf-8", "replace")))
-                    continue
-                try:
-                    obj = json.loads(line)
-                except json.JSONDecodeError as e:
-                    yield Reject(name, line_no, f"malformed JSON: {e.msg} at column {e.colno}", _excerpt(line))
-                    continue
-                if not isinstance(obj, dict):
-                    yield Reject(name, line_no, f"a JSON object was expected, found {type(obj).__name__}",
-                                 _excerpt(line))
-                    continue
-                yield RawRecord(obj, name, line_no)
-        except (OSError, EOFError) as e:  # a damaged gzip stream
-            raise InputError(f"{name}: cannot read the file: {e}") from None
 
 
 def _has_surrogates(s: str) -> bool:
@@ -103,17 +90,97 @@ def _has_surrogates(s: str) -> bool:
     return False
 
 
-def read_csv(path: Path) -> Iterator[RawRecord | Reject]:
-    name = str(path)
-    with _open_binary(path) as fb:
-        # surrogateescape keeps bad bytes visible so that the one record holding
-        # them is rejected, instead of the whole file failing to decode
-        f = io.TextIOWrapper(fb, encoding="utf-8", errors="surrogateescape", newline="")
-        reader = csv.DictReader(f)
-        if reader.fieldnames is None:
+def _value_problem(obj, limits: ReadLimits) -> str | None:
+    """Why a parsed record cannot be stored: nesting too deep, a lone surrogate, too large."""
+    stack = [(obj, 1, None)]
+    total = 0
+    while stack:
+        value, depth, field = stack.pop()
+        if isinstance(value, str):
+            total += len(value)
+            if _has_surrogates(value):
+                where = f"field {field!r}" if field is not None else "a field name"
+                return (f"lone surrogate escape (in {_excerpt(where)}: half of a UTF-16 pair, "
+                        "not a character)")
+        elif isinstance(value, (dict, list)):
+            if depth > limits.max_depth:
+                return f"nested too deep (over {limits.max_depth} levels, limit max_depth)"
+            items = value.items() if isinstance(value, dict) else ((None, v) for v in value)
+            for key, v in items:
+                if key is not None:
+                    stack.append((str(key), depth, None))
+                stack.append((v, depth + 1, field if field is not None or key is None else str(key)))
+    if total > limits.max_record_bytes:
+        return f"record over the size limit ({total} characters, limit max_record_bytes = {limits.max_record_bytes})"
+    return None
+
+
+def _json_record(raw: bytes, name: str, line_no: int, limits: ReadLimits) -> RawRecord | Reject:
+    try:
+        line = raw.decode("utf-8")
+    except UnicodeDecodeError as e:
+        return Reject(name, line_no, f"not valid UTF-8 (byte {e.start} of the line)",
+                      _excerpt(raw[:200].decode("utf-8", "replace")))
+    try:
+        obj = json.loads(line)
+    except json.JSONDecodeError as e:
+        return Reject(name, line_no, f"malformed JSON: {e.msg} at column {e.colno}", _excerpt(line))
+    except RecursionError:
+        return Reject(name, line_no, f"nested too deep (over {limits.max_depth} levels, limit max_depth)",
+                      _excerpt(line))
+    except ValueError as e:  # e.g. an integer of more digits than Python converts
+        return Reject(name, line_no, f"unreadable JSON value ({e})", _excerpt(line))
+    if not isinstance(obj, dict):
+        return Reject(name, line_no, f"a JSON object was expected, found {type(obj).__name__}", _excerpt(line))
+    problem = _value_problem(obj, limits)
+    if problem:
+        return Reject(name, line_no, problem, _excerpt(line))
+    return RawRecord(obj, name, line_no)
+
+
+def _too_long(name: str, line_no: int, limits: ReadLimits) -> Reject:
+    return Reject(name, line_no, f"line over the length limit (limit max_line_bytes = {limits.max_line_bytes})", "")
+
+
+def read_jsonl(path: Path, limits: ReadLimits = ReadLimits()) -> Iterator[RawRecord | Reject]:
+    name = shown_path(path)
+    max_line = min(limits.max_line_bytes, limits.max_record_bytes)
+    line_no = 0
+    try:
+        for line_no, raw, _ in lines(chunks(path, limits), max_line):
+            if raw is None:
+                yield _too_long(name, line_no, dataclasses.replace(limits, max_line_bytes=max_line))
+            elif raw.strip():
+                yield _json_record(raw, name, line_no, limits)
+    except StopFile as e:
+        yield Reject(name, line_no + 1, str(e), "")
+
+
+def _csv_text_lines(numbered, long_lines: list[int]):
+    """CSV text lines for :mod:`csv`; a too-long line becomes its quotes only, and is noted."""
+    for line_no, raw, quotes in numbered:
+        if raw is None:
+            long_lines.append(line_no)
+            yield '"' * (quotes % 2) + "\n"
+        else:
+            # surrogateescape keeps bad bytes visible so that only the record holding them is rejected
+            yield raw.decode("utf-8", "surrogateescape") + "\n"
+
+
+def read_csv(path: Path, limits: ReadLimits = ReadLimits()) -> Iterator[RawRecord | Reject]:
+    name = shown_path(path)
+    long_lines: list[int] = []
+    csv.field_size_limit(limits.max_record_bytes)
+    reader = csv.reader(_csv_text_lines(lines(chunks(path, limits), limits.max_line_bytes), long_lines))
+    try:
+        try:
+            header = next(reader, None)
+        except csv.Error as e:
+            raise InputError(f"{name}, line 1: malformed CSV header: {e}") from None
+        if header is None:
             return
-        if any(_has_surrogates(h) for h in reader.fieldnames):
-            raise InputError(f"{name}, line 1: the header is not valid UTF-8")
+        if long_lines or any(_has_surrogates(h) for h in header):
+            raise InputError(f"{name}, line 1: the header is not valid UTF-8 or is over the line limit")
         start = reader.line_num + 1
         while True:
             try:
@@ -121,69 +188,166 @@ def read_csv(path: Path) -> Iterator[RawRecord | Reject]:
             except StopIteration:
                 break
             except csv.Error as e:
-                raise InputError(f"{name}, line {reader.line_num}: malformed CSV: {e}") from None
-            line_no, start = start, reader.line_num + 1
-            if None in row:
-                yield Reject(name, line_no, "more fields than the header names", _excerpt(str(row[None])))
+                yield Reject(name, start, f"malformed CSV ({e})", "")
+                start = reader.line_num + 1
                 continue
-            if any(v is None for v in row.values()):
-                yield Reject(name, line_no, "fewer fields than the header names", "")
+            line_no, end, start = start, reader.line_num, reader.line_num + 1
+            if long_lines and long_lines[0] <= end:
+                yield _too_long(name, long_lines[0], limits)
+                del long_lines[:]
                 continue
-            if any(_has_surrogates(v) for v in row.values()):
-                yield Reject(name, line_no, "not valid UTF-8", "")
-                continue
-            yield RawRecord(dict(row), name, line_no)
+            if not row:
+                continue  # a blank line
+            yield _csv_row(row, header, name, line_no, limits)
+    except StopFile as e:
+        yield Reject(name, reader.line_num + 1, str(e), "")
 
 
-def read_txt(path: Path) -> Iterator[RawRecord | Reject]:
+def _csv_row(row: list[str], header: list[str], name: str, line_no: int, limits: ReadLimits):
+    if len(row) > len(header):
+        return Reject(name, line_no, "more fields than the header names", _excerpt(",".join(row[len(header):])))
+    if len(row) < len(header):
+        return Reject(name, line_no, "fewer fields than the header names", "")
+    if any(_has_surrogates(v) for v in row):
+        return Reject(name, line_no, "not valid UTF-8", "")
+    if sum(len(v) for v in row) > limits.max_record_bytes:
+        return Reject(name, line_no, "record over the size limit (limit max_record_bytes = "
+                                     f"{limits.max_record_bytes})", "")
+    return RawRecord(dict(zip(header, row)), name, line_no)
+
+
+def read_txt(path: Path, limits: ReadLimits = ReadLimits()) -> Iterator[RawRecord | Reject]:
     """One document per .txt file; in a folder, the source is the first sub-folder."""
     if path.is_file():
-        files = [path]
-        root = path.parent
-    else:
-        root = path
-        files = sorted(p for p in path.rglob("*") if p.is_file() and p.suffix.lower() == ".txt")
-    for p in files:
-        rel = p.relative_to(root)
-        fields = {"id": rel.with_suffix("").as_posix(), "title": p.stem}
-        if len(rel.parts) > 1:
-            fields["source"] = rel.parts[0]
+        yield _txt_record(path, Path(path.name), limits)
+        return
+    root = Path(os.path.realpath(path))
+    for rel, problem in _txt_entries(root):
+        if problem:
+            yield Reject(shown_path(path / rel), 1, problem, "")
+        else:
+            yield _txt_record(path / rel, rel, limits)
+
+
+def _inside(target: str, root: Path) -> bool:
+    return os.path.commonpath([target, str(root)]) == str(root)
+
+
+def _txt_entries(root: Path) -> Iterator[tuple[Path, str | None]]:
+    """(path relative to root, why it is skipped or None) of every .txt file, sorted by path.
+
+    Links are followed when their target is inside ``root`` (a linked file or folder
+    is read under the link's name too); a link to a folder that holds the link is a
+    loop, counted and not followed.
+    """
+    stack: list[tuple[Path, frozenset]] = [(Path(), frozenset([str(root)]))]
+    found: list[tuple[Path, str | None]] = []
+    while stack:
+        rel, ancestors = stack.pop()
         try:
-            fields["text"] = p.read_bytes().decode("utf-8")
-        except UnicodeDecodeError as e:
-            yield Reject(str(p), 1, f"not valid UTF-8 (byte {e.start} of the file)", "")
+            entries = sorted(os.scandir(root / rel), key=lambda e: e.name)
+        except OSError as e:
+            found.append((rel, f"unreadable folder ({e.strerror}; its files are skipped)"))
             continue
-        yield RawRecord(fields, str(p), 1)
+        for entry in entries:
+            sub = rel / entry.name
+            is_txt = entry.name.lower().endswith(".txt")
+            real = os.path.realpath(root / sub)
+            if entry.is_symlink():
+                if not os.path.exists(real):
+                    if is_txt:
+                        found.append((sub, "broken symbolic link, skipped"))
+                    continue
+                if not _inside(real, root):
+                    if is_txt or os.path.isdir(real):
+                        found.append((sub, "symbolic link to outside the input folder, skipped"))
+                    continue
+            try:
+                is_dir = entry.is_dir()
+            except OSError:
+                is_dir = False
+            if is_dir:
+                if real in ancestors:
+                    found.append((sub, "symbolic link loop (to a folder that holds it), skipped"))
+                else:
+                    stack.append((sub, ancestors | {real}))
+            elif is_txt:
+                found.append((sub, None if entry.is_file() else "not a regular file, skipped"))
+    return iter(sorted(found, key=lambda x: os.fsencode(x[0])))
 
 
-def read_parquet(path: Path) -> Iterator[RawRecord | Reject]:
+def _txt_record(p: Path, rel: Path, limits: ReadLimits) -> RawRecord | Reject:
+    name = shown_path(p)
+    if _has_surrogates(str(rel)):
+        return Reject(name, 1, "file name not valid UTF-8, skipped (rename the file)", "")
+    try:
+        size = p.stat().st_size
+        if size > limits.max_record_bytes:
+            return Reject(name, 1, f"file over the size limit ({size} bytes, limit max_record_bytes = "
+                                   f"{limits.max_record_bytes})", "")
+        data = p.read_bytes()
+    except OSError as e:
+        return Reject(name, 1, f"unreadable file ({e.strerror})", "")
+    fields = {"id": rel.with_suffix("").as_posix(), "title": rel.stem}
+    if len(rel.parts) > 1:
+        fields["source"] = rel.parts[0]
+    try:
+        fields["text"] = data.decode("utf-8-sig")
+    except UnicodeDecodeError as e:
+        return Reject(name, 1, f"not valid UTF-8 (byte {e.start} of the file)", "")
+    return RawRecord(fields, name, 1)
+
+
+def read_parquet(path: Path, limits: ReadLimits = ReadLimits()) -> Iterator[RawRecord | Reject]:
     try:
         import pyarrow.parquet as pq
     except ImportError:
         raise InputError(
             f"{path}: reading Parquet needs pyarrow; install it with  pip install 'corpus-tracer[parquet]'"
         ) from None
+    name = shown_path(path)
     try:
         pf = pq.ParquetFile(path)
     except Exception as e:  # pyarrow raises its own error types for damaged files
-        raise InputError(f"{path}: not a readable Parquet file: {e}") from None
+        yield Reject(name, 0, f"not a readable Parquet file ({_excerpt(str(e), 200)})", "")
+        return
     row_no = 0
-    for batch in pf.iter_batches(batch_size=4096):
-        for row in batch.to_pylist():
+    batches = pf.iter_batches(batch_size=4096)
+    while True:
+        try:
+            batch = next(batches)
+        except StopIteration:
+            return
+        except Exception as e:  # a damaged page or column chunk
+            yield Reject(name, row_no + 1, f"damaged Parquet data ({_excerpt(str(e), 200)}); "
+                                           "the rest of the file is skipped", "")
+            return
+        try:
+            rows = batch.to_pylist()
+        except Exception:  # a value Python cannot hold (a timestamp past year 9999): find its rows
+            rows = None
+        for k in range(batch.num_rows):
             row_no += 1
-            yield RawRecord(row, str(path), row_no)
+            try:
+                row = rows[k] if rows is not None else batch.slice(k, 1).to_pylist()[0]
+            except Exception as e:
+                yield Reject(name, row_no, f"unreadable value ({_excerpt(str(e), 200)})", "")
+                continue
+            problem = _value_problem(row, limits)
+            yield Reject(name, row_no, problem, "") if problem else RawRecord(row, name, row_no)
 
 
 _READERS = {"jsonl": read_jsonl, "csv": read_csv, "txt": read_txt, "parquet": read_parquet}
 
 
-def read_records(path: str | os.PathLike, fmt: str | None = None) -> Iterator[RawRecord | Reject]:
+def read_records(path: str | os.PathLike, fmt: str | None = None,
+                 limits: ReadLimits = ReadLimits()) -> Iterator[RawRecord | Reject]:
     """Yield the records of one input, whatever its format."""
     path = Path(path)
     if not path.exists():
-        raise InputError(f"{path}: no such file or folder")
+        raise InputError(f"{shown_path(path)}: no such file or folder")
     if fmt is None:
         fmt = detect_format(path)
     if fmt not in _READERS:
         raise InputError(f"unknown input format {fmt!r}; use one of {', '.join(FORMATS)}")
-    return _READERS[fmt](path)
+    return _READERS[fmt](path, limits)

@@ -168,6 +168,10 @@ class Workspace:
     def tokenizer(self) -> Tokenizer:
         return Tokenizer(self.tokenizer_settings)
 
+    def normalize_words(self, words) -> list[str]:
+        """Words typed by a user in the form the corpus tokens take (the manifest's rule)."""
+        return [self.tokenizer.normalize_word(w) for w in words]
+
     @property
     def corpus_hash(self) -> str:
         return self.manifest["corpus_hash"]

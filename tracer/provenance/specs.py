@@ -10,6 +10,12 @@
 
 A two-target test (``targets_y`` given) is the WEAT design of Caliskan, Bryson
 and Narayanan (2017); a one-target test scores each target word.
+
+Words are kept as written (only stripped of spaces) when the file is read; they
+take the form of the corpus tokens where a test meets a workspace, through
+:func:`normalized_test` and the workspace's own rule (normal form, typographic
+marks, case rule: see :mod:`tracer.corpus.tokenize`). A word in NFD, in capitals
+or with a curly apostrophe thus matches the corpus word it stands for.
 """
 
 from __future__ import annotations
@@ -27,11 +33,40 @@ _KEYS = {"about", "targets_x", "targets_y", "attributes_a", "attributes_b", "att
 def _word_list(path: Path, name: str, key: str, value) -> tuple[str, ...]:
     if not isinstance(value, list) or not value or not all(isinstance(w, str) and w.strip() for w in value):
         raise InputError(f"{path}: test {name!r}: {key} must be a non-empty list of words")
-    words = tuple(w.strip().lower() for w in value)
+    words = tuple(w.strip() for w in value)
+    _no_duplicates(path, name, key, [w.casefold() for w in words])
+    return words
+
+
+def _no_duplicates(path, name: str, key: str, words: list[str]) -> None:
     dup = sorted({w for w in words if words.count(w) > 1})
     if dup:
         raise InputError(f"{path}: test {name!r}: {key} lists {', '.join(dup)} more than once")
-    return words
+
+
+def normalized_test(test: AssociationTest, ws) -> AssociationTest:
+    """``test`` with every word in the form of the corpus tokens of workspace ``ws``.
+
+    Normalising twice gives the same words, so an entry point may call it on a
+    test that another already normalised. Two words that become one (``"Straße"``
+    and ``"strasse"`` under case folding) are an error, not a silent merge.
+    """
+    def norm(key, words):
+        if words is None:
+            return None
+        out = tuple(ws.normalize_words(words))
+        _no_duplicates("tests", test.name, key + " (after normalisation)", list(out))
+        return out
+    pairs = tuple(tuple(ws.normalize_words(p)) for p in test.attribute_pairs)
+    return dataclasses.replace(test, targets_x=norm("targets_x", test.targets_x),
+                               targets_y=norm("targets_y", test.targets_y),
+                               attributes_a=norm("attributes_a", test.attributes_a),
+                               attributes_b=norm("attributes_b", test.attributes_b), attribute_pairs=pairs)
+
+
+def normalized_tests(tests: dict[str, AssociationTest], ws) -> dict[str, AssociationTest]:
+    """:func:`normalized_test` of every test, by name."""
+    return {name: normalized_test(t, ws) for name, t in tests.items()}
 
 
 def load_tests(path: str | Path) -> dict[str, AssociationTest]:
@@ -71,7 +106,7 @@ def load_tests(path: str | Path) -> dict[str, AssociationTest]:
             if not isinstance(pairs, list) or not all(isinstance(p, list) and len(p) == 2 and
                                                       all(isinstance(w, str) for w in p) for p in pairs):
                 raise InputError(f"{path}: test {name!r}: attribute_pairs must be a list of [word, word] pairs")
-            pairs = tuple((p[0].lower(), p[1].lower()) for p in pairs)
+            pairs = tuple((p[0].strip(), p[1].strip()) for p in pairs)
         else:
             pairs = tuple(zip(a, b))
         about = t.get("about", "")

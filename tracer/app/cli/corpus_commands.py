@@ -31,14 +31,37 @@ TOKENIZER_OPTIONS = [
     click.option("--keep-case", is_flag=True, help="Do not lower-case (new workspaces only)."),
     click.option("--normalization", type=click.Choice(["NFKC", "NFC", "NFD", "NFKD", "none"]), default=None,
                  help="Unicode normal form before tokenizing (new workspaces only; default NFKC)."),
+    click.option("--case-rule", type=click.Choice(["fold", "turkish"]), default=None,
+                 help="Case rule (new workspaces only): Unicode case folding (default), or Turkish/Azeri dotted "
+                      "and dotless i."),
 ]
 
 
 def _tokenizer(v: dict) -> dict:
     from tracer.corpus.tokenize import TokenizerSettings
-    if not (v["keep_case"] or v["normalization"]):
+    if not (v["keep_case"] or v["normalization"] or v["case_rule"]):
         return {"tokenizer": None}  # the workspace's own settings (or the defaults for a new one)
-    return {"tokenizer": TokenizerSettings(lowercase=not v["keep_case"], normalization=v["normalization"] or "NFKC")}
+    return {"tokenizer": TokenizerSettings(lowercase=not v["keep_case"], normalization=v["normalization"] or "NFKC",
+                                           case_rule=v["case_rule"] or "fold")}
+
+
+LIMIT_OPTIONS = [
+    click.option("--max-record-mb", type=click.FloatRange(min=0.001), default=64, show_default=True,
+                 help="Largest record (also the CSV field limit); larger ones are rejected."),
+    click.option("--max-line-mb", type=click.FloatRange(min=0.001), default=64, show_default=True,
+                 help="Longest line of a JSONL or CSV file; longer ones are rejected unread."),
+    click.option("--max-depth", type=click.IntRange(min=1), default=64, show_default=True,
+                 help="Deepest nesting of a JSON record."),
+    click.option("--max-gzip-ratio", type=click.FloatRange(min=1, min_open=True), default=200, show_default=True,
+                 help="Largest decompressed/compressed size of a .gz input (checked past 64 MB)."),
+]
+
+
+def _limits(v: dict) -> dict:
+    from tracer.corpus.readers import ReadLimits
+    return {"limits": ReadLimits(max_record_bytes=int(v["max_record_mb"] * 2 ** 20),
+                                 max_line_bytes=int(v["max_line_mb"] * 2 ** 20),
+                                 max_depth=v["max_depth"], max_gzip_ratio=v["max_gzip_ratio"])}
 
 
 @cli.command()
@@ -51,11 +74,13 @@ def _tokenizer(v: dict) -> dict:
               help="Format of the inputs (default: from the file name).")
 @click.option("--strict", is_flag=True, help="Fail on the first rejected record instead of skipping it.")
 @option_group(TOKENIZER_OPTIONS, _tokenizer)
+@option_group(LIMIT_OPTIONS, _limits)
 @click.option("--replace", is_flag=True,
               help="Rebuild the corpus from these inputs alone (to re-read a file with other fields or settings).")
 @click.option("--no-wait", is_flag=True, help="Fail at once if another command is writing to the workspace.")
 @output_options
-def ingest(inputs, workspace, fields, default_source, input_format, strict, tokenizer, replace, no_wait, out):
+def ingest(inputs, workspace, fields, default_source, input_format, strict, tokenizer, limits, replace, no_wait,
+           out):
     """Read corpus files (JSONL, JSONL.gz, CSV, .txt folders, Parquet) into a workspace.
 
     Running it again on the same file changes nothing; a new file is appended.
@@ -67,7 +92,7 @@ def ingest(inputs, workspace, fields, default_source, input_format, strict, toke
     from tracer.corpus.ingest import ingest as run_ingest
     summary = run_ingest(workspace, inputs, fields=fields, tokenizer=tokenizer, input_format=input_format,
                          default_source=default_source, strict=strict, progress=progress_on(), replace=replace,
-                         wait=not no_wait, command="tracer ingest " + " ".join(map(str, inputs)))
+                         wait=not no_wait, limits=limits, command="tracer ingest " + " ".join(map(str, inputs)))
     out.table(pd.DataFrame([{"input": i.path, "status": i.status, "records": i.records, "documents": i.documents,
                              "tokens": i.tokens, "rejected": i.rejects} for i in summary.inputs]))
     for warning in summary.warnings:
@@ -150,7 +175,7 @@ def pmi(word, contexts, workspace, counts, slices, alpha, shift, out):
     """
     from tracer.analysis.pmi_table import pmi_table
     ws = open_workspace(workspace)
-    kept, notes = known_words(words_of(contexts), ws.vocab.index, "the corpus at all")
+    kept, notes = known_words(ws.normalize_words(words_of(contexts)), ws.vocab.index, "the corpus at all")
     df = pmi_table(ws, word, kept, slices.resolve(ws), counts, alpha=alpha, shift=shift, progress=progress_on())
     if out.fmt == "json":
         df = df.drop(columns=["note"]).assign(note=df["note"].replace("", None))
@@ -177,9 +202,9 @@ def passages(word, contexts, workspace, slice_spec, counts, top, per_doc, out):
     sl = one_slice(ws, slice_spec)
     # the slice's vocabulary alone (no counting) says which context words can be looked for
     vocab = build_vocab(ws.tokens, ws.doc_offsets, sl.weights, ws.vocab.words, counts)
-    kept, notes = known_words([w.lower() for w in words_of(contexts)], vocab.index,
+    kept, notes = known_words(ws.normalize_words(words_of(contexts)), vocab.index,
                               f"the vocabulary of slice {sl.name} (min count {counts.min_count})")
-    df = pair_passages(ws, word.lower(), kept, sl, counts, top=top, per_doc=per_doc)
+    df = pair_passages(ws, word, kept, sl, counts, top=top, per_doc=per_doc)
     show_passages(df, out, notes=notes)
 
 

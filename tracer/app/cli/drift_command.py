@@ -65,7 +65,7 @@ def drift(workspace, tests_file, test_names, words, by, counts, model, measuring
 def _word_drift(ws, words, periods, counts, model, n_neighbours, show, out) -> None:
     from tracer.analysis.drift import word_drift
     from tracer.app.output import render, wrap
-    kept, skipped = known_words([w.lower() for w in words_of(words)], ws.vocab.index, "the corpus at all")
+    kept, skipped = known_words(ws.normalize_words(words_of(words)), ws.vocab.index, "the corpus at all")
     change, near, notes = word_drift(ws, kept, periods, counts, model.ppmi_svd, neighbours=n_neighbours)
     notes = skipped + list(notes)
     from tracer.app.output import to_records

@@ -94,8 +94,9 @@ def neighbours(words, workspace, model, slice_name, n_neighbours, out):
     Example:  tracer neighbours -w work/ harbour,wheat --model word2vec
     """
     import pandas as pd
-    emb = _stored_model(open_workspace(workspace), model, slice_name)
-    kept, notes = known_words(words_of(words), emb.index, f"the {model} model of slice {slice_name}")
+    ws = open_workspace(workspace)
+    emb = _stored_model(ws, model, slice_name)
+    kept, notes = known_words(ws.normalize_words(words_of(words)), emb.index, f"the {model} model of slice {slice_name}")
     rows = [{"word": w, "rank": r + 1, "neighbour": n, "cosine": s}
             for w in kept for r, (n, s) in enumerate(emb.neighbours(w, n_neighbours))]
     out.table(pd.DataFrame(rows), notes=notes)
