@@ -70,12 +70,12 @@ class _Parts:
         self.not_measured: list[dict] = []
         self.timings: dict[str, float] = {}
 
-    def attempt(self, part: str, name: str, fn: Callable):
-        """``fn()``, or None with the failure recorded when it raises one of PART_ERRORS."""
+    def attempt(self, part: str, name: str, fn: Callable, errors: tuple = PART_ERRORS):
+        """``fn()``, or None with the failure recorded when it raises one of ``errors``."""
         t0 = time.perf_counter()
         try:
             return fn()
-        except PART_ERRORS as e:
+        except errors as e:
             reason = f"{type(e).__name__}: {e}"
             self.not_measured.append({"part": part, "name": name, "reason": reason})
             self.say(f"not measured: {part} {name}: {reason}")
@@ -147,6 +147,9 @@ def run_experiment(exp: Experiment, *, progress: bool = False, say: Callable[[st
     except BaseException:
         folder.discard()
         raise
+    removed, freed = ws.cache.prune(ws.corpus_hash)
+    if removed:
+        say(f"cache: removed {removed} entries of other corpora, versions or over the size limit ({freed >> 20} MB)")
     return RunResult(folder.run_id, final, False, status, tuple(parts.not_measured))
 
 
@@ -235,6 +238,11 @@ def _drift(exp, ws, plan: RunPlan, parts: _Parts, progress) -> None:
         for name, test in plan.drift_tests.items():
             drifts.update(parts.attempt("drift", name, lambda: run({name: test})) or {})
     for name, d in (drifts or {}).items():
+        if d.changes.empty:  # the trend and the decomposition need two measured periods
+            short = d.periods[~d.periods["measured"].astype(bool)]
+            why = "; ".join(f"{p}: {r}" for p, r in zip(short["period"], short["reason"]))
+            parts.not_measured.append({"part": "drift", "name": name, "reason": "fewer than two periods could be "
+                                       f"measured, so no change between periods ({why})"})
         parts.tables[f"drift_{name}_periods"] = d.periods
         parts.tables[f"drift_{name}_trend"] = pd.DataFrame([d.trend])
         parts.tables[f"drift_{name}_changes"] = d.changes
@@ -268,18 +276,20 @@ def _store(exp: Experiment, ws, folder: RunFolder, parts: _Parts, key: str, file
         write_atomic(folder.tmp / "run.json", json.dumps(plain_values(info), indent=1, ensure_ascii=False))
         return status
 
-    write_info()
+    status = write_info()
     checkpoint("run-json")
-    report = parts.attempt("report", "report.html", lambda: write_report(folder.tmp, folder.tmp / "report.html"))
+    # the report is drawn from the tables already written: whatever breaks in it, the results are kept
+    report = parts.attempt("report", "report.html", lambda: write_report(folder.tmp, folder.tmp / "report.html"),
+                           errors=(Exception,))
     if report is not None:
         parts.attempt("report", "figures", lambda: save_figures(report.read_text(encoding="utf-8"),
-                                                                folder.tmp / "figures"))
-    if len(parts.not_measured) > len(parts.tables["not_measured"]):  # the report failed: say so in the table too
+                                                                folder.tmp / "figures"), errors=(Exception,))
+    if len(parts.not_measured) > len(parts.tables["not_measured"]):  # the report failed: say so in the run too
         failed = pd.DataFrame(parts.not_measured, columns=["part", "name", "reason"])
         failed.to_csv(folder.tmp / "tables" / "not_measured.csv", index=False)
         (folder.tmp / "tables" / "not_measured.json").write_text(
             json.dumps(to_records(failed), ensure_ascii=False, indent=1), encoding="utf-8")
-    status = write_info()
+        status = write_info()
     checkpoint("report")
     return status
 

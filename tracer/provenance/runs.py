@@ -144,8 +144,8 @@ def clean_abandoned(runs_dir: Path) -> list[Path]:
         return removed
     for folder in runs_dir.glob(f"{TMP_PREFIX}*"):
         pid = folder.name.rsplit(".", 1)[-1]
-        if pid.isdigit() and int(pid) != os.getpid() and _alive(int(pid)):
-            continue  # another run is writing it
+        if pid.isdigit() and _alive(int(pid)):
+            continue  # a run is writing it (perhaps in this process)
         shutil.rmtree(folder, ignore_errors=True)
         removed.append(folder)
     return removed
