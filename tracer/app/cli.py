@@ -79,7 +79,8 @@ def model_options(f):
                      help="word2vec: negative samples."),
         click.option("--epochs", type=click.IntRange(min=1), default=5, show_default=True, help="word2vec: epochs."),
         click.option("--workers", type=click.IntRange(min=1), default=1, show_default=True,
-                     help="word2vec: training threads (1 gives reproducible vectors)."),
+                     help="word2vec: training threads; 1 gives the same vectors on every run, more are faster "
+                          "but not reproducible."),
     ]
     for opt in reversed(opts):
         f = opt(f)
@@ -91,6 +92,9 @@ def _model_settings(model, dim, seed, eig_power, alpha, shift, cbow, negative, e
     from tracer.core.word2vec import Word2VecSettings
     if model == "ppmi-svd":
         return PpmiSvdSettings(dim=dim, eig_power=eig_power, alpha=alpha, shift=shift, seed=0 if seed is None else seed)
+    if workers > 1:
+        click.echo(f"Note: word2vec on {workers} workers: the vectors are not reproducible "
+                   "(another run gives other vectors); --workers 1 makes them reproducible", err=True)
     return Word2VecSettings(dim=dim, skip_gram=not cbow, negative=negative, epochs=epochs,
                             seed=1 if seed is None else seed, workers=workers)
 
@@ -798,6 +802,9 @@ def run(ctx, experiment, open_report):
         return
     click.echo(f"{'Reused' if result.reused else 'Stored'} run {result.run_id} in {result.folder}\n"
                f"Report: {report}\nTables: {result.folder / 'tables'}")
+    if result.status != "complete":
+        click.echo(f"Partial run: {len(result.not_measured)} parts not measured, each with its reason in "
+                   f"{result.folder / 'tables' / 'not_measured.csv'}")
 
 
 @cli.command()
@@ -816,6 +823,32 @@ def report(ctx, workspace, run_id, out):
     folder = find_run(workspace, run_id)
     write_report(folder, out)
     _say(ctx, f"wrote the report of run {folder.name} to {out}")
+
+
+# ---- cache ------------------------------------------------------------------------------------
+
+
+@cli.group()
+def cache():
+    """The workspace's cache of counts and models."""
+
+
+@cache.command("prune")
+@workspace_option()
+@click.option("--max-size", type=click.FloatRange(min=0), default=None,
+              help="Keep at most this many MB (the least recently used entries go first); default: 4096.")
+@click.pass_context
+def cache_prune(ctx, workspace, max_size):
+    """Remove cache entries of other corpora or versions, then the oldest over a size limit.
+
+    Example:  tracer cache prune -w tracer-demo --max-size 500
+    """
+    from tracer.provenance.cache import DEFAULT_MAX_BYTES, ResultCache
+    from tracer.corpus.workspace import Workspace
+    ws = Workspace(workspace)
+    limit = DEFAULT_MAX_BYTES if max_size is None else int(max_size * 2 ** 20)
+    removed, freed = ResultCache(ws.path / "cache").prune(ws.corpus_hash, limit)
+    click.echo(f"Removed {removed} cache entries ({freed / 2 ** 20:.1f} MB) from {ws.path / 'cache'}")
 
 
 # ---- demo -------------------------------------------------------------------------------------

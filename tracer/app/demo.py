@@ -44,6 +44,14 @@ def _table(folder: Path, name: str) -> pd.DataFrame:
     return pd.DataFrame(json.loads((folder / "tables" / f"{name}.json").read_text(encoding="utf-8")))
 
 
+def demo_word2vec(ws, counts, *, save: bool = True, progress: bool = False):
+    """The demo's word2vec model of the whole archive (one worker: the same vectors on every run)."""
+    from tracer.corpus.slices import slice_from_spec
+    from tracer.provenance.models import train_embedding
+    return train_embedding(ws, slice_from_spec(ws, "all"), "word2vec", counts, DEMO_WORD2VEC, save=save,
+                           progress=progress)
+
+
 def run_demo(workspace: str | Path, *, progress: bool = False,
              say: Callable[[str], None] = lambda s: None) -> DemoResult:
     """Run the demo experiment with its workspace in ``workspace``; return a printable account."""
@@ -64,7 +72,7 @@ def run_demo(workspace: str | Path, *, progress: bool = False,
     say("storing PPMI-SVD and word2vec models of the whole archive for tracer neighbours and export")
     whole = slice_from_spec(ws, "all")
     ppmi = train_embedding(ws, whole, "ppmi-svd", exp.counts, exp.ppmi_svd, progress=progress)
-    w2v = train_embedding(ws, whole, "word2vec", exp.counts, DEMO_WORD2VEC, progress=progress)
+    w2v = demo_word2vec(ws, exp.counts, progress=progress)
     export_path = workspace / "exports" / "ppmi-svd-all.txt"
     export_path.parent.mkdir(exist_ok=True)
     write_word2vec_format(ppmi, export_path)
