@@ -44,11 +44,12 @@ def _table(folder: Path, name: str) -> pd.DataFrame:
     return pd.DataFrame(json.loads((folder / "tables" / f"{name}.json").read_text(encoding="utf-8")))
 
 
-def demo_word2vec(ws, counts, *, save: bool = True, progress: bool = False):
-    """The demo's word2vec model of the whole archive (one worker: the same vectors on every run)."""
+def demo_word2vec(ws, counts, *, slice_spec: str = "all", save: bool = True, progress: bool = False):
+    """The demo's word2vec model of the whole archive, or of one slice of it (one worker: the same
+    vectors on every run)."""
     from tracer.corpus.slices import slice_from_spec
     from tracer.provenance.models import train_embedding
-    return train_embedding(ws, slice_from_spec(ws, "all"), "word2vec", counts, DEMO_WORD2VEC, save=save,
+    return train_embedding(ws, slice_from_spec(ws, slice_spec), "word2vec", counts, DEMO_WORD2VEC, save=save,
                            progress=progress)
 
 
