@@ -830,7 +830,10 @@ def report(ctx, workspace, run_id, out):
 
 @cli.group()
 def cache():
-    """The workspace's cache of counts and models."""
+    """The workspace's cache of counts and models.
+
+    Example:  tracer cache prune -w tracer-demo
+    """
 
 
 @cache.command("prune")
