@@ -114,3 +114,17 @@ def test_wide_variant_adds_topic_words_and_no_probe_words():
     docs, planted = gen.generate(5, docs_per_year=3, vocabulary="wide")
     words = set(" ".join(d["text"] for d in docs).lower().replace(".", " ").split())
     assert len(words & extra) > 300 and planted
+
+
+def test_the_demos_word2vec_is_the_same_on_every_run(demo_ws):
+    # gensim gives the same vectors for a seed only with one worker thread (gensim's documentation of
+    # Word2Vec: workers, seed and PYTHONHASHSEED). The demo's settings on one decade of the archive
+    # (the whole archive takes half a minute a model): enough words for several of gensim's jobs per
+    # epoch, so two workers would interleave them and give other vectors.
+    from tracer.app.demo import DEMO_EXPERIMENT, demo_word2vec
+    from tracer.provenance.experiment import load_experiment
+    counts = load_experiment(DEMO_EXPERIMENT).counts
+    first = demo_word2vec(demo_ws, counts, slice_spec="time=1980..1989", save=False)
+    second = demo_word2vec(demo_ws, counts, slice_spec="time=1980..1989", save=False)
+    assert first.words == second.words
+    np.testing.assert_array_equal(first.vectors, second.vectors)

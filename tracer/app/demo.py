@@ -10,13 +10,26 @@ from typing import Callable
 
 import pandas as pd
 
+from tracer.core.word2vec import Word2VecSettings
 from tracer.errors import InputError
 from tracer.app.output import render, wrap
 from tracer.provenance.vectors_io import write_word2vec_format
 
-ROOT = Path(__file__).resolve().parents[2]
+
+def _demo_root() -> Path:
+    """Where the demo archive and configs are: copied into the package by the build (an installed
+    wheel holds them in tracer/app/demo_data), else the source checkout."""
+    packaged = Path(__file__).resolve().parent / "demo_data"
+    if (packaged / "configs" / "demo.toml").is_file():
+        return packaged
+    return Path(__file__).resolve().parents[2]
+
+
+ROOT = _demo_root()
 DEMO_CORPUS = ROOT / "corpora_demo" / "archive.jsonl.gz"
 DEMO_EXPERIMENT = ROOT / "configs" / "demo.toml"
+# one worker: gensim's word2vec gives the same vectors on every run only with one training thread
+DEMO_WORD2VEC = Word2VecSettings(dim=100, workers=1)
 
 
 @dataclasses.dataclass(frozen=True)
@@ -31,6 +44,15 @@ def _table(folder: Path, name: str) -> pd.DataFrame:
     return pd.DataFrame(json.loads((folder / "tables" / f"{name}.json").read_text(encoding="utf-8")))
 
 
+def demo_word2vec(ws, counts, *, slice_spec: str = "all", save: bool = True, progress: bool = False):
+    """The demo's word2vec model of the whole archive, or of one slice of it (one worker: the same
+    vectors on every run)."""
+    from tracer.corpus.slices import slice_from_spec
+    from tracer.provenance.models import train_embedding
+    return train_embedding(ws, slice_from_spec(ws, slice_spec), "word2vec", counts, DEMO_WORD2VEC, save=save,
+                           progress=progress)
+
+
 def run_demo(workspace: str | Path, *, progress: bool = False,
              say: Callable[[str], None] = lambda s: None) -> DemoResult:
     """Run the demo experiment with its workspace in ``workspace``; return a printable account."""
@@ -38,12 +60,11 @@ def run_demo(workspace: str | Path, *, progress: bool = False,
     from tracer.corpus.slices import slice_from_spec
     from tracer.corpus.workspace import Workspace
     from tracer.provenance.models import train_embedding
-    from tracer.core.word2vec import Word2VecSettings
     from tracer.app.pipeline import run_experiment
 
     if not DEMO_CORPUS.is_file() or not DEMO_EXPERIMENT.is_file():
-        raise InputError(f"the demo files are missing ({DEMO_CORPUS}, {DEMO_EXPERIMENT}); run tracer from a source "
-                         "checkout installed with  pip install -e .")
+        raise InputError(f"the demo files are missing ({DEMO_CORPUS}, {DEMO_EXPERIMENT}); reinstall tracer (a built "
+                         "wheel holds them in tracer/app/demo_data; a source checkout has them in place)")
     t0 = time.perf_counter()
     workspace = Path(workspace).resolve()
     exp = dataclasses.replace(load_experiment(DEMO_EXPERIMENT), workspace=workspace)
@@ -52,7 +73,7 @@ def run_demo(workspace: str | Path, *, progress: bool = False,
     say("storing PPMI-SVD and word2vec models of the whole archive for tracer neighbours and export")
     whole = slice_from_spec(ws, "all")
     ppmi = train_embedding(ws, whole, "ppmi-svd", exp.counts, exp.ppmi_svd, progress=progress)
-    w2v = train_embedding(ws, whole, "word2vec", exp.counts, Word2VecSettings(dim=100, workers=2), progress=progress)
+    w2v = demo_word2vec(ws, exp.counts, progress=progress)
     export_path = workspace / "exports" / "ppmi-svd-all.txt"
     export_path.parent.mkdir(exist_ok=True)
     write_word2vec_format(ppmi, export_path)

@@ -1,11 +1,17 @@
 """A cache of counts and models inside the workspace, keyed by what made them.
 
-Key: the corpus hash, the document weights, the counting settings, the vocabulary
-given (if any), the model settings and the versions of tracer, numpy and scipy (an
-entry made by another version, whose counting or SVD may differ, is never reused).
-Only slices (weights of 0 and 1) are cached: bootstrap replicates and reweighted
-periods are made once and thrown away. Entries are written atomically (a temporary
-folder renamed into place) and never pickled.
+Key: the corpus hash, the document weights actually counted, the counting settings,
+the vocabulary given (if any), the model settings and the versions of tracer, numpy and
+scipy (an entry made by another version, whose counting or SVD may differ, is never
+reused). Only slices (weights of exactly 0 and 1) are cached: :meth:`ResultCache.key`
+refuses other weights, so a bootstrap replicate or a reweighted period can never be
+stored or found under a slice's key. Entries are written into a temporary folder and
+renamed into place whole, and never pickled.
+
+Every entry holds ``entry.json`` (corpus hash, versions, kind). :meth:`ResultCache.prune`
+removes entries of other corpus hashes or versions first, then the least recently used,
+until the cache fits a size limit (``tracer cache prune``; ``tracer run`` prunes to
+``DEFAULT_MAX_BYTES`` after each run).
 """
 
 from __future__ import annotations
@@ -14,6 +20,7 @@ import hashlib
 import json
 import os
 import shutil
+import time
 from pathlib import Path
 
 import numpy as np
@@ -24,6 +31,9 @@ from tracer import __version__
 from tracer.core.counting import Counts, CountSettings, ModelVocab
 from tracer.corpus.workspace import Workspace
 from tracer.provenance.vectors_io import load_embedding_folder, save_embedding
+
+DEFAULT_MAX_BYTES = 4 * 1024 ** 3
+TMP_PREFIX = ".tmp-"
 
 
 def open_workspace(path: str | os.PathLike, *, cache: bool | str = False) -> Workspace:
@@ -37,8 +47,27 @@ def open_workspace(path: str | os.PathLike, *, cache: bool | str = False) -> Wor
 
 
 def cacheable(weights: np.ndarray) -> bool:
+    """True for slice weights (every weight exactly 0 or 1)."""
     w = np.asarray(weights)
     return bool(np.all((w == 0) | (w == 1)))
+
+
+def versions_tag() -> str:
+    """The versions an entry's numbers depend on."""
+    return f"tracer {__version__} numpy {np.__version__} scipy {scipy.__version__}"
+
+
+def counts_digest(counts: Counts) -> str:
+    """SHA-256 of a count matrix and its vocabulary: what a model made from them depends on."""
+    h = hashlib.sha256()
+    m = counts.matrix
+    for a in (m.data, m.indices, m.indptr, counts.vocab.ids):
+        h.update(np.ascontiguousarray(a).tobytes())
+    return h.hexdigest()
+
+
+def _size(folder: Path) -> int:
+    return sum(f.stat().st_size for f in folder.rglob("*") if f.is_file())
 
 
 class ResultCache:
@@ -53,18 +82,36 @@ class ResultCache:
 
     @staticmethod
     def key(corpus_hash: str, weights: np.ndarray, *parts) -> str:
+        """The key of an entry made from ``weights`` (0/1 only: other weights raise ValueError)."""
+        if not cacheable(weights):
+            raise ValueError("only slice weights (0 and 1) are cached; these weights are not")
+        w = np.asarray(weights)
         h = hashlib.sha256(corpus_hash.encode())
-        h.update(f"tracer {__version__} numpy {np.__version__} scipy {scipy.__version__}".encode())
-        h.update(np.packbits(np.asarray(weights) > 0).tobytes())
+        h.update(versions_tag().encode())
+        h.update(f"{len(w)} documents".encode())
+        h.update(np.packbits(w == 1).tobytes())
         for p in parts:
             h.update(json.dumps(p, sort_keys=True, default=str).encode())
         return h.hexdigest()[:24]
 
-    def _commit(self, tmp: Path, final: Path) -> None:
-        if final.exists():
+    def _tmp(self, kind: str, key: str) -> Path:
+        return self.folder / f"{TMP_PREFIX}{kind}-{key}-{os.getpid()}-{time.monotonic_ns()}"
+
+    def _commit(self, tmp: Path, final: Path, kind: str, corpus_hash: str) -> None:
+        (tmp / "entry.json").write_text(json.dumps({"kind": kind, "corpus_hash": corpus_hash,
+                                                    "versions": versions_tag()}), encoding="utf-8")
+        if final.exists():  # made meanwhile by another writer: same key, same content
             shutil.rmtree(tmp, ignore_errors=True)
             return
         os.replace(tmp, final)
+
+    @staticmethod
+    def _touch(folder: Path) -> None:
+        """Mark an entry used (least recently used entries are pruned first)."""
+        try:
+            os.utime(folder)
+        except OSError:  # a read-only workspace: the order of pruning is only less exact
+            pass
 
     # ---- counts --------------------------------------------------------------------------------
     def get_counts(self, key: str):
@@ -73,6 +120,7 @@ class ResultCache:
             self.misses += 1
             return None
         self.hits += 1
+        self._touch(f)
         a = np.load(f / "arrays.npz", allow_pickle=False)
         meta = json.loads((f / "meta.json").read_text(encoding="utf-8"))
         n = len(a["ids"])
@@ -80,12 +128,11 @@ class ResultCache:
         words = (f / "words.txt").read_text(encoding="utf-8").split("\n")[:-1]
         return Counts(matrix, ModelVocab(words, a["ids"], a["counts"]), CountSettings(**meta["settings"]), meta["slice"])
 
-    def put_counts(self, key: str, counts) -> None:
+    def put_counts(self, key: str, counts, corpus_hash: str) -> None:
         if not self.write:
             return
-        final = self.folder / f"counts-{key}"
-        tmp = self.folder / f".tmp-counts-{key}-{os.getpid()}"
-        tmp.mkdir(parents=True, exist_ok=True)
+        tmp = self._tmp("counts", key)
+        tmp.mkdir(parents=True)
         m = counts.matrix
         np.savez(tmp / "arrays.npz", data=m.data, indices=m.indices, indptr=m.indptr, ids=counts.vocab.ids,
                  counts=counts.vocab.counts)
@@ -93,7 +140,7 @@ class ResultCache:
         (tmp / "meta.json").write_text(json.dumps({"settings": counts.settings.to_dict(), "slice": counts.slice_name}),
                                        encoding="utf-8")
         (tmp / "done").write_text("", encoding="utf-8")
-        self._commit(tmp, final)
+        self._commit(tmp, self.folder / f"counts-{key}", "counts", corpus_hash)
 
     # ---- embeddings ----------------------------------------------------------------------------
     def get_embedding(self, key: str):
@@ -102,12 +149,70 @@ class ResultCache:
             self.misses += 1
             return None
         self.hits += 1
+        self._touch(f)
         return load_embedding_folder(f)
 
-    def put_embedding(self, key: str, emb) -> None:
+    def put_embedding(self, key: str, emb, corpus_hash: str) -> None:
         if not self.write:
             return
-        final = self.folder / f"model-{key}"
-        tmp = self.folder / f".tmp-model-{key}-{os.getpid()}"
+        tmp = self._tmp("model", key)
         save_embedding(emb, tmp)
-        self._commit(tmp, final)
+        self._commit(tmp, self.folder / f"model-{key}", "model", corpus_hash)
+
+    # ---- pruning -------------------------------------------------------------------------------
+    def prune(self, corpus_hash: str, max_bytes: int | None = DEFAULT_MAX_BYTES) -> tuple[int, int]:
+        """Remove abandoned temporary folders and entries of other corpus hashes or versions, then
+        the least recently used entries until the rest fit ``max_bytes`` (None: no size limit).
+
+        Returns
+        -------
+        (entries removed, bytes freed)
+        """
+        if not self.folder.is_dir():
+            return 0, 0
+        removed = freed = 0
+        keep = []
+        for f in sorted(self.folder.iterdir()):
+            if not f.is_dir():
+                continue
+            size = _size(f)
+            if f.name.startswith(TMP_PREFIX):
+                if not _writer_alive(f.name):
+                    shutil.rmtree(f, ignore_errors=True)
+                    freed += size
+                continue
+            if _entry_current(f, corpus_hash):
+                keep.append((f.stat().st_mtime, size, f))
+                continue
+            shutil.rmtree(f, ignore_errors=True)
+            removed, freed = removed + 1, freed + size
+        total = sum(size for _, size, _ in keep)
+        for _, size, f in sorted(keep, key=lambda t: t[0]):
+            if max_bytes is None or total <= max_bytes:
+                break
+            shutil.rmtree(f, ignore_errors=True)
+            removed, freed, total = removed + 1, freed + size, total - size
+        return removed, freed
+
+
+def _entry_current(folder: Path, corpus_hash: str) -> bool:
+    try:
+        entry = json.loads((folder / "entry.json").read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError):  # an entry of an older version, or damaged
+        return False
+    return isinstance(entry, dict) and entry.get("corpus_hash") == corpus_hash \
+        and entry.get("versions") == versions_tag()
+
+
+def _writer_alive(name: str) -> bool:
+    """Whether the process that is writing a temporary folder (``.tmp-KIND-KEY-PID-NS``) still runs."""
+    parts = name.split("-")
+    if len(parts) < 5 or not parts[-2].isdigit():
+        return False
+    try:
+        os.kill(int(parts[-2]), 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True

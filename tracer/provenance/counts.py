@@ -17,7 +17,8 @@ def count_slice(ws, weights: np.ndarray, settings: CountSettings, *, slice_name:
     """Count a workspace under document weights (a slice's, a resample's, a reweighting's).
 
     The vocabulary is built from the documents of nonzero weight unless given,
-    so resamples of one slice can share the slice's vocabulary.
+    so resamples of one slice can share the slice's vocabulary. Counts of slice weights
+    (0 and 1) go through the workspace's cache, keyed by these weights; other weights never do.
     """
     cache = getattr(ws, "cache", None)
     key = None
@@ -37,5 +38,5 @@ def count_slice(ws, weights: np.ndarray, settings: CountSettings, *, slice_name:
                           workers=workers, progress=progress)
     counts = Counts(matrix, vocab, settings, slice_name)
     if key is not None:
-        cache.put_counts(key, counts)
+        cache.put_counts(key, counts, ws.corpus_hash)
     return counts

@@ -14,7 +14,7 @@ from tracer.core.counting import CountSettings, build_vocab
 from tracer.provenance.counts import count_slice
 from tracer.versions import package_versions
 from tracer.corpus.slices import Slice
-from tracer.provenance.cache import cacheable
+from tracer.provenance.cache import cacheable, counts_digest
 from tracer.errors import ModelNotFound, SettingError, SliceError
 from tracer.core.ppmi_svd import PpmiSvdSettings, ppmi_svd_vectors
 from tracer.core.embedding import Embedding
@@ -65,7 +65,7 @@ def train_embedding(ws, sl: Slice, model: str, counts: CountSettings,
         if not isinstance(settings, PpmiSvdSettings):
             raise SettingError("ppmi-svd takes PpmiSvdSettings")
         c = count_slice(ws, w, counts, slice_name=sl.name, vocab=vocab, progress=progress)
-        made = embedding_from_counts(ws, sl, c, settings)
+        made = embedding_from_counts(ws, sl, c, settings, weights=w)
         vectors, extras = made.vectors, made.extras
     else:
         if not isinstance(settings, Word2VecSettings):
@@ -112,16 +112,23 @@ def list_models(ws) -> pd.DataFrame:
     return pd.DataFrame(rows, columns=["model", "slice", "words", "dim", "trained_at", "current"])
 
 
-def embedding_from_counts(ws, sl: Slice, c, settings: PpmiSvdSettings) -> Embedding:
-    """A PPMI-SVD embedding of counts already made (not stored)."""
+def embedding_from_counts(ws, sl: Slice, c, settings: PpmiSvdSettings, *,
+                          weights: np.ndarray | None = None) -> Embedding:
+    """A PPMI-SVD embedding of counts already made (not stored).
+
+    ``weights`` are the document weights ``c`` was counted with (default: the slice's). The
+    cache key holds them and a digest of the counts themselves, so a model is never found
+    under the key of other counts.
+    """
     if settings.dim >= len(c.vocab):
         raise SettingError(f"slice {sl.name} has {len(c.vocab)} words at min count {c.settings.min_count}; "
                            f"--dim {settings.dim} must be below that (lower --dim or --min-count)")
     cache = getattr(ws, "cache", None)
     key = None
-    if cache is not None and cacheable(sl.weights):
-        key = cache.key(ws.corpus_hash, sl.weights, "ppmi-svd", c.settings.to_dict(), settings.to_dict(),
-                        c.vocab.ids.tolist())
+    counted = sl.weights if weights is None else weights
+    if cache is not None and cacheable(counted):
+        key = cache.key(ws.corpus_hash, counted, "ppmi-svd", c.settings.to_dict(), settings.to_dict(),
+                        c.vocab.ids.tolist(), counts_digest(c))
         hit = cache.get_embedding(key)
         if hit is not None:
             return Embedding(hit.words, hit.vectors, {**hit.card, "slice": sl.name}, hit.extras)
@@ -130,5 +137,5 @@ def embedding_from_counts(ws, sl: Slice, c, settings: PpmiSvdSettings) -> Embedd
             "corpus_hash": ws.corpus_hash, "n_words": len(c.vocab), "dim": int(vectors.shape[1])}
     emb = Embedding(list(c.vocab.words), vectors, card, extras)
     if key is not None:
-        cache.put_embedding(key, emb)
+        cache.put_embedding(key, emb, ws.corpus_hash)
     return emb

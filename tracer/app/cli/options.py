@@ -158,7 +158,8 @@ MODEL_OPTIONS = [
                  help="word2vec: negative samples."),
     click.option("--epochs", type=click.IntRange(min=1), default=5, show_default=True, help="word2vec: epochs."),
     click.option("--workers", type=click.IntRange(min=1), default=1, show_default=True,
-                 help="word2vec: training threads (1 gives reproducible vectors)."),
+                 help="word2vec: training threads; 1 gives the same vectors on every run, more are faster "
+                      "but not reproducible."),
 ]
 
 
@@ -173,6 +174,9 @@ def _model_choice(v: dict) -> dict:
     else:
         settings = Word2VecSettings(dim=v["dim"], skip_gram=not v["cbow"], negative=v["negative"],
                                     epochs=v["epochs"], seed=1 if seed is None else seed, workers=v["workers"])
+        if v["workers"] > 1:
+            click.echo(f"Note: word2vec on {v['workers']} workers: the vectors are not reproducible "
+                       "(another run gives other vectors); --workers 1 makes them reproducible", err=True)
     return {"model": ModelChoice(v["model"], settings, ppmi, 0 if seed is None else seed)}
 
 

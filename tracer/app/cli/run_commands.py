@@ -28,6 +28,34 @@ def run(experiment, open_report):
         return
     click.echo(f"{'Reused' if result.reused else 'Stored'} run {result.run_id} in {result.folder}\n"
                f"Report: {report_path}\nTables: {result.folder / 'tables'}")
+    if result.status != "complete":
+        click.echo(f"Partial run: {len(result.not_measured)} parts not measured, each with its reason in "
+                   f"{result.folder / 'tables' / 'not_measured.csv'}")
+
+
+@cli.group()
+def cache():
+    """The workspace's cache of counts and models.
+
+    Example:  tracer cache prune -w tracer-demo
+    """
+
+
+@cache.command("prune")
+@workspace_option()
+@click.option("--max-size", type=click.FloatRange(min=0), default=None,
+              help="Keep at most this many MB (the least recently used entries go first); default: 4096.")
+def cache_prune(workspace, max_size):
+    """Remove cache entries of other corpora or versions, then the oldest over a size limit.
+
+    Example:  tracer cache prune -w tracer-demo --max-size 500
+    """
+    from tracer.corpus.workspace import Workspace
+    from tracer.provenance.cache import DEFAULT_MAX_BYTES, ResultCache
+    ws = Workspace(workspace)
+    limit = DEFAULT_MAX_BYTES if max_size is None else int(max_size * 2 ** 20)
+    removed, freed = ResultCache(ws.path / "cache").prune(ws.corpus_hash, limit)
+    click.echo(f"Removed {removed} cache entries ({freed / 2 ** 20:.1f} MB) from {ws.path / 'cache'}")
 
 
 @cli.command()
