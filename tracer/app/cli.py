@@ -534,7 +534,10 @@ def trace(ctx, workspace, tests_file, test_name, slice_spec, window, min_count, 
                "passages": to_records(result.passages), "first_order": to_records(result.first_order),
                "verification": None if v is None else {
                    "quantity": v.quantity, "rows": to_records(v.rows), "pearson_r": v.pearson_r,
-                   "spearman_rho": v.spearman_rho, "sign_agreement": v.sign_agreement}}
+                   "spearman_rho": v.spearman_rho, "sign_agreement": v.sign_agreement,
+                   "pearson_r_without_largest": v.pearson_r_without_largest, "largest": v.largest,
+                   "confirmed": v.confirmed, "headline": v.headline()},
+               "view_effect_size": result.view_effect_size, "view_gap": result.view_gap}
         from tracer.app.output import plain_values
         _emit(json.dumps(plain_values(doc), indent=1, ensure_ascii=False) + "\n", out, ctx)
         return
@@ -544,16 +547,14 @@ def trace(ctx, workspace, tests_file, test_name, slice_spec, window, min_count, 
             raise SettingError("there is no verification table without --verify K")
         _emit_table(tables[show], fmt, out, ctx)
         return
-    parts = [f"Trace of {result.test} ({result.model}, slice {result.slice}): effect size {result.effect_size:.3f}, "
-             f"gap {result.gap:.4f}; ranked by {result.rank_by}.\n{ESTIMATE_NOTE}\n"]
+    parts = [f"{result.headline()}\n{ESTIMATE_NOTE}\n"]
     for name, df in tables.items():
         if df is None:
             continue
         shown = df.drop(columns=["text"]) if name == "passages" and len(df) else df
         parts.append(f"\n== {name} ==\n" + render(shown))
     if v is not None:
-        parts.append(f"agreement of predicted and retrained change ({v.quantity}): Pearson r {v.pearson_r:.3f}, "
-                     f"Spearman rho {v.spearman_rho:.3f}, sign agreement {v.sign_agreement:.2f}\n")
+        parts.append(v.headline() + "\n")
     parts += [f"Note: {n}\n" for n in result.notes]
     parts.append(CAUTIONS + "\n")
     _emit("".join(parts), out, ctx)

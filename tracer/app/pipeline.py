@@ -100,9 +100,10 @@ def run_experiment(exp: Experiment, *, progress: bool = False, say: Callable[[st
                 tables[f"trace_{name}_{part}"] = getattr(tr, part)
             if tr.verification is not None:
                 v = tr.verification
-                tables[f"trace_{name}_verification"] = v.rows.assign(pearson_r=v.pearson_r,
-                                                                     spearman_rho=v.spearman_rho,
-                                                                     sign_agreement=v.sign_agreement)
+                tables[f"trace_{name}_verification"] = v.rows.assign(
+                    pearson_r=v.pearson_r, spearman_rho=v.spearman_rho, sign_agreement=v.sign_agreement,
+                    pearson_r_without_largest=v.pearson_r_without_largest, confirmed=v.confirmed,
+                    headline=v.headline())
             timings[f"trace {name}"] = time.perf_counter() - t0
         if exp.drift_tests:
             chosen = select_tests(tests, list(exp.drift_tests), exp.tests_file)

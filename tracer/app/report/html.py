@@ -163,7 +163,7 @@ def _verification_figure(v: pd.DataFrame, test: str) -> str:
     ax.plot([-lim, lim], [-lim, lim], color="#888", lw=0.7)
     ax.set_xlabel("predicted change")
     ax.set_ylabel("retrained change")
-    ax.set_title(f"{test}: r = {v['pearson_r'].iloc[0]:.3f}", fontsize=10)
+    ax.set_title(f"{test}: rho = {v['spearman_rho'].iloc[0]:.2f}, r = {v['pearson_r'].iloc[0]:.2f}", fontsize=10)
     return _png(fig)
 
 
@@ -197,7 +197,7 @@ def build_report(run_dir: str | Path) -> str:
                           "end": r["end"], "html": _marked(r["marked"])} for r in (pas.to_dict("records") if pas is not None else [])][:30],
             "verification": _table(ver) if ver is not None else None,
             "verification_figure": _verification_figure(ver, name) if ver is not None else None,
-            "agreement": ver.iloc[0][["pearson_r", "spearman_rho", "sign_agreement"]].to_dict() if ver is not None else None,
+            "agreement": ver.iloc[0].reindex(["pearson_r", "spearman_rho", "sign_agreement", "headline"]).to_dict() if ver is not None else None,
         })
     drifts = []
     for name in exp.get("drift_tests", []):
