@@ -38,3 +38,7 @@ class ModelNotFound(TracerError):
 
 class SettingError(TracerError):
     """An option or setting with a value outside what it accepts."""
+
+
+class GoalNotReached(TracerError):
+    """A plan did not reach its goal (raised by the command line only when the goal is required)."""

@@ -633,7 +633,8 @@ def ablate(ctx, workspace, tests_file, test_names, drops, drop_docs, slice_spec,
                      MeasureSettings(bootstrap=bootstrap, seeds=seeds, seed=0 if seed is None else seed, alpha=alpha))
     if fmt == "table":
         res = res[["run", "test", "slice", "effect_size", "ci_low", "ci_high", "p_value", "gap", "change",
-                   "documents_dropped", "tokens_dropped", "effect_size_seed_sd"]]
+                   "change_ci_low", "change_ci_high", "change_interval", "documents_dropped", "tokens_dropped",
+                   "effect_size_seed_sd"]]
     _emit_table(res, fmt, out, ctx)
 
 
@@ -652,24 +653,30 @@ def ablate(ctx, workspace, tests_file, test_names, drops, drop_docs, slice_spec,
               help="Write the drop list (document ids, one per line).")
 @click.option("--write-corpus", type=click.Path(dir_okay=False, path_type=Path), default=None,
               help="Write the filtered corpus (JSONL with the original fields).")
+@click.option("--bootstrap", type=click.IntRange(min=0), default=0, show_default=True,
+              help="Document-bootstrap replicates of the filtered corpus: an interval for the verified effect.")
+@click.option("--goal-on-interval", is_flag=True, help="The whole interval must lie within the goal (needs --bootstrap).")
+@click.option("--require-goal", is_flag=True, help="Exit with an error (code 1) when the goal is not reached.")
 @click.option("--format", "fmt", type=click.Choice(["table", "json"]), default="table", show_default=True)
 @click.pass_context
 def plan(ctx, workspace, tests_file, test_name, goal, unit, slice_spec, max_steps, window, min_count, weighting,
-         max_vocab, dim, drop_list, write_corpus, fmt):
+         max_vocab, dim, drop_list, write_corpus, bootstrap, goal_on_interval, require_goal, fmt):
     """Find a small set of documents (or sources) whose removal brings |d| to the goal, and verify it.
 
     Example:  tracer plan -w work/ --tests configs/demo_tests.toml --test gazette_outlet --goal 0.5 -o drop.txt
     """
     import json
 
-    from tracer.analysis.counterfactual import plan as run_plan, write_filtered_corpus
+    from tracer.analysis.counterfactual import write_filtered_corpus
+    from tracer.analysis.plan import plan as run_plan
     from tracer.core.ppmi_svd import PpmiSvdSettings
     from tracer.app.output import plain_values, render, to_records
     from tracer.files import write_atomic
     ws = _open(workspace)
     sl = _one_slice(ws, slice_spec)
     p = run_plan(ws, _one_test(tests_file, test_name), sl, goal, unit=unit, max_steps=max_steps,
-                 counts=_count_settings(window, min_count, weighting, max_vocab), settings=PpmiSvdSettings(dim=dim))
+                 counts=_count_settings(window, min_count, weighting, max_vocab), settings=PpmiSvdSettings(dim=dim),
+                 bootstrap=bootstrap, on_interval=goal_on_interval)
     ids = ws.documents["doc_id"].to_numpy()[p.doc_indices]
     if drop_list is not None:
         write_atomic(drop_list, "".join(f"{i}\n" for i in ids))
@@ -679,18 +686,27 @@ def plan(ctx, workspace, tests_file, test_name, goal, unit, slice_spec, max_step
         keep[p.doc_indices] = False
         n = write_filtered_corpus(ws, keep, write_corpus)
         _say(ctx, f"wrote {n} documents to {write_corpus}")
-    summary = {"unit": p.unit, "removed": len(p.removed), "documents_removed": len(p.doc_indices),
-               "tokens_removed": p.tokens_removed, "token_share_removed": p.token_share,
-               "effect_before": p.effect_before, "predicted_effect": p.predicted_effect,
-               "verified_effect": p.verified_effect}
+    summary = {"goal_reached": p.reached, "unit": p.unit, "removed": len(p.removed),
+               "documents_removed": len(p.doc_indices), "tokens_removed": p.tokens_removed,
+               "token_share_removed": p.token_share, "effect_before": p.effect_before,
+               "predicted_effect": p.predicted_effect, "verified_effect": p.verified_effect,
+               "verified_low": p.verified_low, "verified_high": p.verified_high, "interval_method": p.interval_method}
+    tables = {"rounds": p.rounds, "removed by source": p.removed_table, "test words removed": p.losses,
+              "frequent words that fall most": p.falling, "usefulness": p.usefulness}
     if fmt == "json":
-        click.echo(json.dumps(plain_values({**summary, "removed_items": p.removed, "steps": to_records(p.steps),
-                                      "usefulness": to_records(p.usefulness)}), indent=1, ensure_ascii=False))
-        return
-    from tracer.app.output import render_mapping
-    click.echo(render_mapping(summary) + "\n" + render(p.usefulness) +
-               "\npredicted_effect is an estimate (model subspace held fixed); verified_effect comes from retraining "
-               "without the plan.\n" + CAUTIONS)
+        click.echo(json.dumps(plain_values({**summary, "message": p.message, "removed_items": p.removed,
+                                            "steps": to_records(p.steps),
+                                            **{k.replace(" ", "_"): to_records(v) for k, v in tables.items()}}),
+                              indent=1, ensure_ascii=False))
+    else:
+        from tracer.app.output import render_mapping
+        click.echo(p.message + "\n" + render_mapping(summary) + "".join(f"\n== {k} ==\n" + render(v)
+                                                                       for k, v in tables.items()) +
+                   "\npredicted_effect is an estimate (model subspace held fixed); verified_effect comes from "
+                   "retraining without the plan.\n" + CAUTIONS)
+    if require_goal and not p.reached:
+        from tracer.errors import GoalNotReached
+        raise GoalNotReached(p.message)
 
 
 @cli.command()
