@@ -42,3 +42,7 @@ class SettingError(TracerError):
 
 class WorkspaceBusy(WorkspaceError):
     """Another process holds the workspace's write lock."""
+
+
+class GoalNotReached(TracerError):
+    """A plan did not reach its goal (raised by the command line only when the goal is required)."""

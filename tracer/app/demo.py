@@ -89,9 +89,9 @@ def run_demo(workspace: str | Path, *, progress: bool = False,
     for name in exp.trace_tests:
         src = _table(folder, f"trace_{name}_sources")
         ver = _table(folder, f"trace_{name}_verification")
-        out.append(wrap(f"Trace of {name}: the source that carries it most is {src.source.iloc[0]} "
-                        f"({src.token_share.iloc[0]:.0%} of the tokens); predicted vs retrained change, "
-                        f"Pearson r {ver.pearson_r.iloc[0]:.3f} over {len(ver)} retrains."))
+        head = (f"the source that carries it most is {src.source.iloc[0]} ({src.token_share.iloc[0]:.0%} of the "
+                f"tokens); " if bool(ver.confirmed.iloc[0]) else "")
+        out.append(wrap(f"Trace of {name}: {head}{ver.headline.iloc[0]}."))
     for name in exp.drift_tests:
         trend = _table(folder, f"drift_{name}_trend").iloc[0]
         ch = _table(folder, f"drift_{name}_changes")

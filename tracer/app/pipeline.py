@@ -227,8 +227,9 @@ def _trace(exp, ws, name, test, sl, parts: _Parts, progress) -> None:
         parts.tables[f"trace_{name}_{part}"] = getattr(tr, part)
     if tr.verification is not None:
         v = tr.verification
-        parts.tables[f"trace_{name}_verification"] = v.rows.assign(pearson_r=v.pearson_r, spearman_rho=v.spearman_rho,
-                                                                   sign_agreement=v.sign_agreement)
+        parts.tables[f"trace_{name}_verification"] = v.rows.assign(
+            pearson_r=v.pearson_r, spearman_rho=v.spearman_rho, sign_agreement=v.sign_agreement,
+            pearson_r_without_largest=v.pearson_r_without_largest, confirmed=v.confirmed, headline=v.headline())
 
 
 def _drift(exp, ws, plan: RunPlan, parts: _Parts, progress) -> None:

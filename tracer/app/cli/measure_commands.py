@@ -7,7 +7,7 @@ from pathlib import Path
 import click
 
 from tracer.app.cli.group import cli, progress_on, say, steps
-from tracer.app.cli.options import (DIM_OPTION, counting_options, load_tests, measuring_options, model_options,
+from tracer.app.cli.options import (DIM_OPTION, check_out, counting_options, load_tests, measuring_options, model_options,
                                     one_slice, one_slice_option, one_test, open_workspace, output_options,
                                     slice_options, test_names_option, tests_file_option, workspace_option)
 from tracer.app.cli.texts import CAUTIONS, measure_legend
@@ -130,8 +130,8 @@ def _read_drop_list(path: Path | None) -> list[str]:
     return ids
 
 
-ABLATE_COLUMNS = ["run", "test", "effect_size", "change", "ci_low", "ci_high", "p_value", "q_value", "gap",
-                  "documents_dropped", "tokens_dropped", "slice", "effect_size_seed_sd"]
+ABLATE_COLUMNS = ["run", "test", "effect_size", "change", "change_ci_low", "change_ci_high", "ci_low", "ci_high",
+                  "p_value", "q_value", "gap", "change_interval", "documents_dropped", "tokens_dropped", "slice", "effect_size_seed_sd"]
 
 
 @cli.command()
@@ -162,8 +162,9 @@ def ablate(workspace, tests_file, test_names, drops, drop_docs, slice_spec, coun
     out.table(res)
 
 
-PLAN_TABLES = ["summary", "steps", "usefulness"]
-PLAN_DEFAULT = ["summary", "usefulness"]
+PLAN_TABLES = ["summary", "rounds", "removed-by-source", "test-words-removed", "frequent-words-falling",
+               "usefulness", "steps"]
+PLAN_DEFAULT = ["summary", "rounds", "removed-by-source", "test-words-removed", "usefulness"]
 
 
 @cli.command()
@@ -182,24 +183,35 @@ PLAN_DEFAULT = ["summary", "usefulness"]
               help="Also write the ids of the documents the plan drops, one per line (for ablate --drop-docs).")
 @click.option("--write-corpus", type=click.Path(dir_okay=False, path_type=Path), default=None,
               help="Also write the filtered corpus (JSONL with the original fields).")
+@click.option("--bootstrap", type=click.IntRange(min=0), default=0, show_default=True,
+              help="Document-bootstrap replicates of the filtered corpus: an interval for the verified effect.")
+@click.option("--goal-on-interval", is_flag=True,
+              help="The whole interval must lie within the goal (needs --bootstrap).")
+@click.option("--require-goal", is_flag=True, help="Exit with an error (code 1) when the goal is not reached.")
 @show_option(PLAN_TABLES, PLAN_DEFAULT, "steps")
 @output_options
 def plan(workspace, tests_file, test_name, goal, unit, slice_spec, max_steps, counts, dim, drop_list,
-         write_corpus, show, out):
+         write_corpus, bootstrap, goal_on_interval, require_goal, show, out):
     """Find a small set of documents (or sources) whose removal brings |d| to the goal, and verify it.
 
     Example:  tracer plan -w work/ --tests configs/demo_tests.toml --test gazette_outlet --goal 0.5
               --drop-list drop.txt
     """
-    from tracer.analysis.counterfactual import plan as run_plan
+    from tracer.analysis.plan import plan as run_plan
     from tracer.core.ppmi_svd import PpmiSvdSettings
+    for path in (drop_list, write_corpus):
+        if path is not None:
+            check_out(path)
     chosen_tables(show, PLAN_TABLES, PLAN_DEFAULT, "steps", out.fmt)  # a wrong --show fails before the work
     ws = open_workspace(workspace)
     sl = one_slice(ws, slice_spec)
     p = run_plan(ws, one_test(tests_file, test_name), sl, goal, unit=unit, max_steps=max_steps, counts=counts,
-                 settings=PpmiSvdSettings(dim=dim))
+                 settings=PpmiSvdSettings(dim=dim), bootstrap=bootstrap, on_interval=goal_on_interval)
     _write_plan_files(ws, sl, p, drop_list, write_corpus)
     _show_plan(p, show, out)
+    if require_goal and not p.reached:
+        from tracer.errors import GoalNotReached
+        raise GoalNotReached(p.message)
 
 
 def _write_plan_files(ws, sl, p, drop_list: Path | None, write_corpus: Path | None) -> None:
@@ -220,18 +232,21 @@ def _show_plan(p, show: tuple[str, ...], out) -> None:
     import pandas as pd
 
     from tracer.app.output import render, render_mapping, to_records, wrap
-    summary = {"unit": p.unit, "removed": len(p.removed), "documents_removed": len(p.doc_indices),
-               "tokens_removed": p.tokens_removed, "token_share_removed": p.token_share,
-               "effect_before": p.effect_before, "predicted_effect": p.predicted_effect,
-               "verified_effect": p.verified_effect}
-    tables = {"summary": pd.DataFrame([summary]), "steps": p.steps, "usefulness": p.usefulness}
+    summary = {"goal_reached": p.reached, "unit": p.unit, "removed": len(p.removed),
+               "documents_removed": len(p.doc_indices), "tokens_removed": p.tokens_removed,
+               "token_share_removed": p.token_share, "effect_before": p.effect_before,
+               "predicted_effect": p.predicted_effect, "verified_effect": p.verified_effect,
+               "verified_low": p.verified_low, "verified_high": p.verified_high, "interval_method": p.interval_method}
+    tables = {"summary": pd.DataFrame([summary]), "rounds": p.rounds, "removed-by-source": p.removed_table,
+              "test-words-removed": p.losses, "frequent-words-falling": p.falling, "usefulness": p.usefulness,
+              "steps": p.steps}
 
     def text(names: list[str]) -> str:
         parts = [render_mapping(summary, width=out.width) if name == "summary"
                  else render(tables[name], width=out.width) for name in names]
-        return "\n".join(parts) + wrap("\npredicted_effect is an estimate (model subspace held fixed); verified_effect "
+        return wrap(p.message, out.width) + "\n".join(parts) + wrap("\npredicted_effect is an estimate (model subspace held fixed); verified_effect "
                                        "comes from retraining without the plan.\n" + CAUTIONS, out.width)
 
     emit(out, show, tables=PLAN_TABLES, default=PLAN_DEFAULT, main="steps", get=tables.get, text=text,
-         document=lambda: {**summary, "removed_items": p.removed, "steps": to_records(p.steps),
-                           "usefulness": to_records(p.usefulness)})
+         document=lambda: {**summary, "message": p.message, "removed_items": p.removed,
+                           **{k.replace("-", "_"): to_records(v) for k, v in tables.items() if k != "summary"}})

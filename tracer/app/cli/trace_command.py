@@ -79,14 +79,15 @@ def _document(result) -> dict:
             "passages": to_records(result.passages), "first_order": to_records(result.first_order),
             "verification": None if v is None else {
                 "quantity": v.quantity, "rows": to_records(v.rows), "pearson_r": v.pearson_r,
-                "spearman_rho": v.spearman_rho, "sign_agreement": v.sign_agreement}}
+                "spearman_rho": v.spearman_rho, "sign_agreement": v.sign_agreement,
+                "pearson_r_without_largest": v.pearson_r_without_largest, "largest": v.largest,
+                "confirmed": v.confirmed, "headline": v.headline()},
+            "view_effect_size": result.view_effect_size, "view_gap": result.view_gap}
 
 
 def _text(result, names: list[str], width: int | None) -> str:
     from tracer.app.output import format_number as num, passages_text, render, wrap
-    parts = [wrap(f"Trace of {result.test} ({result.model}, slice {result.slice}): effect size "
-                  f"{num(result.effect_size)}, gap {num(result.gap)}; ranked by {result.rank_by}.\n{ESTIMATE_NOTE}",
-                  width)]
+    parts = [wrap(f"{result.headline()}\n{ESTIMATE_NOTE}", width)]
     for name in names:
         df = _table(result, name)
         parts.append(f"\n== {name} ==\n")
@@ -98,8 +99,6 @@ def _text(result, names: list[str], width: int | None) -> str:
                             width=width))
         v = result.verification
         if name == "verification":
-            parts.append(wrap(f"agreement of predicted and retrained change ({v.quantity}): Pearson r "
-                              f"{num(v.pearson_r)}, Spearman rho {num(v.spearman_rho)}, sign agreement "
-                              f"{num(v.sign_agreement)}", width))
+            parts.append(wrap(v.headline(), width))
     parts.append("\n" + "".join(wrap(f"Note: {n}", width) for n in result.notes) + wrap(CAUTIONS, width))
     return "".join(parts)
