@@ -25,7 +25,7 @@ TESTS = ROOT / "configs" / "demo_tests.toml"
 SHARES = ROOT / "corpora_demo" / "occupation_shares.csv"
 
 # commands whose result is a file or a run, not a table
-NO_TABLE = {"export", "report", "run", "demo"}
+NO_TABLE = {"export", "report", "run", "demo", "verify", "cache"}
 
 # a small run of every table command ({ws}: the workspace); ingest runs in the fixture
 SMALL_RUNS = {
@@ -200,12 +200,14 @@ def test_plan_o_is_the_plan_and_the_drop_list_has_its_own_option(small, tmp_path
     res = invoke(*args, "-o", tmp_path / "plan.csv", "--format", "csv", "--drop-list", tmp_path / "drop.txt")
     assert res.exit_code == 0, res.output
     assert res.stdout == ""
-    steps = list(csv.DictReader(io.StringIO((tmp_path / "plan.csv").read_text(encoding="utf-8"))))
-    assert list(steps[0]) == ["step", "removed", "predicted_effect", "predicted_gap"]
+    reader = csv.DictReader(io.StringIO((tmp_path / "plan.csv").read_text(encoding="utf-8")))
+    rounds = list(reader)
+    assert reader.fieldnames[0] == "round" and rounds[0]["round"] == "0"  # the main table: the rounds
     ids = (tmp_path / "drop.txt").read_text(encoding="utf-8").split()
+    whole = json.loads(invoke(*args, "--format", "json").stdout)
     from tracer.corpus.workspace import Workspace
     docs = Workspace(small["ws"]).documents
-    assert sorted(ids) == sorted(docs.doc_id[docs.source.isin([s["removed"] for s in steps])])
+    assert sorted(ids) == sorted(docs.doc_id[docs.source.isin(whole["removed_items"])])
 
 
 def test_unknown_words_are_skipped_with_a_note_where_the_command_can_go_on(small):

@@ -156,7 +156,7 @@ def plan(ws, test: AssociationTest, sl: Slice, goal: float, *, unit: str = "docu
     if goal < 0:
         raise SettingError(f"goal must be >= 0 (a bound on |d|); got {goal}")
     if on_interval and bootstrap < 2:
-        raise SettingError("a goal on the interval needs --bootstrap of at least 2")
+        raise SettingError("a goal on the interval needs --interval-replicates of at least 2")
     test = normalized_test(test, ws)
     emb_before, attr = _model(ws, sl, test, counts, settings)
     base = attr.base.effect_size

@@ -20,7 +20,8 @@ from pathlib import Path
 import numpy as np
 import scipy.sparse as sp
 
-from tracer.core.counting import CountSettings, ModelVocab, build_vocab, count_matrix, split_by_tokens
+from tracer.core.count_engine import split_by_tokens
+from tracer.core.counting import CountSettings, ModelVocab, build_vocab, count_matrix
 from tracer.errors import SettingError
 
 

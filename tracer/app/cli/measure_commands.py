@@ -183,15 +183,15 @@ PLAN_DEFAULT = ["summary", "rounds", "removed-by-source", "test-words-removed", 
               help="Also write the ids of the documents the plan drops, one per line (for ablate --drop-docs).")
 @click.option("--write-corpus", type=click.Path(dir_okay=False, path_type=Path), default=None,
               help="Also write the filtered corpus (JSONL with the original fields).")
-@click.option("--bootstrap", type=click.IntRange(min=0), default=0, show_default=True,
+@click.option("--interval-replicates", type=click.IntRange(min=0), default=0, show_default=True,
               help="Document-bootstrap replicates of the filtered corpus: an interval for the verified effect.")
 @click.option("--goal-on-interval", is_flag=True,
-              help="The whole interval must lie within the goal (needs --bootstrap).")
+              help="The whole interval must lie within the goal (needs --interval-replicates 2 or more).")
 @click.option("--require-goal", is_flag=True, help="Exit with an error (code 1) when the goal is not reached.")
-@show_option(PLAN_TABLES, PLAN_DEFAULT, "steps")
+@show_option(PLAN_TABLES, PLAN_DEFAULT, "rounds")
 @output_options
 def plan(workspace, tests_file, test_name, goal, unit, slice_spec, max_steps, counts, dim, drop_list,
-         write_corpus, bootstrap, goal_on_interval, require_goal, show, out):
+         write_corpus, interval_replicates, goal_on_interval, require_goal, show, out):
     """Find a small set of documents (or sources) whose removal brings |d| to the goal, and verify it.
 
     Example:  tracer plan -w work/ --tests configs/demo_tests.toml --test gazette_outlet --goal 0.5
@@ -202,11 +202,11 @@ def plan(workspace, tests_file, test_name, goal, unit, slice_spec, max_steps, co
     for path in (drop_list, write_corpus):
         if path is not None:
             check_out(path)
-    chosen_tables(show, PLAN_TABLES, PLAN_DEFAULT, "steps", out.fmt)  # a wrong --show fails before the work
+    chosen_tables(show, PLAN_TABLES, PLAN_DEFAULT, "rounds", out.fmt)  # a wrong --show fails before the work
     ws = open_workspace(workspace)
     sl = one_slice(ws, slice_spec)
     p = run_plan(ws, one_test(tests_file, test_name), sl, goal, unit=unit, max_steps=max_steps, counts=counts,
-                 settings=PpmiSvdSettings(dim=dim), bootstrap=bootstrap, on_interval=goal_on_interval)
+                 settings=PpmiSvdSettings(dim=dim), bootstrap=interval_replicates, on_interval=goal_on_interval)
     _write_plan_files(ws, sl, p, drop_list, write_corpus)
     _show_plan(p, show, out)
     if require_goal and not p.reached:
@@ -247,6 +247,6 @@ def _show_plan(p, show: tuple[str, ...], out) -> None:
         return wrap(p.message, out.width) + "\n".join(parts) + wrap("\npredicted_effect is an estimate (model subspace held fixed); verified_effect "
                                        "comes from retraining without the plan.\n" + CAUTIONS, out.width)
 
-    emit(out, show, tables=PLAN_TABLES, default=PLAN_DEFAULT, main="steps", get=tables.get, text=text,
+    emit(out, show, tables=PLAN_TABLES, default=PLAN_DEFAULT, main="rounds", get=tables.get, text=text,
          document=lambda: {**summary, "message": p.message, "removed_items": p.removed,
                            **{k.replace("-", "_"): to_records(v) for k, v in tables.items() if k != "summary"}})
