@@ -12,6 +12,7 @@ from click.testing import CliRunner
 
 from tests.conftest import LEE_SOURCES, lee_documents, write_jsonl
 from tracer.app.cli import cli
+from tracer.core.counting import CountSettings
 from tracer.corpus.ingest import ingest
 from tracer.corpus.slices import slice_from_spec
 from tracer.corpus.workspace import Workspace

@@ -26,7 +26,7 @@ from hypothesis import strategies as st
 
 from tracer.corpus.ingest import ingest
 from tracer.corpus.readers import ReadLimits, Reject, read_records
-from tracer.corpus.workspace import REJECTS_FILE, Workspace
+from tracer.corpus.workspace import Workspace
 from tracer.errors import TracerError
 
 EXAMPLES = int(os.environ.get("TRACER_FUZZ_EXAMPLES", "8"))
@@ -195,7 +195,7 @@ def _check(fmt, payload, links):
         assert inp.records == inp.documents + inp.rejects == len(records)
         ws = Workspace(tmp / "ws")
         assert ws.n_documents == inp.documents == s.documents_total
-        rejected = (tmp / "ws" / REJECTS_FILE).read_text(encoding="utf-8").splitlines() if inp.rejects else []
+        rejected = Path(s.rejects_file).read_text(encoding="utf-8").splitlines() if inp.rejects else []
         assert len(rejected) == inp.rejects
 
 

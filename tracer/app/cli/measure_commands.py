@@ -243,7 +243,7 @@ def _show_plan(p, show: tuple[str, ...], out) -> None:
 
     def text(names: list[str]) -> str:
         parts = [render_mapping(summary, width=out.width) if name == "summary"
-                 else render(tables[name], width=out.width) for name in names]
+                 else f"== {name.replace('-', ' ')} ==\n" + render(tables[name], width=out.width) for name in names]
         return wrap(p.message, out.width) + "\n".join(parts) + wrap("\npredicted_effect is an estimate (model subspace held fixed); verified_effect "
                                        "comes from retraining without the plan.\n" + CAUTIONS, out.width)
 
