@@ -198,3 +198,14 @@ def test_tables_stored_under_another_file_name_are_found_through_run_json(tmp_pa
                            "tables": {f"trace_{name}_sources": "trace-stem-1"}})
     html = build_report(folder)
     assert "Gazette: -0.2 (80% of the gap)" in html and "a/b $x$" in html
+
+
+def test_the_report_follows_the_trace_verdict_when_the_run_recorded_it():
+    # the trace's own rule (tracer.analysis.verification.CONFIRM) decides, so report and terminal agree:
+    # signs 100% and the top source within a factor two, but the trace said "not confirmed"
+    exp = {"trace_tests": ["t"]}
+    table = _verification([-0.2, 0.01, 0.02, 0.03], [-0.25, 0.01, 0.03, 0.02])
+    said_no = _Run({"trace_t_verification": table.assign(confirmed=False)}, exp)
+    assert verification_part(said_no, "t", ["A"], "#x").verdict == "mixed"
+    said_yes = _Run({"trace_t_verification": table.assign(confirmed=True)}, exp)
+    assert verification_part(said_yes, "t", ["A"], "#x").verdict == "yes"

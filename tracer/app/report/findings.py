@@ -157,8 +157,12 @@ def verification_part(run: RunData, test: str, names: list[str], link: str) -> P
     est, act = _num(row["predicted"].iloc[0]), _num(row["actual"].iloc[0])
     ratio = act / est if est else math.nan
     top_ok = math.isfinite(ratio) and CONFIRM_RATIO[0] <= ratio <= CONFIRM_RATIO[1]
-    rank_ok = math.isfinite(signs) and signs >= RANK_SIGNS
-    if top_ok and (rank_ok or not math.isfinite(signs)):
+    if "confirmed" in ver.columns and pd.notna(ver["confirmed"].iloc[0]):
+        # the trace's own verdict (tracer.analysis.verification), so report and terminal agree
+        rank_ok, known = bool(ver["confirmed"].iloc[0]), True
+    else:  # runs stored before the verdict was recorded
+        rank_ok, known = math.isfinite(signs) and signs >= RANK_SIGNS, math.isfinite(signs)
+    if top_ok and (rank_ok or not known):
         verdict, word = "yes", "confirmed"
     elif top_ok:
         verdict, word = "mixed", "top source only"
