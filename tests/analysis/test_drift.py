@@ -195,3 +195,24 @@ def test_each_source_gets_a_share_of_the_within_change(drifts):
     assert sorted(first.source) == ["Courier", "Gazette", "Herald", "Ledger", "Tribune"]
     assert np.isfinite(first.within_contribution.astype(float)).all()
     assert first.share_from.sum() == pytest.approx(1.0) and first.share_to.sum() == pytest.approx(1.0)
+
+
+def test_word2vec_changes_say_there_is_no_split(tmp_path):
+    """word2vec trains on whole-number document weights only, so the source-mix reweighting of the split
+    cannot be trained: the total change keeps its interval, the parts are empty and a note says why."""
+    from tracer.core.word2vec import Word2VecSettings
+    docs, _ = gen.generate(31, docs_per_year=12)
+    path = tmp_path / "small.jsonl.gz"
+    with gzip.open(path, "wt", encoding="utf-8") as f:
+        f.writelines(json.dumps(d) + "\n" for d in docs)
+    ingest(tmp_path / "ws", [path])
+    ws = Workspace(tmp_path / "ws")
+    periods = slices_by(ws, "time:35y")[1:]
+    r = drift(ws, TESTS["tribune_mix"], "word2vec", periods, model_settings=Word2VecSettings(dim=16, epochs=2),
+              settings=MeasureSettings(bootstrap=3), min_tokens=1000)
+    ch = r.changes.iloc[0]
+    p = r.periods.set_index("period")
+    assert ch.total == pytest.approx(p.gap.iloc[1] - p.gap.iloc[0])
+    assert ch.total_ci_low < ch.total < ch.total_ci_high
+    assert ch[["mix_part", "within_part", "mix_ci_low", "within_ci_high"]].isna().all() and r.source_parts.empty
+    assert any("no mix/within split and no interval for its parts with word2vec" in n for n in r.notes)

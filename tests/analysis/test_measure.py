@@ -150,14 +150,19 @@ def test_a_result_does_not_depend_on_the_other_tests_or_slices_measured_with_it(
 
 
 def test_intervals_are_the_replicates_standard_error_around_the_estimate(demo_result):
-    """Half-width t(n-1) * sd of the replicate table (scipy.stats.t), centred on the estimate."""
+    """Gap: half-width t(n-1) * sd of the replicate gaps (scipy.stats.t), centred on the estimate. d:
+    the delta method for gap / score_sd, written out here with numpy's covariance of the replicates."""
     s = demo_result.summary.set_index(["test", "slice"])
     reps = demo_result.replicates
     for (test, sl), g in reps.groupby(["test", "slice"]):
         r = s.loc[(test, sl)]
         half = stats.t.ppf(0.975, len(g) - 1) * g.gap.std(ddof=1)
         assert (r.gap_ci_low, r.gap_ci_high) == pytest.approx((r.gap - half, r.gap + half), rel=1e-9)
-        half_d = stats.t.ppf(0.975, len(g) - 1) * g.effect_size.std(ddof=1)
+        # one model per replicate: each replicate's d is its gap over its score sd
+        np.testing.assert_allclose(g.gap / g.score_sd, g.effect_size, rtol=1e-9)
+        sd = r.gap / r.effect_size                                   # the full-data score sd
+        grad = np.array([1 / sd, -r.gap / sd ** 2])                  # d(gap / sd) / d(gap, sd)
+        half_d = stats.t.ppf(0.975, len(g) - 1) * np.sqrt(grad @ np.cov(g.gap, g.score_sd) @ grad)
         bound = (r.n_targets_x + r.n_targets_y) / np.sqrt(r.n_targets_x * r.n_targets_y)  # largest |d| possible
         assert (r.ci_low, r.ci_high) == pytest.approx((max(r.effect_size - half_d, -bound),
                                                        min(r.effect_size + half_d, bound)), rel=1e-9)

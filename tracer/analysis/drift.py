@@ -159,7 +159,11 @@ def _one_drift(ws, test, model, periods, res, shared, min_tokens) -> DriftResult
         notes.append(f"trend: p = {trend['p_value']:.3g} is the smallest Kendall's exact test can give with "
                      f"{trend['periods_used']} periods (2 / {trend['periods_used']}!); more periods are needed for "
                      "a smaller one")
-    changes, parts = _decompose(ws, test, measured, table, reps, shared, notes)
+    if model == "ppmi-svd":
+        changes, parts = _decompose(ws, test, measured, table, reps, shared, notes)
+    else:
+        changes, parts = _totals_only(measured, table, reps), pd.DataFrame(columns=SOURCE_PART_COLUMNS)
+        notes.append(NO_SPLIT_NOTE.format(model=model))
     return DriftResult(test.name, model, table, trend, changes, parts, notes)
 
 
@@ -288,7 +292,31 @@ def _decompose(ws, test, measured, table, reps, shared: _Reweighted, notes):
             parts.append({"from": a.name, "to": b.name, "source": s, "share_from": float(sa.get(s, 0.0)),
                           "share_to": float(sb.get(s, 0.0)), "within_contribution": within_by_source.get(s)})
     return (pd.DataFrame(rows, columns=CHANGE_COLUMNS),
-            pd.DataFrame(parts, columns=["from", "to", "source", "share_from", "share_to", "within_contribution"]))
+            pd.DataFrame(parts, columns=SOURCE_PART_COLUMNS))
+
+
+NO_SPLIT_NOTE = ("changes: no mix/within split and no interval for its parts with {model}: the split reweights "
+                 "each period's documents to the other period's source mix, and those fractional weights only "
+                 "PPMI-SVD can train on; the total change and its interval are given; use --model ppmi-svd "
+                 "for the split")
+SOURCE_PART_COLUMNS = ["from", "to", "source", "share_from", "share_to", "within_contribution"]
+
+
+def _totals_only(measured, table, reps) -> pd.DataFrame:
+    """The changes table without the split (models that cannot train on reweighted documents): the
+    total change of each pair with its interval from the periods' own replicates."""
+    gaps = table.set_index("period")["gap"]
+    pairs = list(zip(measured[:-1], measured[1:]))
+    if len(measured) > 2:
+        pairs.append((measured[0], measured[-1]))
+    rows = []
+    for a, b in pairs:
+        ga, gb = float(gaps[a.name]), float(gaps[b.name])
+        row = {"from": a.name, "to": b.name, "overall": (a, b) == (measured[0], measured[-1]) and len(measured) > 2,
+               "total": gb - ga}
+        row.update(_part_intervals(reps.get(a.name), reps.get(b.name), None, None, ga, gb, None, None))
+        rows.append(row)
+    return pd.DataFrame(rows, columns=CHANGE_COLUMNS)
 
 
 CHANGE_COLUMNS = ["from", "to", "overall", "total", "total_ci_low", "total_ci_high", "mix_part", "mix_ci_low",

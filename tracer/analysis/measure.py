@@ -24,7 +24,7 @@ from tqdm.auto import tqdm
 from tracer.core.association import (DEFAULT_EXACT_BUDGET, DEFAULT_MIN_WORDS, DEFAULT_PERMUTATIONS, STD_CONVENTION,
                         association_scores, effect_size, permutation_p_value, ripa_direction, unit_rows, weat, word_sets)
 from tracer.core.counting import CountSettings, Counts, build_vocab
-from tracer.core.intervals import METHOD as INTERVAL_METHOD, bootstrap_interval, q_values
+from tracer.core.intervals import METHOD, RATIO_METHOD, bootstrap_interval, q_values, ratio_interval
 from tracer.provenance.counts import count_slice
 from tracer.corpus.slices import Slice
 from tracer.core.ppmi_svd import PpmiSvdSettings, ppmi_svd_vectors_warm
@@ -169,7 +169,8 @@ def measure(ws, tests: dict[str, AssociationTest], model: str, slices: list[Slic
         ``words``: one row per target word: test, model, slice, word, set, score, ripa, pmi_score,
         count_a, count_b, log_odds_ratio, lor_ci_low, lor_ci_high, lor_zero_cell_corrected.
         ``leave_one_out``: test, model, slice, left_out, set, effect_size, change.
-        ``replicates``: the bootstrap distribution itself: test, model, slice, replicate, effect_size, gap.
+        ``replicates``: the bootstrap distribution itself: test, model, slice, replicate, effect_size, gap,
+        score_sd (population sd of the target words' scores: d = gap / score_sd).
     """
     if model_settings is None:
         model_settings = PpmiSvdSettings() if model == "ppmi-svd" else Word2VecSettings()
@@ -192,9 +193,9 @@ def measure(ws, tests: dict[str, AssociationTest], model: str, slices: list[Slic
                           bootstrap_stream(settings.seed, sl.name), progress) \
             if sl is not None and settings.bootstrap > 0 else {}
         ppmi = ppmi_matrix(c.matrix, alpha=settings.alpha).tocsr() if c is not None else None
-        for name, (ds, gaps) in boot.items():
+        for name, (ds, gaps, sds) in boot.items():
             rep_rows.extend({"test": name, "model": model, "slice": slice_name, "replicate": k, "effect_size": d,
-                             "gap": g} for k, (d, g) in enumerate(zip(ds, gaps)))
+                             "gap": g, "score_sd": v} for k, (d, g, v) in enumerate(zip(ds, gaps, sds)))
         warning = ""
         if sl is not None and sl.n_tokens < SMALL_SLICE_TOKENS:
             warning = (f"slice {sl.name} has {sl.n_tokens} tokens, fewer than {SMALL_SLICE_TOKENS}: embeddings of so little "
@@ -220,7 +221,7 @@ def measure(ws, tests: dict[str, AssociationTest], model: str, slices: list[Slic
     summary["q_value"] = q_values(summary["p_value"].to_numpy(dtype=float))
     return MeasureResult(summary, pd.DataFrame(word_rows, columns=WORD_COLUMNS),
                          pd.DataFrame(loo_rows, columns=LOO_COLUMNS),
-                         pd.DataFrame(rep_rows, columns=["test", "model", "slice", "replicate", "effect_size", "gap"]))
+                         pd.DataFrame(rep_rows, columns=REPLICATE_COLUMNS))
 
 
 def _row_base(test, original, known, common, min_words) -> tuple[dict, object, str | None]:
@@ -257,6 +258,9 @@ SUMMARY_COLUMNS = ["test", "kind", "model", "slice", "measured", "reason", "effe
 WORD_COLUMNS = ["test", "model", "slice", "word", "set", "score", "ripa", "pmi_score", "count_a", "count_b",
                 "log_odds_ratio", "lor_ci_low", "lor_ci_high", "lor_zero_cell_corrected"]
 LOO_COLUMNS = ["test", "model", "slice", "left_out", "set", "effect_size", "change"]
+REPLICATE_COLUMNS = ["test", "model", "slice", "replicate", "effect_size", "gap", "score_sd"]
+# the gap has the plain bootstrap standard-error interval; d = gap / score sd has the delta method's
+INTERVAL_METHOD = f"gap: {METHOD}; d: {RATIO_METHOD} (gap and score sd)"
 
 
 def _embeddings(ws, sl, c, model, counts, model_settings, settings) -> list[Embedding]:
@@ -277,6 +281,7 @@ def _measure_one(test, wsets, embs, c, ppmi, boot, settings, rng) -> dict:
                         n_resamples=settings.permutations) for e in embs]
         ds = np.array([r.effect_size for r in results])
         out.update(effect_size=float(ds.mean()), gap=float(np.mean([r.gap for r in results])),
+                   score_sd=float(np.mean([_score_sd(r) for r in results])),
                    statistic=float(np.mean([r.statistic for r in results])),
                    # with several seeds the largest p-value is reported (the cautious choice)
                    p_value=float(max(r.p_value for r in results)), p_method=results[0].p_method,
@@ -290,14 +295,16 @@ def _measure_one(test, wsets, embs, c, ppmi, boot, settings, rng) -> dict:
                                        rng=rng)
             out.update(pmi_effect_size=effect_size(px, py), pmi_p_value=perm.p_value)
         if boot is not None:
-            d, gap = boot
-            di, gi = bootstrap_interval(out["effect_size"], d), bootstrap_interval(out["gap"], gap)
+            d, gap, sd = boot
+            di = ratio_interval(out["effect_size"], out["gap"], out.pop("score_sd"), gap, sd)
+            gi = bootstrap_interval(out["gap"], gap)
             # |d| cannot exceed n / sqrt(n_x n_y) (2 for equal sets): the symmetric interval stops there
             bound = (len(wsets.x) + len(wsets.y)) / np.sqrt(len(wsets.x) * len(wsets.y))
             out.update(ci_low=max(di.low, -bound), ci_high=min(di.high, bound), gap_ci_low=gi.low, gap_ci_high=gi.high, gap_se=gi.se,
                        replicate_shift=float(np.nanmean(gap)) - out["gap"], interval_method=INTERVAL_METHOD,
                        n_bootstrap=len(d), interval_note=gi.note)
         else:
+            out.pop("score_sd")
             out.update(n_bootstrap=0)
     else:
         e = embs[0]
@@ -352,7 +359,7 @@ def _leave_one_out(test, wsets, embs, summary_row) -> list[dict]:
 
 
 def _bootstrap(ws, sl, c, tests, model, counts, model_settings, settings, emb, rng, progress) -> dict:
-    """Effect sizes and gaps of every two-target test over document-bootstrap replicates."""
+    """Effect sizes, gaps and score sds of every two-target test over document-bootstrap replicates."""
     known = set(emb.index) & set(c.vocab.index)
     two = [t for t in tests.values()
            if t.two_target and word_sets(t, known).reason_not_measured(True, settings.min_words) is None]
@@ -360,6 +367,7 @@ def _bootstrap(ws, sl, c, tests, model, counts, model_settings, settings, emb, r
         return {}
     d = {t.name: [] for t in two}
     gaps = {t.name: [] for t in two}
+    sds = {t.name: [] for t in two}
     for _ in tqdm(range(settings.bootstrap), desc=f"bootstrap {sl.name}", disable=not progress, leave=False):
         w = bootstrap_weights(sl, rng)
         if model == "ppmi-svd":
@@ -374,4 +382,10 @@ def _bootstrap(ws, sl, c, tests, model, counts, model_settings, settings, emb, r
             rs = [weat(unit_rows(e.vectors), e.index, t, with_p=False) for e in reps]
             d[t.name].append(float(np.nanmean([r.effect_size for r in rs])))
             gaps[t.name].append(float(np.mean([r.gap for r in rs])))
-    return {name: (np.array(d[name]), np.array(gaps[name])) for name in d}
+            sds[t.name].append(float(np.mean([_score_sd(r) for r in rs])))
+    return {name: (np.array(d[name]), np.array(gaps[name]), np.array(sds[name])) for name in d}
+
+
+def _score_sd(r) -> float:
+    """The denominator of d: the population sd of all target words' scores."""
+    return float(np.concatenate([r.scores_x, r.scores_y]).std(ddof=0))

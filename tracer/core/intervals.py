@@ -19,6 +19,17 @@ a slope over periods, a decomposition's parts) combine the standard errors of
 independent parts (each period's replicates are drawn from its own documents), with
 Welch-Satterthwaite degrees of freedom.
 
+A ratio such as the WEAT effect size ``d = gap / sd`` (sd of the target words' scores) gets
+its standard error by the delta method from the paired replicates of numerator and
+denominator, with the derivatives taken at the full-data values
+(:func:`ratio_interval`): ``se^2 = (var u - 2 q cov(u, v) + q^2 var v) / v^2`` for ``q = u / v``.
+Taking the sd of the replicate ratios instead shrinks the spread: the word scores of a
+resample carry the resampling noise on top of the sample's own, so a replicate's sd runs
+high (38% above the estimate's in the coverage simulation) and its ratio answers a change of
+the gap with a slope 1/sd* smaller than the 1/sd of the estimate. In that simulation the
+sd of the replicate d's interval covered the expected d in 90% of 200 corpora, the delta
+method's in 94.5%.
+
 Percentile intervals are kept for resamples that are cheap and many (words resampled
 in ``correlate``): :func:`percentile_interval` refuses fewer than
 :func:`min_replicates_for_percentiles` replicates, the count at which the claimed
@@ -39,6 +50,8 @@ LEVEL = 0.95
 # below this many replicates the standard error is too rough to rely on (relative SE > 24%)
 MIN_REPLICATES = 10
 METHOD = "bootstrap standard error, t(n-1), centred on the estimate"
+RATIO_METHOD = ("delta method on the bootstrap replicates' numerator and denominator, t(n-1), centred on "
+                "the estimate")
 
 
 @dataclasses.dataclass(frozen=True)
@@ -96,6 +109,37 @@ def bootstrap_interval(estimate: float, replicates, level: float = LEVEL) -> Int
     if n < 2:
         return dataclasses.replace(NO_INTERVAL, estimate=float(estimate), n=n)
     return se_interval(estimate, se, n - 1, n, level, replicate_note(n))
+
+
+def ratio_interval(estimate: float, numerator: float, denominator: float, numerator_replicates,
+                   denominator_replicates, level: float = LEVEL) -> Interval:
+    """Interval of a ratio ``q = u / v`` by the delta method on paired replicates of u and v.
+
+    Parameters
+    ----------
+    estimate : float
+        The ratio reported (the centre; with several seeds a mean of ratios, near ``numerator /
+        denominator``).
+    numerator, denominator : float
+        u and v on the full data: the derivatives ``1 / v`` and ``-u / v^2`` are taken there.
+    numerator_replicates, denominator_replicates : array_like, shape (n,)
+        u and v on the same n bootstrap replicates (pairs with a NaN are left out).
+
+    Returns
+    -------
+    Interval
+        ``estimate +- t(n - 1) se`` with ``se^2 = (var u - 2 q cov(u, v) + q^2 var v) / v^2``.
+    """
+    u = np.asarray(numerator_replicates, dtype=np.float64)
+    v = np.asarray(denominator_replicates, dtype=np.float64)
+    ok = np.isfinite(u) & np.isfinite(v)
+    n = int(ok.sum())
+    if n < 2 or not (np.isfinite(denominator) and denominator != 0):
+        return dataclasses.replace(NO_INTERVAL, estimate=float(estimate), n=n)
+    q = float(numerator) / float(denominator)
+    cov = np.cov(u[ok], v[ok], ddof=1)
+    var = (cov[0, 0] - 2 * q * cov[0, 1] + q * q * cov[1, 1]) / float(denominator) ** 2
+    return se_interval(estimate, math.sqrt(max(float(var), 0.0)), n - 1, n, level, replicate_note(n))
 
 
 def combined_interval(estimate: float, coefficients, replicate_sets, level: float = LEVEL) -> Interval:
