@@ -162,3 +162,26 @@ def test_plan_cli_require_goal_exits_with_an_error(demo_ws):
     assert res.exit_code == 1
     assert res.stdout.startswith("goal not reached") and "== removed by source ==" in res.stdout
     assert res.stderr.startswith("Error: goal not reached: |d| <= 0.5 was not verified")
+
+
+def test_a_round_skips_a_document_whose_effect_the_earlier_ones_already_took():
+    """Three documents against a gap of 1.0 made of pairs: doc 0 carries pairs p1 (0.5) and p2 (0.2),
+    doc 1 carries p2 and p3 (0.02), doc 2 carries p4 (0.1). Alone, doc 1 would cut 0.22; after doc 0 only
+    0.02, under half of that, so it is not kept although it still lowers the gap a little."""
+    from tracer.analysis.influence import Effect
+    from tracer.analysis.plan import _round
+    pairs = {0: {"p1", "p2"}, 1: {"p2", "p3"}, 2: {"p4"}}
+    weight = {"p1": 0.5, "p2": 0.2, "p3": 0.02, "p4": 0.1}
+
+    class Pairs:  # stands in for Attribution: the gap left once the documents' pairs are gone
+        base = Effect(2.0, 1.0)
+
+        def exact(self, docs):
+            gone = set().union(*(pairs[int(d)] for d in docs))
+            gap = 1.0 - sum(weight[p] for p in gone)
+            return Effect(2.0 * gap, gap)
+    groups = [np.array([0]), np.array([1]), np.array([2])]
+    support = np.array([0.7, 0.22, 0.1])
+    chosen, steps, _ = _round(Pairs(), groups, ["d0", "d1", "d2"], [10, 10, 10], support, 0.0, 10, False)
+    assert [c[1] for c in chosen] == ["d0", "d2"]
+    assert steps[-1]["predicted_gap"] == pytest.approx(1.0 - 0.5 - 0.2 - 0.1)

@@ -3,7 +3,9 @@
 Each round estimates on the model of the corpus as it stands (linear influence, then the
 exact fixed-subspace re-check of :class:`~tracer.analysis.influence.Attribution`), adds the
 units that reach the goal by that estimate, preferring those that weaken the association
-most per token removed, and retrains. The retrained model of the reduced corpus is the
+most per token removed and keeping a unit only while, among the units chosen before it, it still
+does at least half of what it does alone (MIN_KEPT_SUPPORT; one whose effect the earlier units
+already took would be text removed for nothing), and retrains. The retrained model of the reduced corpus is the
 verification; when it overshoots, the round's additions are cut back to the shortest prefix
 that still reaches the goal (bisection, one retrain per step). Rounds stop when the verified
 effect (or, if asked, its whole interval) is within the goal, or with ``reached`` False.
@@ -31,6 +33,7 @@ from tracer.provenance.specs import normalized_test
 from tracer.provenance.models import embedding_from_counts, train_embedding
 
 Z95 = 1.959964  # two-sided 95% point of the standard normal (scipy.stats.norm.ppf(0.975))
+MIN_KEPT_SUPPORT = 0.5  # share of a unit's own exact effect it must keep among the units chosen before it
 SOURCE_P = 0.05  # a source is dropped only if the test is significant inside it at this level
 
 
@@ -102,19 +105,22 @@ def _units(ws, attr: Attribution, weights: np.ndarray, unit: str, candidates: in
     tokens = np.array([int(n_tokens[g].sum()) for g in groups])
     order = [i for i in np.argsort(-support / (np.maximum(tokens, 1) if per_token else 1), kind="stable")
              if support[i] > 0]
-    return [groups[i] for i in order], [names[i] for i in order], tokens[order] if order else tokens[:0]
+    return ([groups[i] for i in order], [names[i] for i in order], tokens[order] if order else tokens[:0],
+            support[order] if order else support[:0])
 
 
-def _round(attr: Attribution, groups, names, tokens, target: float, budget: int, one_only: bool):
+def _round(attr: Attribution, groups, names, tokens, support, target: float, budget: int, one_only: bool):
     """Greedy additions of one round, until the exact |d| is within ``target``: keep a unit only if
-    the exact re-check says it brings the gap towards zero."""
+    the exact re-check of the units together says it still brings the gap towards zero by at least
+    MIN_KEPT_SUPPORT of what it does alone (a unit whose effect the earlier ones already took is
+    innocent text removed for nothing)."""
     chosen, steps = [], []
     current = attr.base
-    for g, name, tok in zip(groups, names, tokens):
+    for g, name, tok, alone in zip(groups, names, tokens, support):
         if abs(current.effect_size) <= target or len(chosen) >= budget:
             break
         trial = attr.exact(np.concatenate([c[0] for c in chosen] + [g]))
-        if abs(trial.gap) < abs(current.gap):
+        if abs(current.gap) - abs(trial.gap) > MIN_KEPT_SUPPORT * alone:
             chosen.append((g, name, int(tok)))
             current = trial
             steps.append({"removed": name, "tokens": int(tok), "predicted_effect": trial.effect_size,
@@ -177,8 +183,9 @@ def plan(ws, test: AssociationTest, sl: Slice, goal: float, *, unit: str = "docu
         # the fixed-subspace estimate runs ahead of the retrained change: aim deeper by the last ratio
         aim = max(0.0, abs(verified) - (abs(verified) - max(0.0, goal - half)) / gain)
         with threadpool_limits(1):  # probe-row products are tiny: waking BLAS threads costs 10x the work
-            groups, names, tokens = _units(ws, attr, sl.weights * ~mask, unit, candidates, per_token, allowed)
-            new, new_steps, predicted = _round(attr, groups, names, tokens, aim, max_steps - len(chosen),
+            groups, names, tokens, support = _units(ws, attr, sl.weights * ~mask, unit, candidates, per_token,
+                                                    allowed)
+            new, new_steps, predicted = _round(attr, groups, names, tokens, support, aim, max_steps - len(chosen),
                                                one_only=unit == "source")
         if not new:
             break
