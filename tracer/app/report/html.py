@@ -169,6 +169,13 @@ def _headline(run: RunData) -> tuple[str, str]:
     return model, preferred if preferred in slices or not slices else ("all" if "all" in slices else sorted(slices)[0])
 
 
+def environment() -> Environment:
+    """The templates' environment: every string escaped (autoescape); a value a run lacks (a part
+    not measured) renders empty instead of failing."""
+    return Environment(loader=FileSystemLoader(TEMPLATES), autoescape=select_autoescape(["html", "j2"]),
+                       trim_blocks=True, lstrip_blocks=True, undefined=ChainableUndefined)
+
+
 def render_report(run_dir: str | Path) -> tuple[str, list[fig.Chart]]:
     """The report of a stored run as HTML text, and its figures in the order they appear."""
     run = RunData(run_dir)
@@ -179,9 +186,7 @@ def render_report(run_dir: str | Path) -> tuple[str, list[fig.Chart]]:
     traces = [_trace(run, name, charts) for name in run.tests_of("trace_tests")]
     drifts = [_drift(run, name, charts) for name in run.tests_of("drift_tests")]
     correlations = correlate_sections(run, charts)
-    # a value a run lacks (a part not measured) renders empty instead of failing
-    env = Environment(loader=FileSystemLoader(TEMPLATES), autoescape=select_autoescape(["html", "j2"]),
-                      trim_blocks=True, lstrip_blocks=True, undefined=ChainableUndefined)
+    env = environment()
     info = run.info
     html = env.get_template("report.html.j2").render(
         info=info, exp=run.experiment, status=run.status, cautions=CAUTIONS, model=model, headline=headline,
