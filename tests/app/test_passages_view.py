@@ -96,6 +96,8 @@ def test_kwic_lines_fit_100_columns_and_align_the_keyword():
 
 
 def test_wrap_and_display_rules():
+    # Unicode UAX #11: CJK ideographs are Wide (two columns); a combining accent takes none
+    assert text_width("東京ab") == 6 and text_width("e\u0301") == 1
     chars = display_chars("a  b\n\tc", [(3, 4)])
     assert "".join(c for c, _ in chars) == "a b c" and [m for _, m in chars] == [False, False, True, False, False]
     lines = wrap_chars(display_chars("東京 " * 30, []), 20)

@@ -155,11 +155,8 @@ def find_passages(ws, counts, stream, doc_indices, word_sets: dict[str, list[str
             pairs = [found[i] for i in members]
             row = {"passage": k + 1, **head, "pairs": len(pairs), "note": ""}
             if direction is not None:
-                signs = [direction * pair_sign(sets_of[_word(counts, ids[q])], sets_of[_word(counts, ids[q2])])
-                         for q, q2 in pairs]
-                row.update(supporting=sum(s > 0 for s in signs), countering=sum(s < 0 for s in signs))
-                row["evidence"] = ("supports" if row["supporting"] > row["countering"] else
-                                   "counters" if row["countering"] > row["supporting"] else "balanced")
+                row.update(_evidence([direction * pair_sign(sets_of[_word(counts, ids[q])],
+                                                            sets_of[_word(counts, ids[q2])]) for q, q2 in pairs]))
             if spans is None:
                 rows.append({**row, "passage_id": f"{head['doc_id']}#p{k + 1}", "start": None, "end": None,
                              "marks": Marks(), "text": None, "note": "character offsets unavailable for this text"})
@@ -171,6 +168,14 @@ def find_passages(ws, counts, stream, doc_indices, word_sets: dict[str, list[str
             rows.append({**row, "passage_id": f"{head['doc_id']}#{start}", "start": start, "end": end,
                          "marks": marks, "text": texts[d][start:end]})
     return pd.DataFrame(rows, columns=TEST_COLUMNS if direction is not None else PAIR_COLUMNS)
+
+
+def _evidence(signs: list[int]) -> dict:
+    """Supporting and countering pairs of a passage (signs already times the measured direction)."""
+    supporting, countering = sum(s > 0 for s in signs), sum(s < 0 for s in signs)
+    return {"supporting": supporting, "countering": countering,
+            "evidence": "supports" if supporting > countering else "counters" if countering > supporting
+            else "balanced"}
 
 
 def _word(counts, model_id) -> str:
