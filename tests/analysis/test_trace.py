@@ -123,11 +123,39 @@ def test_passages_quote_the_stored_text(demo_ws, traced):
     p = traced["gazette_outlet"].passages
     assert len(p) > 0
     index = dict(zip(demo_ws.documents.doc_id, demo_ws.documents.doc_index))
-    for row in p.head(10).itertuples():
+    for row in p.itertuples():
         text = demo_ws.texts([index[row.doc_id]])[index[row.doc_id]]
         assert text[row.start:row.end] == row.text
-        assert row.marked.lower().count("[[") == 2
-        assert f"[[{row.target}]]" in row.marked.lower() and f"[[{row.attribute}]]" in row.marked.lower()
+        assert row.start <= row.marks[0]["start"] and row.marks[-1]["end"] <= row.end
+        for m in row.marks:  # every mark is the word of its set, as written in the stored text
+            assert demo_ws.normalize_words([text[m["start"]:m["end"]]]) == [m["word"]]
+            assert m["word"] in getattr(TESTS["gazette_outlet"], m["set"])
+
+
+def test_passages_of_a_document_are_merged_and_carry_its_contribution(traced):
+    r = traced["gazette_outlet"]
+    p, d = r.passages, r.documents.set_index("doc_id")
+    for _, rows in p.groupby("doc_id"):
+        starts, ends = rows.start.to_numpy(), rows.end.to_numpy()
+        assert (starts[1:] > ends[:-1]).all()  # no two passages of a document overlap or touch
+    assert (p.doc_rank == d.loc[p.doc_id, "rank"].to_numpy()).all()
+    assert np.allclose(p.doc_change, d.loc[p.doc_id, "exact"].to_numpy())
+    assert (p.supporting + p.countering <= p.pairs).all() and p.passage_id.is_unique
+    # planted in the Gazette: velmari with unpleasant words (x-a), osterin with pleasant ones (y-b)
+    assert (p.evidence == "supports").mean() > 0.8
+
+
+def test_supports_means_toward_the_measured_direction(demo_ws, traced):
+    t = TESTS["gazette_outlet"]
+    swapped = AssociationTest("swapped", t.targets_x, t.targets_y, t.attributes_b, t.attributes_a, ())
+    r = trace(demo_ws, swapped, "ppmi-svd", slice_from_spec(demo_ws, "all"))
+    assert r.effect_size < 0 < traced["gazette_outlet"].effect_size
+    same = traced["gazette_outlet"].passages.set_index("passage_id")
+    mine = r.passages.set_index("passage_id")
+    shared = same.index.intersection(mine.index)
+    assert len(shared) > 5
+    assert (same.loc[shared, "evidence"] == mine.loc[shared, "evidence"]).all()
+    assert (same.loc[shared, "supporting"] == mine.loc[shared, "supporting"]).all()
 
 
 def test_linear_estimates_track_the_exact_rerank(traced, demo_ws):

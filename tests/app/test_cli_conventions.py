@@ -185,6 +185,15 @@ def test_trace_shows_sources_documents_and_passages_and_the_first_order_table_on
     assert [line for line in first_order.stdout.splitlines() if line.startswith("== ")] == ["== first-order =="]
 
 
+def test_trace_passages_in_the_kwic_layout_fit_100_columns(small):
+    args = [a.format(ws=small["ws"]) for a in SMALL_RUNS["trace"][:-2]]
+    res = invoke(*args, "--per-doc", "3", "--layout", "kwic")
+    assert res.exit_code == 0, res.output
+    passages = res.stdout.split("== passages ==\n", 1)[1].split("\n\n", 1)[0].splitlines()
+    assert any(line.split()[0].startswith(("targets_", "attributes_")) for line in passages if line.startswith("  "))
+    assert all(len(line) <= TERMINAL_WIDTH for line in res.stdout.splitlines())
+
+
 def test_list_fields_print_as_comma_joined_words(outputs):
     measured = outputs("measure", "json")
     assert json.loads(measured.stdout)[0]["dropped_words"] == []  # JSON keeps the list

@@ -8,7 +8,7 @@ import pandas as pd
 import pytest
 from hypothesis import given, strategies as st
 
-from tracer.app.output import (MIN_TEXT_WIDTH, TERMINAL_WIDTH, format_number, passages_text, render,
+from tracer.app.output import (MIN_TEXT_WIDTH, TERMINAL_WIDTH, format_number, render,
                                render_mapping, table_text, wrap)
 
 
@@ -99,14 +99,6 @@ def test_prose_wraps_to_the_width():
     text = wrap("word " * 60)
     assert all(len(line) <= TERMINAL_WIDTH for line in text.splitlines()) and len(text.splitlines()) > 1
     assert wrap("a\n\nb") == "a\n\nb\n"
-
-
-def test_passages_have_a_heading_and_wrapped_text():
-    df = pd.DataFrame([{"doc_id": "d1", "source": "Gazette", "time": "1971-07-25", "pair_count": 1.0,
-                        "target": "velmari", "attribute": "agony", "marked": "[[Agony]] came " * 20, "note": ""}])
-    lines = passages_text(df).splitlines()
-    assert lines[0] == "d1  Gazette  1971-07-25  velmari + agony  1 pair in the document"
-    assert all(line.startswith("    ") and len(line) <= TERMINAL_WIDTH for line in lines[1:]) and len(lines) > 2
 
 
 def test_nan_and_infinity_in_json_are_null():

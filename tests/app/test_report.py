@@ -371,3 +371,33 @@ def test_report_layout_fits_the_page_in_a_browser(run_dir, tmp_path, width):
     assert m["wideTables"] == []
     assert m["tallRows"] == []
     assert m["findingsBottom"] <= 900
+
+
+def test_passages_are_marked_from_offsets_and_escaped():
+    # a stored passage whose text holds markup and brackets; the marks come only from the offsets
+    from tracer.app.report.html import _passages, environment
+    text = f"The [[velmari]] spoke {SCRIPT} of agony ]] and <b>evil</b>"
+    marks = [{"start": 10 + text.index(w), "end": 10 + text.index(w) + len(w), "word": w, "set": s}
+             for w, s in (("velmari", "targets_x"), ("agony", "attributes_a"))]
+    table = pd.DataFrame([{"passage_id": "d1#10", "doc_id": "d1", "source": "Gazette", "time": "1970",
+                           "start": 10, "end": 10 + len(text), "evidence": "counters", "supporting": 0,
+                           "countering": 1, "doc_rank": 3, "doc_change": 0.0042, "marks": marks, "text": text,
+                           "note": ""}])
+    p = _passages(table)[0]
+    assert [s["text"] for s in p["segments"] if s["mark"]] == ["velmari", "agony"]
+    assert "".join(s["text"] for s in p["segments"]) == text
+    html = environment().get_template("_macros.html.j2").module.passage(p)
+    assert SCRIPT not in html and "<b>evil</b>" not in html and "&lt;script&gt;" in html
+    assert html.count("<mark") == 2 and "[[velmari]]" not in html and "[[<mark" in html
+    assert '<mark title="targets_x">velmari</mark><sup class="set">targets_x</sup>' in html
+    assert "counters (0 for, 1 against)" in html and "document rank 3, change if removed 0.0042" in html
+    # a run stored before marks had offsets: its text shows unmarked, its [[ ]] as text
+    old = _passages(pd.DataFrame([{"doc_id": "d1", "start": 0, "end": 9, "text": "[[a]] b", "marked": "[[a]] b"}]))
+    assert old[0]["segments"] == [{"text": "[[a]] b", "mark": False, "set": None}]
+
+
+def test_report_shows_the_passages_with_their_evidence(run_dir):
+    html = (run_dir / "report.html").read_text(encoding="utf-8")
+    section = html.split("<h4>Passages</h4>", 1)[1].split("</section>", 1)[0]
+    assert "supports (" in section and "<sup class=\"set\">targets_x</sup>" in section
+    assert "change if removed" in section and "[[" not in section

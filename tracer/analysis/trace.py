@@ -17,6 +17,7 @@ import numpy as np
 import pandas as pd
 
 from tracer.analysis.influence import Attribution
+from tracer.analysis.passages import SET_NAMES, find_passages, pair_passages  # noqa: F401 (pair_passages: the old home)
 from tracer.core.counting import CountSettings
 from tracer.provenance.counts import count_slice
 from tracer.corpus.slices import Slice
@@ -184,11 +185,16 @@ def trace(ws, test: AssociationTest, model: str, sl: Slice, counts: CountSetting
                          "pairs": "; ".join(f"{w}-{x} {v:+.2g}" for w, x, v in pairs), "doc_index": int(d)})
     documents = pd.DataFrame(doc_rows)
 
-    passages = find_passages(ws, c, attr.stream, order[: settings.passage_docs], attr.sets["x"] + attr.sets["y"],
-                             attr.sets["a"] + attr.sets["b"], settings)
     first_order = _first_order(attr, docs, settings)
     own = (base.effect_size, base.gap, 0.0) if model == "ppmi-svd" else \
         _measure_without(ws, test, model, sl, counts, model_settings, np.zeros(len(src), bool), settings.seeds)
+    # "supports" means: pushes toward the traced model's own measured direction
+    passages = find_passages(ws, c, attr.stream, order[: settings.passage_docs],
+                             {SET_NAMES[k]: attr.sets[k] for k in "xyab"}, [SET_NAMES["x"], SET_NAMES["y"]],
+                             per_doc=settings.passages_per_doc, context_tokens=settings.context_tokens,
+                             direction=-1 if own[0] < 0 else 1,
+                             doc_columns={int(r["doc_index"]): {"doc_rank": r["rank"], "doc_change": r["exact"],
+                                                                "doc_estimate": r["estimate"]} for r in doc_rows})
     verification = None
     if settings.verify > 0:
         verification = verify(ws, test, model, sl, counts, model_settings, attr, sources, order, lin, settings,
@@ -232,80 +238,3 @@ def _largest(values: np.ndarray, k: int) -> np.ndarray:
     cut = np.partition(values, len(values) - k)[len(values) - k]
     top = np.flatnonzero((values >= cut) & (values > 0))
     return top[np.argsort(-values[top], kind="stable")][:k]
-
-
-def find_passages(ws, counts, stream, doc_indices, targets: list[str], attributes: list[str],
-                  settings: TraceSettings) -> pd.DataFrame:
-    """Windows of the given documents where a target word and an attribute word co-occur.
-
-    ``stream`` is the counted token stream (:func:`tracer.analysis.influence.kept_stream`), so a
-    passage is a window exactly as the counter saw it. Offsets are characters of the
-    stored text; ``marked`` has the two words in [[ ]].
-    """
-    idx = counts.vocab.index
-    t_ids = {idx[w] for w in targets}
-    a_ids = {idx[w] for w in attributes}
-    st = stream
-    window = counts.settings.window
-    texts = ws.texts(doc_indices)
-    tok = ws.tokenizer
-    docs = ws.documents
-    rows = []
-    for d in doc_indices:
-        d = int(d)
-        lo, hi = np.searchsorted(st.doc, [d, d + 1])
-        ids, pos = st.ids[lo:hi], st.pos[lo:hi]
-        found = []
-        for q in np.flatnonzero(np.isin(ids, list(t_ids))):
-            for q2 in range(max(0, q - window), min(len(ids), q + window + 1)):
-                if q2 != q and ids[q2] in a_ids:
-                    found.append((q, q2))
-        if not found:
-            continue
-        text = texts[d]
-        spans = tok.spans(text)
-        start_tok = int(ws.doc_offsets[d])
-        for q, q2 in found[: settings.passages_per_doc]:
-            p1, p2 = int(pos[q]) - start_tok, int(pos[q2]) - start_tok
-            first, last = min(p1, p2), max(p1, p2)
-            row = {"doc_id": docs.at[d, "doc_id"], "source": docs.at[d, "source"], "time": docs.at[d, "time"],
-                   "target": counts.vocab.words[ids[q]], "attribute": counts.vocab.words[ids[q2]]}
-            if spans is None:
-                rows.append({**row, "start": None, "end": None, "text": None, "marked": None,
-                             "note": "character offsets unavailable for this text"})
-                continue
-            a = spans[max(0, first - settings.context_tokens)][0]
-            b = spans[min(len(spans) - 1, last + settings.context_tokens)][1]
-            marks = sorted([spans[p1], spans[p2]])
-            marked = (text[a:marks[0][0]] + "[[" + text[marks[0][0]:marks[0][1]] + "]]"
-                      + text[marks[0][1]:marks[1][0]] + "[[" + text[marks[1][0]:marks[1][1]] + "]]" + text[marks[1][1]:b])
-            rows.append({**row, "start": a, "end": b, "text": text[a:b], "marked": marked, "note": ""})
-    return pd.DataFrame(rows, columns=["doc_id", "source", "time", "target", "attribute", "start", "end", "text",
-                                       "marked", "note"])
-
-
-def pair_passages(ws, word: str, contexts: list[str], sl: Slice, counts: CountSettings = CountSettings(),
-                  top: int = 10, per_doc: int = 3, context_tokens: int = 8) -> pd.DataFrame:
-    """KWIC evidence for a pair: passages of the ``top`` documents where ``word`` co-occurs most with the
-    context words (window counts, as counted), with character offsets into the stored text."""
-    word, contexts = ws.normalize_words([word])[0], ws.normalize_words(contexts)
-    c = count_slice(ws, sl.weights, counts, slice_name=sl.name)
-    missing = [w for w in [word] + contexts if w not in c.vocab.index]
-    if missing:
-        raise WordNotInVocabulary(f"not in the vocabulary of slice {sl.name} (min count {counts.min_count}): "
-                                  + ", ".join(missing))
-    from tracer.analysis.influence import document_probe_rows, kept_stream
-
-    stream = kept_stream(ws, sl.weights, c)
-    probe = np.array([c.vocab.index[word]])
-    rows = document_probe_rows(stream, sl.weights, counts.distance_weights(), probe, ws.n_documents, len(c.vocab))
-    cols = [c.vocab.index[w] for w in contexts]
-    per_doc_count = np.asarray(rows[:, cols].sum(axis=1)).ravel()
-    order = np.argsort(-per_doc_count, kind="stable")
-    order = order[per_doc_count[order] > 0][:top]
-
-    out = find_passages(ws, c, stream, order, [word], list(contexts),
-                        TraceSettings(passages_per_doc=per_doc, context_tokens=context_tokens))
-    counts_by_doc = dict(zip(ws.documents["doc_id"].to_numpy()[order], per_doc_count[order]))
-    out.insert(3, "pair_count", out["doc_id"].map(counts_by_doc))
-    return out

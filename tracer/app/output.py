@@ -6,7 +6,8 @@ The terminal rules, one for every command:
   digits, written plainly from 0.001 to 999 (``0.0548``, ``1.86``, ``123``), as rounded
   integers from 1000 up (``12345``), and in scientific notation below 0.001 (``2.9e-05``);
 - a list prints as its items joined by commas without spaces (``a,b``), the way lists are
-  given on the command line, in the terminal and in CSV alike (JSON keeps the list);
+  given on the command line, in the terminal and in CSV alike (JSON keeps the list); a
+  passage's marks print as ``start-end:word:set`` joined by ``;``;
 - missing values (None, NaN, NA) print empty;
 - a table fits ``width`` columns (100 unless asked for every column): long text is shortened
   (ending in an ellipsis; a file path keeps its end instead), columns that do not fit are left off from the right (commands put
@@ -76,7 +77,12 @@ def format_number(v) -> str:
 
 
 def format_list(items) -> str:
-    """A list field: its items joined by commas, the way lists are given on the command line."""
+    """A list field: its items joined by commas, the way lists are given on the command line; a
+    passage's marks (dicts with start, end, word, set) as ``start-end:word:set`` joined by ``;``."""
+    items = list(items)
+    if items and all(isinstance(i, dict) and {"start", "end", "word", "set"} <= set(i) for i in items):
+        from tracer.analysis.passages import marks_text
+        return marks_text(items)
     return ",".join(str(plain_values(i)) for i in items)
 
 
@@ -202,27 +208,3 @@ def render_mapping(data: dict, fmt: str = "table", *, width: int | None = TERMIN
     if width is not None:
         lines = [_shorten(line, width) for line in lines]
     return "".join(line + "\n" for line in lines)
-
-
-def passages_text(df: pd.DataFrame, *, width: int | None = TERMINAL_WIDTH) -> str:
-    """Passages for reading: per passage a heading (document id, source, time, the two words, the
-    document's pair count when given, any note), then the marked text indented and wrapped to
-    ``width``."""
-    if df.empty:
-        return "(no passages)\n"
-    body_width = None if width is None else width - 4
-    out = []
-    for _, row in df.iterrows():
-        head = [_cell(row.get(c)) for c in ("doc_id", "source", "time")]
-        head.append(f"{_cell(row.get('target'))} + {_cell(row.get('attribute'))}")
-        if "pair_count" in row and _cell(row["pair_count"]):
-            n = _cell(row["pair_count"])
-            head.append(f"{n} pair{'' if n == '1' else 's'} in the document")
-        head.append(_cell(row.get("note")))
-        out.append("  ".join(h for h in head if h))
-        text = _cell(row.get("marked"))
-        lines = [text] if body_width is None else textwrap.wrap(text, body_width, break_on_hyphens=False)
-        out += ["    " + t for t in lines]
-    if width is not None:
-        out = [_shorten(line, width) for line in out]
-    return "\n".join(out) + "\n"

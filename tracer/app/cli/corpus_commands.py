@@ -7,7 +7,7 @@ from pathlib import Path
 import click
 
 from tracer.app.cli.group import cli, progress_on, say
-from tracer.app.cli.options import (PER_DOC_OPTION, TOP_DOCUMENTS_OPTION, counting_options, one_slice,
+from tracer.app.cli.options import (LAYOUT_OPTION, PER_DOC_OPTION, TOP_DOCUMENTS_OPTION, counting_options, one_slice,
                                     one_slice_option, open_workspace, option_group, output_options, slice_options,
                                     words_of, workspace_option)
 
@@ -190,14 +190,16 @@ def pmi(word, contexts, workspace, counts, slices, alpha, shift, out):
 @counting_options
 @TOP_DOCUMENTS_OPTION
 @PER_DOC_OPTION
+@LAYOUT_OPTION
 @output_options
-def passages(word, contexts, workspace, slice_spec, counts, top, per_doc, out):
+def passages(word, contexts, workspace, slice_spec, counts, top, per_doc, layout, out):
     """Passages (KWIC) where WORD co-occurs with the context words, from the documents with most such pairs.
 
-    Example:  tracer passages -w work/ velmari --with agony,evil --top 10
+    Example:  tracer passages -w work/ velmari --with agony,evil --top 10 --layout kwic
     """
-    from tracer.analysis.trace import pair_passages
+    from tracer.analysis.passages import pair_passages
     from tracer.core.counting import build_vocab
+    check_layout(layout, out)
     ws = open_workspace(workspace)
     sl = one_slice(ws, slice_spec)
     # the slice's vocabulary alone (no counting) says which context words can be looked for
@@ -205,13 +207,35 @@ def passages(word, contexts, workspace, slice_spec, counts, top, per_doc, out):
     kept, notes = known_words(ws.normalize_words(words_of(contexts)), vocab.index,
                               f"the vocabulary of slice {sl.name} (min count {counts.min_count})")
     df = pair_passages(ws, word, kept, sl, counts, top=top, per_doc=per_doc)
-    show_passages(df, out, notes=notes)
+    show_passages(df, out, layout=layout, notes=notes)
 
 
-def show_passages(df, out, *, notes=()) -> None:
-    """Passages: in table format a heading line and the marked text per passage; else the table."""
+def check_layout(layout: str, out) -> None:
+    """--layout shapes the terminal view only; CSV and JSON carry the marks as offsets."""
+    from tracer.errors import SettingError
+    if layout != "reading" and out.fmt != "table":
+        raise SettingError(f"--layout {layout} shapes the terminal view; --format {out.fmt} writes the passages "
+                           "table, marks as character offsets")
+
+
+def emphasis(out) -> str:
+    """Bold marks for a terminal (unless NO_COLOR is set); carets under the text anywhere else."""
+    import os
+    import sys
+    tty = out.path is None and sys.stdout.isatty() and not os.environ.get("NO_COLOR")
+    return "bold" if tty else "caret"
+
+
+def passages_view(df, out, layout: str) -> str:
+    """The passages as the terminal shows them (see :mod:`tracer.app.passages_view`)."""
+    from tracer.app.passages_view import passages_text
+    return passages_text(df, width=out.width, layout=layout, emphasis=emphasis(out))
+
+
+def show_passages(df, out, *, layout: str = "reading", notes=()) -> None:
+    """Passages: in table format the reading or kwic view; else the table (marks as offsets)."""
     if out.fmt != "table":
         out.table(df, notes=notes)
         return
-    from tracer.app.output import passages_text, wrap
-    out.write(passages_text(df, width=out.width) + "".join(wrap(f"Note: {n}", out.width) for n in notes))
+    from tracer.app.output import wrap
+    out.write(passages_view(df, out, layout) + "".join(wrap(f"Note: {n}", out.width) for n in notes))

@@ -227,6 +227,9 @@ TOP_DOCUMENTS_OPTION = click.option("--top", type=click.IntRange(min=1), default
                                     help="Documents to show.")
 PER_DOC_OPTION = click.option("--per-doc", type=click.IntRange(min=1), default=3, show_default=True,
                               help="Passages shown per document.")
+LAYOUT_OPTION = click.option("--layout", type=click.Choice(["reading", "kwic"]), default="reading", show_default=True,
+                             help="Passages in the terminal: text with the marked words under carets (bold on a "
+                                  "terminal), or kwic: one aligned line per marked word.")
 NEIGHBOURS_OPTION = click.option("-n", "--neighbours", "n_neighbours", type=click.IntRange(min=1), default=10,
                                  show_default=True, help="Nearest neighbours listed per word.")
 

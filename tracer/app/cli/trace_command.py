@@ -6,7 +6,8 @@ import click
 
 from tracer.app.cli.views import chosen_tables, emit, show_option
 from tracer.app.cli.group import cli, progress_on
-from tracer.app.cli.options import (PER_DOC_OPTION, SEEDS_OPTION, TOP_DOCUMENTS_OPTION, counting_options,
+from tracer.app.cli.corpus_commands import check_layout, passages_view
+from tracer.app.cli.options import (LAYOUT_OPTION, PER_DOC_OPTION, SEEDS_OPTION, TOP_DOCUMENTS_OPTION, counting_options,
                                     model_options, one_slice, one_slice_option,
                                     one_test, open_workspace, output_options, tests_file_option, workspace_option)
 from tracer.app.cli.texts import CAUTIONS, ESTIMATE_NOTE
@@ -30,6 +31,7 @@ FIRST = {"sources": ["source", "token_share", "contribution", "contribution_gap"
 @model_options
 @TOP_DOCUMENTS_OPTION
 @PER_DOC_OPTION
+@LAYOUT_OPTION
 @click.option("--candidates", type=click.IntRange(min=1), default=200, show_default=True,
               help="Documents re-ranked exactly after the linear estimate.")
 @click.option("--verify", type=click.IntRange(min=0), default=0, show_default=True,
@@ -39,8 +41,8 @@ FIRST = {"sources": ["source", "token_share", "contribution", "contribution_gap"
 @SEEDS_OPTION
 @show_option(TABLES, DEFAULT[:3], "documents", " and verification with --verify")
 @output_options
-def trace(workspace, tests_file, test_name, slice_spec, counts, model, top, per_doc, candidates, verify, rank_by,
-          seeds, show, out):
+def trace(workspace, tests_file, test_name, slice_spec, counts, model, top, per_doc, layout, candidates, verify,
+          rank_by, seeds, show, out):
     """Link a test's association to the sources, documents and passages that carry it.
 
     Example:  tracer trace -w work/ --tests configs/demo_tests.toml --test gazette_outlet --verify 5
@@ -48,6 +50,7 @@ def trace(workspace, tests_file, test_name, slice_spec, counts, model, top, per_
     from tracer.analysis.trace import TraceSettings, trace as run_trace
     from tracer.errors import SettingError
     chosen_tables(show, TABLES, DEFAULT, "documents", out.fmt)  # a wrong --show fails before the work
+    check_layout(layout, out)
     if verify == 0 and "verification" in show:
         raise SettingError("there is no verification table without --verify K")
     ws = open_workspace(workspace)
@@ -57,7 +60,7 @@ def trace(workspace, tests_file, test_name, slice_spec, counts, model, top, per_
                        model.settings, settings, progress=progress_on())
     default = DEFAULT if result.verification is not None else DEFAULT[:3]
     emit(out, show, tables=TABLES, default=default, main="documents", get=lambda name: _table(result, name),
-               document=lambda: _document(result), text=lambda names: _text(result, names, out.width))
+               document=lambda: _document(result), text=lambda names: _text(result, names, out, layout))
 
 
 def _table(result, name: str):
@@ -85,14 +88,15 @@ def _document(result) -> dict:
             "view_effect_size": result.view_effect_size, "view_gap": result.view_gap}
 
 
-def _text(result, names: list[str], width: int | None) -> str:
-    from tracer.app.output import format_number as num, passages_text, render, wrap
+def _text(result, names: list[str], out, layout: str) -> str:
+    from tracer.app.output import render, wrap
+    width = out.width
     parts = [wrap(f"{result.headline()}\n{ESTIMATE_NOTE}", width)]
     for name in names:
         df = _table(result, name)
         parts.append(f"\n== {name} ==\n")
         if name == "passages":
-            parts.append(passages_text(df, width=width))
+            parts.append(passages_view(df, out, layout))
             continue
         first = FIRST.get(name, [])
         parts.append(render(df[[c for c in first if c in df.columns] + [c for c in df.columns if c not in first]],

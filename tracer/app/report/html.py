@@ -9,7 +9,6 @@ without a network; :func:`write_report` can also write them as files, from the c
 
 from __future__ import annotations
 
-import re
 from pathlib import Path
 
 import pandas as pd
@@ -59,20 +58,40 @@ WITHIN_COLS = [Col("source", "source"), Col("share_from", "share before", "pct")
                Col("share_to", "share after", "pct"), Col("within_contribution", "change within the source", "g3")]
 
 
-def _segments(marked) -> list[dict]:
-    """A passage as text segments, the marked words flagged (the template writes the marks)."""
-    parts = re.split(r"\[\[(.*?)\]\]", "" if marked is None else str(marked))
-    return [{"text": t, "mark": i % 2 == 1} for i, t in enumerate(parts) if t]
+def _segments(text, start, marks) -> list[dict]:
+    """A passage as text segments from its marks' character offsets (never from brackets in the
+    text), each marked segment with its set; the template escapes every segment."""
+    if not isinstance(text, str):
+        return []
+    if not isinstance(marks, list) or not isinstance(start, (int, float)) or pd.isna(start):
+        return [{"text": text, "mark": False, "set": None}]
+    out, at = [], 0
+    for m in sorted((m for m in marks if isinstance(m, dict)), key=lambda m: m.get("start", 0)):
+        a, b = int(m["start"]) - int(start), int(m["end"]) - int(start)
+        if a < at or b > len(text) or a >= b:  # an offset outside the passage: show the text unmarked there
+            continue
+        if a > at:
+            out.append({"text": text[at:a], "mark": False, "set": None})
+        out.append({"text": text[a:b], "mark": True, "set": m.get("set")})
+        at = b
+    if at < len(text):
+        out.append({"text": text[at:], "mark": False, "set": None})
+    return out
 
 
 def _passages(pas: pd.DataFrame | None) -> list[dict]:
+    """Passages for the template: ids, evidence, the document's contribution, marked segments.
+    Runs stored before marks had offsets (a ``marked`` column only) show their text unmarked."""
     if pas is None or len(pas) == 0:
         return []
     out = []
     for r in pas.to_dict(orient="records"):
-        text = r.get("marked") if isinstance(r.get("marked"), str) else r.get("text")
-        out.append({"doc_id": r.get("doc_id"), "source": r.get("source"), "time": r.get("time"),
-                    "start": r.get("start"), "end": r.get("end"), "segments": _segments(text)})
+        p = {k: (None if isinstance(r.get(k), float) and pd.isna(r.get(k)) else r.get(k))
+             for k in ("passage_id", "doc_id", "source", "time", "start", "end", "evidence", "supporting",
+                       "countering", "doc_rank", "doc_change", "note")}
+        p["passage_id"] = p["passage_id"] or p["doc_id"]
+        p["segments"] = _segments(r.get("text"), r.get("start"), r.get("marks"))
+        out.append(p)
     return out
 
 
@@ -150,6 +169,13 @@ def _headline(run: RunData) -> tuple[str, str]:
     return model, preferred if preferred in slices or not slices else ("all" if "all" in slices else sorted(slices)[0])
 
 
+def environment() -> Environment:
+    """The templates' environment: every string escaped (autoescape); a value a run lacks (a part
+    not measured) renders empty instead of failing."""
+    return Environment(loader=FileSystemLoader(TEMPLATES), autoescape=select_autoescape(["html", "j2"]),
+                       trim_blocks=True, lstrip_blocks=True, undefined=ChainableUndefined)
+
+
 def render_report(run_dir: str | Path) -> tuple[str, list[fig.Chart]]:
     """The report of a stored run as HTML text, and its figures in the order they appear."""
     run = RunData(run_dir)
@@ -160,9 +186,7 @@ def render_report(run_dir: str | Path) -> tuple[str, list[fig.Chart]]:
     traces = [_trace(run, name, charts) for name in run.tests_of("trace_tests")]
     drifts = [_drift(run, name, charts) for name in run.tests_of("drift_tests")]
     correlations = correlate_sections(run, charts)
-    # a value a run lacks (a part not measured) renders empty instead of failing
-    env = Environment(loader=FileSystemLoader(TEMPLATES), autoescape=select_autoescape(["html", "j2"]),
-                      trim_blocks=True, lstrip_blocks=True, undefined=ChainableUndefined)
+    env = environment()
     info = run.info
     html = env.get_template("report.html.j2").render(
         info=info, exp=run.experiment, status=run.status, cautions=CAUTIONS, model=model, headline=headline,
