@@ -61,6 +61,38 @@ else:
 print(time.perf_counter() - t)
 """
 
+# tracer pmi's table, one way per process: "windows" (the probe's windows, what the command does
+# on a cache miss), "full" (every pair counted, then the marginals: what it did before) or "cached"
+# (the slices' counts read from the cache, filled untimed first)
+_PMI_TABLE = """
+import sys, time, numpy as np, tempfile
+from tracer.analysis.pmi_table import pmi_table
+from tracer.core.counting import CountSettings
+from tracer.core.pmi import Marginals
+from tracer.corpus.slices import resolve_slices
+from tracer.provenance.cache import open_workspace
+from tracer.provenance.counts import count_slice
+mode, word, ctx = sys.argv[2], sys.argv[3], sys.argv[4].split(",")
+ws = open_workspace(sys.argv[1], cache=mode == "cached")
+if mode == "cached":
+    ws.cache.folder = __import__("pathlib").Path(tempfile.mkdtemp())
+slices = resolve_slices(ws, by=sys.argv[5:], picks=["all"])
+if mode == "cached":
+    for sl in slices:
+        count_slice(ws, sl.weights, CountSettings(), slice_name=sl.name)
+t = time.perf_counter()
+if mode == "full":
+    for sl in slices:
+        c = count_slice(ws, sl.weights, CountSettings(), slice_name=sl.name)
+        m = Marginals.of(c.matrix, 0.75)
+        i = c.vocab.index.get(word)
+        cells = [c.matrix[i, c.vocab.index[x]] for x in ctx if i is not None and x in c.vocab.index]
+else:
+    pmi_table(ws, word, ctx, slices, CountSettings())
+import resource
+print(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024, time.perf_counter() - t)
+"""
+
 
 def timed(cmd: list[str], timeout: float) -> dict:
     out = subprocess.run([PY, "-c", _TIMER, str(timeout), *cmd], capture_output=True, text=True)
@@ -73,6 +105,9 @@ def main() -> None:
     ap.add_argument("--cache", type=Path, default=HERE.parents[1] / "bench-data")
     ap.add_argument("--step-timeout", type=float, default=1800.0)
     ap.add_argument("--skip", action="append", default=[], help="a step to leave out (repeatable)")
+    ap.add_argument("--only", action="append", default=[], help="run only the steps named so (repeatable; "
+                    "ingest always runs)")
+    ap.add_argument("--repeats", type=int, default=3, help="rounds of the side-by-side comparisons")
     args = ap.parse_args()
 
     data = args.cache / f"realistic-{args.tokens}"
@@ -100,20 +135,42 @@ def main() -> None:
           f"2 cores; each step one command in a fresh process\n")
     print(f"{'step':28} {'seconds':>9} {'peak MB':>9} {'target s':>9}  note")
     for name, cmd, target in steps:
-        if any(s in name for s in args.skip):
+        if any(s in name for s in args.skip) or (args.only and name != "ingest"
+                                                  and not any(name.startswith(s) for s in args.only)):
             continue
         r = timed(cmd, args.step_timeout)
         note = "" if r["rc"] == 0 else f"exit {r['rc']}"
         print(f"{name:28} {r['seconds']:9.1f} {r['peak_mb']:9.0f} {target if target else '-':>9}  {note}", flush=True)
         if name == "ingest" and r["rc"] != 0:
             sys.exit("ingest failed; nothing else can run")
-    if probe and "pmi" not in args.skip:
+    if probe and "pmi" not in args.skip and (not args.only or "pmi" in args.only):
+        compare_pmi_tables(ws, probe, args.repeats)
         full = float(subprocess.run([PY, "-c", _PROBE_ROW, str(ws), "full", probe], capture_output=True,
                                     text=True, check=True).stdout.split()[-1])
         rows = float(subprocess.run([PY, "-c", _PROBE_ROW, str(ws), "rows", probe], capture_output=True,
                                     text=True, check=True).stdout.split()[-1])
         print(f"\none probe's row, library call after loading: counting every pair {full:.2f} s, "
               f"the probe's windows only {rows:.2f} s ({full / rows:.1f}x)")
+
+
+def compare_pmi_tables(ws: Path, probe: str, repeats: int) -> None:
+    """tracer pmi's table three ways, interleaved, each in a fresh process (loading not timed)."""
+    for by in ([], ["time:10y"]):
+        times = {m: [] for m in ("full", "windows", "cached")}
+        peak = {}
+        for _ in range(repeats):
+            for mode in times:
+                out = subprocess.run([PY, "-c", _PMI_TABLE, str(ws), mode, probe, "bresar,kimklal,kazai", *by],
+                                     capture_output=True, text=True, check=True)
+                mb, seconds = map(float, out.stdout.split()[-2:])
+                times[mode].append(seconds)
+                peak[mode] = max(peak.get(mode, 0), mb)
+        med = {m: sorted(v)[len(v) // 2] for m, v in times.items()}
+        print(f"pmi table, slices all{' + ' + by[0] if by else ''}: counting every pair {med['full']:.2f} s, "
+              f"probe windows {med['windows']:.2f} s ({med['full'] / med['windows']:.1f}x), "
+              f"cached counts {med['cached']:.2f} s ({med['full'] / med['cached']:.1f}x); "
+              f"peak MB full {peak['full']:.0f}, windows {peak['windows']:.0f} (cached: counted first, untimed); "
+              f"medians of {repeats}: " + ", ".join(f"{m} {' '.join(f'{x:.2f}' for x in v)}" for m, v in times.items()))
 
 
 if __name__ == "__main__":
