@@ -32,6 +32,7 @@ import scipy.sparse as sp
 from tqdm.auto import tqdm
 
 from tracer.core import _kernels as _k
+from tracer.core.count_memory import check_count_memory
 from tracer.core.count_engine import (DEFAULT_SHARD_TOKENS, count_shard, make_shards, sum_upper, symmetrize_arrays,
                                       to_csr)
 from tracer.core.threads import ThreadPool, default_workers
@@ -279,6 +280,7 @@ def count_matrix(tokens: np.ndarray, doc_offsets: np.ndarray, doc_weights: np.nd
     if len(tokens) and int(tokens.max()) >= n_full:  # the kernels index id_map without bounds checks
         raise SettingError(f"token ids reach {int(tokens.max())}, beyond the vocabulary size given ({n_full})")
     pool = ThreadPool(workers or default_workers())
+    check_count_memory(tokens, doc_offsets, doc_weights, id_map, n, settings, shard_tokens, pool)
     parts = []
     with tqdm(total=len(shards), desc="count", unit=" shards", disable=not progress, leave=False) as bar:
         for shard in shards:
