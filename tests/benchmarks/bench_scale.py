@@ -94,6 +94,17 @@ print(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024, time.perf_count
 """
 
 
+# one ingest in this process: wall time, CPU of the ingesting process and of its workers
+_INGEST = """
+import resource, sys, time
+from tracer.corpus.ingest import ingest
+t = time.perf_counter()
+ingest(sys.argv[1], [sys.argv[2]], jobs=int(sys.argv[3]))
+me, kids = resource.getrusage(resource.RUSAGE_SELF), resource.getrusage(resource.RUSAGE_CHILDREN)
+print(time.perf_counter() - t, me.ru_utime + me.ru_stime, kids.ru_utime + kids.ru_stime)
+"""
+
+
 def timed(cmd: list[str], timeout: float) -> dict:
     out = subprocess.run([PY, "-c", _TIMER, str(timeout), *cmd], capture_output=True, text=True)
     return json.loads(out.stdout.strip().splitlines()[-1])
@@ -143,6 +154,8 @@ def main() -> None:
         print(f"{name:28} {r['seconds']:9.1f} {r['peak_mb']:9.0f} {target if target else '-':>9}  {note}", flush=True)
         if name == "ingest" and r["rc"] != 0:
             sys.exit("ingest failed; nothing else can run")
+    if "ingest-jobs" in args.only:
+        compare_ingest_jobs(data, meta["tokens"], args.repeats)
     if probe and "pmi" not in args.skip and (not args.only or "pmi" in args.only):
         compare_pmi_tables(ws, probe, args.repeats)
         full = float(subprocess.run([PY, "-c", _PROBE_ROW, str(ws), "full", probe], capture_output=True,
@@ -151,6 +164,28 @@ def main() -> None:
                                     text=True, check=True).stdout.split()[-1])
         print(f"\none probe's row, library call after loading: counting every pair {full:.2f} s, "
               f"the probe's windows only {rows:.2f} s ({full / rows:.1f}x)")
+
+
+def compare_ingest_jobs(data: Path, tokens: int, repeats: int) -> None:
+    """ingest with jobs 1 and 2, interleaved, each into a new workspace in a fresh process. Besides
+    the wall time, the CPU seconds of the ingesting process (its part cannot be shared out) and of
+    its workers: on a machine with a core free per worker the wall time nears the larger of the
+    ingesting process's CPU and the workers' CPU divided by the jobs."""
+    runs = {1: [], 2: []}
+    for r in range(repeats):
+        for jobs in runs:
+            ws = data / f"ws-jobs-{os.getpid()}-{r}-{jobs}"
+            out = subprocess.run([PY, "-c", _INGEST, str(ws), str(data / "corpus.jsonl.gz"), str(jobs)],
+                                 capture_output=True, text=True, check=True)
+            subprocess.run(["rm", "-rf", str(ws)], check=True)
+            runs[jobs].append(tuple(map(float, out.stdout.split()[-3:])))
+    for jobs, v in runs.items():
+        wall, me, kids = (sorted(x[k] for x in v)[len(v) // 2] for k in range(3))
+        print(f"ingest --jobs {jobs}: {wall:.1f} s wall ({tokens / wall / 1e6:.2f}M tokens/s), CPU s: ingesting "
+              f"process {me:.1f}, workers {kids:.1f} (medians of {repeats}; walls {' '.join(f'{x[0]:.1f}' for x in v)})")
+    w1, w2 = (sorted(x[0] for x in runs[j])[repeats // 2] for j in (1, 2))
+    print(f"ingest wall time, jobs 1 / jobs 2: {w1 / w2:.2f}x (load average {os.getloadavg()[0]:.1f} on "
+          f"{os.cpu_count()} cores)")
 
 
 def compare_pmi_tables(ws: Path, probe: str, repeats: int) -> None:
