@@ -44,6 +44,9 @@ def count_slice(ws, weights: np.ndarray, settings: CountSettings, *, slice_name:
     The vocabulary is built from the documents of nonzero weight unless given,
     so resamples of one slice can share the slice's vocabulary. Counts of slice weights
     (0 and 1) go through the workspace's cache, keyed by these weights; other weights never do.
+    A workspace opened with a scheduler's address (``ws.scheduler``) is counted on that
+    dask.distributed cluster by document partitions (:mod:`tracer.provenance.cluster`; equal
+    to the local count bit for bit for whole-number weights).
     """
     cache, key = _cache_key(ws, weights, settings, vocab)
     if key is not None:
@@ -52,8 +55,13 @@ def count_slice(ws, weights: np.ndarray, settings: CountSettings, *, slice_name:
             return dataclasses.replace(hit, slice_name=slice_name)
     if vocab is None:
         vocab = slice_vocab(ws, weights, settings, slice_name)
-    matrix = count_matrix(ws.tokens, ws.doc_offsets, weights, vocab, len(ws.vocab.words), settings,
-                          workers=workers, progress=progress)
+    scheduler = getattr(ws, "scheduler", None)
+    if scheduler:
+        from tracer.provenance.cluster import count_on_cluster  # dask is imported only when asked for
+        matrix, vocab = count_on_cluster(ws, weights, settings, scheduler=scheduler, vocab=vocab)
+    else:
+        matrix = count_matrix(ws.tokens, ws.doc_offsets, weights, vocab, len(ws.vocab.words), settings,
+                              workers=workers, progress=progress)
     counts = Counts(matrix, vocab, settings, slice_name)
     if key is not None:
         cache.put_counts(key, counts, ws.corpus_hash)
