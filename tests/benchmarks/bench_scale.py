@@ -15,7 +15,13 @@ process and its children) beside the targets of the scale work:
 
 Where a step has a naive alternative in the library, both are timed in the same run and
 their ratio printed (one probe row: the counter over every pair versus the probe's
-windows only). A step that runs past ``--step-timeout`` is stopped and reported as such,
+windows only; ``tracer pmi``'s table: every pair counted, the probe's windows, the cached
+counts). ``--only NAME`` runs the ingest and the named steps or comparisons only, e.g.
+
+    .venv/bin/python tests/benchmarks/bench_scale.py --tokens 2000000 --only pmi --repeats 5
+    .venv/bin/python tests/benchmarks/bench_scale.py --tokens 2000000 --only ingest-jobs --repeats 3
+
+(``ingest-jobs``: ingest with one and two tokenizing processes, wall and CPU seconds). A step that runs past ``--step-timeout`` is stopped and reported as such,
 so the benchmark always finishes. Nothing here is a pass/fail test: read the ratios.
 """
 
