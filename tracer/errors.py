@@ -46,3 +46,7 @@ class WorkspaceBusy(WorkspaceError):
 
 class GoalNotReached(TracerError):
     """A plan did not reach its goal (raised by the command line only when the goal is required)."""
+
+
+class NotEnoughMemory(TracerError):
+    """A step's estimated peak memory is more than the memory available (tracer.core.memory)."""

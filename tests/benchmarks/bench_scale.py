@@ -15,7 +15,13 @@ process and its children) beside the targets of the scale work:
 
 Where a step has a naive alternative in the library, both are timed in the same run and
 their ratio printed (one probe row: the counter over every pair versus the probe's
-windows only). A step that runs past ``--step-timeout`` is stopped and reported as such,
+windows only; ``tracer pmi``'s table: every pair counted, the probe's windows, the cached
+counts). ``--only NAME`` runs the ingest and the named steps or comparisons only, e.g.
+
+    .venv/bin/python tests/benchmarks/bench_scale.py --tokens 2000000 --only pmi --repeats 5
+    .venv/bin/python tests/benchmarks/bench_scale.py --tokens 2000000 --only ingest-jobs --repeats 3
+
+(``ingest-jobs``: ingest with one and two tokenizing processes, wall and CPU seconds). A step that runs past ``--step-timeout`` is stopped and reported as such,
 so the benchmark always finishes. Nothing here is a pass/fail test: read the ratios.
 """
 
@@ -61,6 +67,49 @@ else:
 print(time.perf_counter() - t)
 """
 
+# tracer pmi's table, one way per process: "windows" (the probe's windows, what the command does
+# on a cache miss), "full" (every pair counted, then the marginals: what it did before) or "cached"
+# (the slices' counts read from the cache, filled untimed first)
+_PMI_TABLE = """
+import sys, time, numpy as np, tempfile
+from tracer.analysis.pmi_table import pmi_table
+from tracer.core.counting import CountSettings
+from tracer.core.pmi import Marginals
+from tracer.corpus.slices import resolve_slices
+from tracer.provenance.cache import open_workspace
+from tracer.provenance.counts import count_slice
+mode, word, ctx = sys.argv[2], sys.argv[3], sys.argv[4].split(",")
+ws = open_workspace(sys.argv[1], cache=mode == "cached")
+if mode == "cached":
+    ws.cache.folder = __import__("pathlib").Path(tempfile.mkdtemp())
+slices = resolve_slices(ws, by=sys.argv[5:], picks=["all"])
+if mode == "cached":
+    for sl in slices:
+        count_slice(ws, sl.weights, CountSettings(), slice_name=sl.name)
+t = time.perf_counter()
+if mode == "full":
+    for sl in slices:
+        c = count_slice(ws, sl.weights, CountSettings(), slice_name=sl.name)
+        m = Marginals.of(c.matrix, 0.75)
+        i = c.vocab.index.get(word)
+        cells = [c.matrix[i, c.vocab.index[x]] for x in ctx if i is not None and x in c.vocab.index]
+else:
+    pmi_table(ws, word, ctx, slices, CountSettings())
+import resource
+print(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024, time.perf_counter() - t)
+"""
+
+
+# one ingest in this process: wall time, CPU of the ingesting process and of its workers
+_INGEST = """
+import resource, sys, time
+from tracer.corpus.ingest import ingest
+t = time.perf_counter()
+ingest(sys.argv[1], [sys.argv[2]], jobs=int(sys.argv[3]))
+me, kids = resource.getrusage(resource.RUSAGE_SELF), resource.getrusage(resource.RUSAGE_CHILDREN)
+print(time.perf_counter() - t, me.ru_utime + me.ru_stime, kids.ru_utime + kids.ru_stime)
+"""
+
 
 def timed(cmd: list[str], timeout: float) -> dict:
     out = subprocess.run([PY, "-c", _TIMER, str(timeout), *cmd], capture_output=True, text=True)
@@ -73,6 +122,9 @@ def main() -> None:
     ap.add_argument("--cache", type=Path, default=HERE.parents[1] / "bench-data")
     ap.add_argument("--step-timeout", type=float, default=1800.0)
     ap.add_argument("--skip", action="append", default=[], help="a step to leave out (repeatable)")
+    ap.add_argument("--only", action="append", default=[], help="run only the steps named so (repeatable; "
+                    "ingest always runs)")
+    ap.add_argument("--repeats", type=int, default=3, help="rounds of the side-by-side comparisons")
     args = ap.parse_args()
 
     data = args.cache / f"realistic-{args.tokens}"
@@ -100,20 +152,66 @@ def main() -> None:
           f"2 cores; each step one command in a fresh process\n")
     print(f"{'step':28} {'seconds':>9} {'peak MB':>9} {'target s':>9}  note")
     for name, cmd, target in steps:
-        if any(s in name for s in args.skip):
+        if any(s in name for s in args.skip) or (args.only and name != "ingest"
+                                                  and not any(name.startswith(s) for s in args.only)):
             continue
         r = timed(cmd, args.step_timeout)
         note = "" if r["rc"] == 0 else f"exit {r['rc']}"
         print(f"{name:28} {r['seconds']:9.1f} {r['peak_mb']:9.0f} {target if target else '-':>9}  {note}", flush=True)
         if name == "ingest" and r["rc"] != 0:
             sys.exit("ingest failed; nothing else can run")
-    if probe and "pmi" not in args.skip:
+    if "ingest-jobs" in args.only:
+        compare_ingest_jobs(data, meta["tokens"], args.repeats)
+    if probe and "pmi" not in args.skip and (not args.only or "pmi" in args.only):
+        compare_pmi_tables(ws, probe, args.repeats)
         full = float(subprocess.run([PY, "-c", _PROBE_ROW, str(ws), "full", probe], capture_output=True,
                                     text=True, check=True).stdout.split()[-1])
         rows = float(subprocess.run([PY, "-c", _PROBE_ROW, str(ws), "rows", probe], capture_output=True,
                                     text=True, check=True).stdout.split()[-1])
         print(f"\none probe's row, library call after loading: counting every pair {full:.2f} s, "
               f"the probe's windows only {rows:.2f} s ({full / rows:.1f}x)")
+
+
+def compare_ingest_jobs(data: Path, tokens: int, repeats: int) -> None:
+    """ingest with jobs 1 and 2, interleaved, each into a new workspace in a fresh process. Besides
+    the wall time, the CPU seconds of the ingesting process (its part cannot be shared out) and of
+    its workers: on a machine with a core free per worker the wall time nears the larger of the
+    ingesting process's CPU and the workers' CPU divided by the jobs."""
+    runs = {1: [], 2: []}
+    for r in range(repeats):
+        for jobs in runs:
+            ws = data / f"ws-jobs-{os.getpid()}-{r}-{jobs}"
+            out = subprocess.run([PY, "-c", _INGEST, str(ws), str(data / "corpus.jsonl.gz"), str(jobs)],
+                                 capture_output=True, text=True, check=True)
+            subprocess.run(["rm", "-rf", str(ws)], check=True)
+            runs[jobs].append(tuple(map(float, out.stdout.split()[-3:])))
+    for jobs, v in runs.items():
+        wall, me, kids = (sorted(x[k] for x in v)[len(v) // 2] for k in range(3))
+        print(f"ingest --jobs {jobs}: {wall:.1f} s wall ({tokens / wall / 1e6:.2f}M tokens/s), CPU s: ingesting "
+              f"process {me:.1f}, workers {kids:.1f} (medians of {repeats}; walls {' '.join(f'{x[0]:.1f}' for x in v)})")
+    w1, w2 = (sorted(x[0] for x in runs[j])[repeats // 2] for j in (1, 2))
+    print(f"ingest wall time, jobs 1 / jobs 2: {w1 / w2:.2f}x (load average {os.getloadavg()[0]:.1f} on "
+          f"{os.cpu_count()} cores)")
+
+
+def compare_pmi_tables(ws: Path, probe: str, repeats: int) -> None:
+    """tracer pmi's table three ways, interleaved, each in a fresh process (loading not timed)."""
+    for by in ([], ["time:10y"]):
+        times = {m: [] for m in ("full", "windows", "cached")}
+        peak = {}
+        for _ in range(repeats):
+            for mode in times:
+                out = subprocess.run([PY, "-c", _PMI_TABLE, str(ws), mode, probe, "bresar,kimklal,kazai", *by],
+                                     capture_output=True, text=True, check=True)
+                mb, seconds = map(float, out.stdout.split()[-2:])
+                times[mode].append(seconds)
+                peak[mode] = max(peak.get(mode, 0), mb)
+        med = {m: sorted(v)[len(v) // 2] for m, v in times.items()}
+        print(f"pmi table, slices all{' + ' + by[0] if by else ''}: counting every pair {med['full']:.2f} s, "
+              f"probe windows {med['windows']:.2f} s ({med['full'] / med['windows']:.1f}x), "
+              f"cached counts {med['cached']:.2f} s ({med['full'] / med['cached']:.1f}x); "
+              f"peak MB full {peak['full']:.0f}, windows {peak['windows']:.0f} (cached: counted first, untimed); "
+              f"medians of {repeats}: " + ", ".join(f"{m} {' '.join(f'{x:.2f}' for x in v)}" for m, v in times.items()))
 
 
 if __name__ == "__main__":

@@ -43,3 +43,45 @@ def test_non_integer_weights_agree_to_rounding(lee_ws, client):
     got, _ = count_on_cluster(lee_ws, weights, CountSettings(weighting="harmonic"), scheduler=client,
                               partition_tokens=30_000)
     assert np.allclose(got.toarray(), want.toarray(), rtol=1e-12, atol=0)
+
+
+@pytest.fixture(scope="module")
+def address():
+    from distributed import LocalCluster
+    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None) as cluster:
+        yield cluster.scheduler_address
+
+
+def test_a_workspace_opened_with_a_scheduler_counts_its_slices_there(lee_ws, address, monkeypatch):
+    import tracer.provenance.counts as counts_module
+    from tracer.corpus.slices import slice_from_spec
+    from tracer.provenance.cache import open_workspace
+    from tracer.provenance.counts import count_slice
+    sl = slice_from_spec(lee_ws, "source=Bramble Wire")
+    want = count_slice(lee_ws, sl.weights, CountSettings())
+
+    def no_local_count(*a, **k):
+        raise AssertionError("counted locally")
+
+    monkeypatch.setattr(counts_module, "count_matrix", no_local_count)
+    got = count_slice(open_workspace(lee_ws.path, scheduler=address), sl.weights, CountSettings())
+    assert got.vocab.words == want.vocab.words
+    assert (got.matrix != want.matrix).nnz == 0 and np.array_equal(got.matrix.indices, want.matrix.indices)
+
+
+def test_the_scheduler_option_and_the_experiment_key(small_ws, address, tmp_path, monkeypatch):
+    from click.testing import CliRunner
+    import tracer.provenance.cluster as cluster
+    from tracer.app.cli import cli
+    from tracer.provenance.experiment import load_experiment
+    seen = []
+    real = cluster.count_on_cluster
+    monkeypatch.setattr(cluster, "count_on_cluster", lambda *a, **k: seen.append(k["scheduler"]) or real(*a, **k))
+    result = CliRunner().invoke(cli, ["--scheduler", address, "train", "-w", str(small_ws.path), "--model",
+                                      "ppmi-svd", "--dim", "2", "--min-count", "1"])
+    assert result.exit_code == 0, result.output
+    assert seen == [address]
+    f = tmp_path / "e.toml"
+    f.write_text(f'[corpus]\ninputs = ["a.jsonl"]\nworkspace = "w"\n[measure]\ntests = "t.toml"\n'
+                 f'[compute]\nscheduler = "{address}"\n', encoding="utf-8")
+    assert load_experiment(f).scheduler == address

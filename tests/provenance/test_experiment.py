@@ -35,7 +35,7 @@ BAD = [
      "{p}, line 10: unknown key counts.windw (the keys of [counts] are window, min_count, weighting, max_vocab)"),
     (GOOD + "\n[counts]\nwindow = \"five\"\n", "{p}, line 9: counts.window must be a whole number, not 'five'"),
     (GOOD + "\n[report]\ntitle = \"x\"\n",
-     "{p}, line 8: unknown section [report] (the sections are corpus, counts, models, measure, trace, drift)"),
+     "{p}, line 8: unknown section [report] (the sections are corpus, counts, models, measure, trace, drift, compute)"),
     (GOOD.replace('inputs = ["a.jsonl"]', 'inputs = "a.jsonl"'),
      "{p}, line 2: corpus.inputs must be a list of text, not 'a.jsonl'"),
     (GOOD.replace('workspace = "w"\n', ''), "{p}: missing corpus.workspace"),

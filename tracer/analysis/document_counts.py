@@ -14,7 +14,7 @@ import dataclasses
 import numpy as np
 import scipy.sparse as sp
 
-from tracer.core.counting import Counts, cumulative_weights, neighbour_weight, token_mask
+from tracer.core.counting import Counts, cumulative_weights, kept_tokens, neighbour_weight
 
 
 @dataclasses.dataclass(frozen=True)
@@ -37,19 +37,10 @@ class Stream:
 def kept_stream(ws, weights: np.ndarray, counts: Counts) -> Stream:
     """The kept tokens of the workspace ``ws`` under ``weights`` (shape (n_docs,)) and the model
     vocabulary of ``counts``, as the counter windows them (out-of-vocabulary tokens removed first)."""
-    id_map = counts.vocab.id_map(len(ws.vocab))
-    tokens = np.asarray(ws.tokens)
-    mapped = id_map[tokens]
-    keep = token_mask(ws.doc_offsets, np.asarray(weights) > 0) & (mapped >= 0)
-    pos = np.flatnonzero(keep)
-    ids = mapped[pos].astype(np.int64)
-    doc = ws.doc_of_position(pos)
-    first = np.ones(len(doc), bool)
-    first[1:] = doc[1:] != doc[:-1]
-    run_start = np.flatnonzero(first)
-    run = np.cumsum(first) - 1
-    run_end = np.append(run_start[1:], len(ids))
-    return Stream(ids, doc, pos, run_start[run], run_end[run])
+    docs = np.flatnonzero(np.asarray(weights) > 0)
+    kept = kept_tokens(ws.tokens, ws.doc_offsets, docs, counts.vocab.id_map(len(ws.vocab)))
+    start = kept.first[kept.owner]
+    return Stream(kept.ids, docs[kept.owner], kept.pos, start, start + kept.lengths[kept.owner])
 
 
 def document_row_sums(stream: Stream, weights: np.ndarray, dist_w: np.ndarray, n_docs: int,

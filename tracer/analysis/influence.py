@@ -28,6 +28,7 @@ import scipy.sparse as sp
 from tracer.analysis.document_counts import (Stream, document_probe_rows, document_row_sums, kept_stream,
                                              rows_sum)
 from tracer.core import _kernels as _k
+from tracer.core import memory
 from tracer.core.association import AssociationTest, association_scores, effect_size, mean_gap, score_gradient, unit_rows
 from tracer.core.counting import Counts, cumulative_weights
 from tracer.core.embedding import Embedding
@@ -87,6 +88,9 @@ class Attribution:
         self._set_rows = {k: np.array([self.probe_row_of[w] for w in v], dtype=np.int64) for k, v in self.sets.items()}
         self.row_sums = counts.row_sums
         n_probe = len(self.probe_ids)
+        memory.require(f"the dense probe rows ({n_probe} words x {len(self.row_sums):,} words)",
+                       memory.dense_rows_peak(n_probe, len(self.row_sums)),
+                       "raise --min-count or set --max-vocab (fewer words per row), or test fewer words")
         self.probe_counts = rows_sum(counts.matrix, self.probe_ids, np.arange(n_probe), n_probe)
         self.singular_values = emb.extras["singular_values"].astype(np.float64)
         self.right_vectors = emb.extras["context_vectors"].astype(np.float64)

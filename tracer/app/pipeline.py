@@ -132,7 +132,8 @@ def run_experiment(exp: Experiment, *, progress: bool = False, say: Callable[[st
 def _run_locked(exp: Experiment, *, progress: bool, say: Callable[[str], None], command: str) -> RunResult:
     say(f"ingesting into {exp.workspace}")
     summary = ingest(exp.workspace, exp.inputs, fields=exp.fields, tokenizer=exp.tokenizer, progress=progress)
-    ws = open_workspace(exp.workspace, cache=True)  # counts and models of unchanged slices are reused
+    # counts and models of unchanged slices are reused
+    ws = open_workspace(exp.workspace, cache=True, scheduler=exp.scheduler)
     plan = check_experiment(exp, ws)
     key, files = _key(exp, [i.sha256 for i in summary.inputs], ws)
     runs = ws.path / RUNS_DIR

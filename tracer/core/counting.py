@@ -32,6 +32,7 @@ import scipy.sparse as sp
 from tqdm.auto import tqdm
 
 from tracer.core import _kernels as _k
+from tracer.core.count_memory import check_count_memory
 from tracer.core.count_engine import (DEFAULT_SHARD_TOKENS, count_shard, make_shards, sum_upper, symmetrize_arrays,
                                       to_csr)
 from tracer.core.threads import ThreadPool, default_workers
@@ -111,6 +112,59 @@ def neighbour_weight(before, after, cum: np.ndarray):
     word's row sum, per unit of document weight."""
     window = len(cum) - 1
     return cum[np.minimum(window, before)] + cum[np.minimum(window, after)]
+
+
+@dataclasses.dataclass(frozen=True)
+class KeptTokens:
+    """The tokens a count windows, in order: the in-vocabulary tokens of some documents.
+
+    Attributes (one value per kept token, except ``lengths``)
+    ----------
+    ids : numpy.ndarray of int64, shape (n_kept,)
+        Model ids.
+    pos : numpy.ndarray of int64, shape (n_kept,)
+        Positions in the workspace's token array.
+    owner : numpy.ndarray of int64, shape (n_kept,)
+        Index into the documents asked for (not the workspace's document index).
+    place : numpy.ndarray of int64, shape (n_kept,)
+        Place among its document's kept tokens (0 for the first).
+    first : numpy.ndarray of int64, shape (n_docs_asked,)
+        Index of each document's first kept token in this stream.
+    lengths : numpy.ndarray of int64, shape (n_docs_asked,)
+        Kept tokens of each document asked for.
+    """
+
+    ids: np.ndarray
+    pos: np.ndarray
+    owner: np.ndarray
+    place: np.ndarray
+    first: np.ndarray
+    lengths: np.ndarray
+
+
+def kept_tokens(tokens: np.ndarray, doc_offsets: np.ndarray, docs: np.ndarray, id_map: np.ndarray) -> KeptTokens:
+    """The kept tokens of the documents ``docs`` (indices, ascending), words outside ``id_map``
+    (-1 there) removed before windowing as the counter removes them.
+
+    Parameters
+    ----------
+    tokens : numpy.ndarray of uint32, shape (n_tokens,)
+    doc_offsets : numpy.ndarray of int64, shape (n_docs + 1,)
+    docs : numpy.ndarray of int, shape (n_docs_asked,)
+    id_map : numpy.ndarray of int, shape (n_full,)
+        Workspace id -> model id (:meth:`ModelVocab.id_map`).
+    """
+    docs = np.asarray(docs, dtype=np.int64)
+    lengths = doc_offsets[docs + 1] - doc_offsets[docs]
+    starts = doc_offsets[docs]
+    pos = np.repeat(starts - np.cumsum(np.r_[0, lengths[:-1]]), lengths) + np.arange(lengths.sum())
+    ids = id_map[tokens[pos]]
+    keep = ids >= 0
+    owner = np.repeat(np.arange(len(docs)), lengths)[keep]
+    kept_len = np.bincount(owner, minlength=len(docs))
+    first = np.r_[0, np.cumsum(kept_len)[:-1]].astype(np.int64)
+    place = np.arange(len(owner)) - first[owner]
+    return KeptTokens(ids[keep].astype(np.int64), pos[keep], owner, place, first, kept_len)
 
 
 @dataclasses.dataclass(frozen=True)
@@ -226,6 +280,7 @@ def count_matrix(tokens: np.ndarray, doc_offsets: np.ndarray, doc_weights: np.nd
     if len(tokens) and int(tokens.max()) >= n_full:  # the kernels index id_map without bounds checks
         raise SettingError(f"token ids reach {int(tokens.max())}, beyond the vocabulary size given ({n_full})")
     pool = ThreadPool(workers or default_workers())
+    check_count_memory(tokens, doc_offsets, doc_weights, id_map, n, settings, shard_tokens, pool)
     parts = []
     with tqdm(total=len(shards), desc="count", unit=" shards", disable=not progress, leave=False) as bar:
         for shard in shards:

@@ -17,8 +17,20 @@ import scipy.sparse as sp
 from scipy.sparse.linalg import svds
 from threadpoolctl import ThreadpoolController
 
-from tracer.errors import SettingError
+from tracer.core import memory
 from tracer.core.pmi import DEFAULT_ALPHA, ppmi_matrix
+from tracer.errors import SettingError
+
+SVD_FIX = "lower --dim, or raise --min-count / set --max-vocab (fewer words)"
+
+
+def check_svd_memory(counts, dim: int, *, warm: bool = False) -> None:
+    """Raise :class:`tracer.errors.NotEnoughMemory` before the PPMI and SVD of ``counts`` when they
+    cannot fit: the PPMI's temporaries, then the PPMI matrix (12 bytes a nonzero) beside the SVD's
+    arrays (:mod:`tracer.core.memory`)."""
+    n, nnz = counts.shape[0], counts.nnz
+    memory.require(f"the PPMI and {'warm-started ' if warm else ''}SVD of {n:,} words ({nnz:,} nonzeros, dim {dim})",
+                   memory.ppmi_svd_peak(n, nnz, dim, warm=warm), SVD_FIX)
 
 
 @dataclasses.dataclass(frozen=True)
@@ -111,6 +123,7 @@ def truncated_svd(matrix, k: int, seed: int = 0) -> tuple[np.ndarray, np.ndarray
 
 def ppmi_svd_vectors(counts, settings: PpmiSvdSettings) -> tuple[np.ndarray, dict]:
     """Word vectors from a count matrix; also the singular values and right vectors."""
+    check_svd_memory(counts, settings.dim)
     ppmi = ppmi_matrix(counts, alpha=settings.alpha, shift=settings.shift)
     u, s, vt = truncated_svd(ppmi, settings.dim, settings.seed)
     vectors = u * (s ** settings.eig_power)
@@ -150,6 +163,7 @@ def warm_truncated_svd(matrix, k: int, start: np.ndarray, *, n_iter: int = WARM_
 
 def ppmi_svd_vectors_warm(counts, settings: PpmiSvdSettings, start: np.ndarray) -> np.ndarray:
     """Word vectors of a replicate, the SVD warm-started from the full data's context vectors."""
+    check_svd_memory(counts, settings.dim, warm=True)
     ppmi = ppmi_matrix(counts, alpha=settings.alpha, shift=settings.shift)
     u, s, _ = warm_truncated_svd(ppmi, settings.dim, start, seed=settings.seed)
     return (u * (s ** settings.eig_power)).astype(np.float32)

@@ -29,6 +29,7 @@ from tracer.corpus.lock import workspace_lock
 from tracer.corpus.readers import RawRecord, ReadLimits, Reject, detect_format, read_records
 from tracer.corpus.store import StoreWriter, remove_abandoned
 from tracer.corpus.tokenize import ENGINE, TokenizerSettings
+from tracer.corpus.tokenize_pool import tokenized
 from tracer.corpus.validate import FieldMap, FieldUse, RecordValidator, reason_kind
 from tracer.corpus.workspace import Workspace, mapping_text
 
@@ -113,6 +114,7 @@ class _Run:
     validate: RecordValidator
     strict: bool
     limits: ReadLimits = ReadLimits()
+    jobs: int = 1
     reasons: dict[str, int] = dataclasses.field(default_factory=dict)
     first_reject: Reject | None = None
 
@@ -130,7 +132,8 @@ def ingest(workspace: str | os.PathLike, inputs: Iterable[str | os.PathLike], *,
            fields: FieldMap = FieldMap(), tokenizer: TokenizerSettings | None = None,
            input_format: str | None = None, default_source: str | None = None,
            strict: bool = False, progress: bool = False, replace: bool = False,
-           wait: bool = True, command: str = "", limits: ReadLimits = ReadLimits()) -> IngestSummary:
+           wait: bool = True, command: str = "", limits: ReadLimits = ReadLimits(),
+           jobs: int | None = None) -> IngestSummary:
     """Read corpus files into the workspace (created if needed), holding its write lock.
 
     Parameters
@@ -161,6 +164,9 @@ def ingest(workspace: str | os.PathLike, inputs: Iterable[str | os.PathLike], *,
         What to call this writer in the lock file.
     limits : ReadLimits
         Bounds on one record (size, line length, nesting, gzip ratio); beyond them a reject.
+    jobs : int, optional
+        Worker processes that tokenize (default: the cores available; 1: in this process).
+        The stored corpus is the same for any number (:mod:`tracer.corpus.tokenize_pool`).
 
     Returns
     -------
@@ -168,6 +174,10 @@ def ingest(workspace: str | os.PathLike, inputs: Iterable[str | os.PathLike], *,
     """
     ws_path = Path(workspace)
     inputs = [Path(p) for p in inputs]
+    if jobs is None:
+        jobs = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
+    if jobs < 1:
+        raise InputError(f"jobs must be at least 1; got {jobs}")
     if not inputs:
         raise InputError("no input files given")
     for p in inputs:
@@ -177,7 +187,7 @@ def ingest(workspace: str | os.PathLike, inputs: Iterable[str | os.PathLike], *,
             detect_format(p)
     with workspace_lock(ws_path, command=command or f"ingest {' '.join(map(str, inputs))}", wait=wait):
         return _ingest_locked(ws_path, inputs, fields, tokenizer, input_format, default_source, strict,
-                              progress, replace, limits)
+                              progress, replace, limits, jobs)
 
 
 def _settings(ws_path: Path, current: Workspace | None, tokenizer: TokenizerSettings | None,
@@ -214,7 +224,7 @@ def _check_mapping(ws_path: Path, known: list[dict], inputs: list[Path], hashes:
 
 def _ingest_locked(ws_path: Path, inputs: list[Path], fields: FieldMap, tokenizer: TokenizerSettings | None,
                    input_format: str | None, default_source: str | None, strict: bool, progress: bool,
-                   replace: bool, limits: ReadLimits) -> IngestSummary:
+                   replace: bool, limits: ReadLimits, jobs: int = 1) -> IngestSummary:
     current_name = remove_abandoned(ws_path)
     current = Workspace(ws_path) if current_name else None
     settings = _settings(ws_path, current, tokenizer, replace)
@@ -231,7 +241,7 @@ def _ingest_locked(ws_path: Path, inputs: list[Path], fields: FieldMap, tokenize
     writer = StoreWriter(ws_path, old, settings, previous=current_name)
     committed = False
     try:
-        run = _Run(writer, RecordValidator(fields, default_source), strict, limits)
+        run = _Run(writer, RecordValidator(fields, default_source), strict, limits, jobs)
         summaries = []
         with tqdm(desc="ingest", unit=" docs", disable=not progress, leave=False) as bar:
             for path, sha in zip(inputs, input_hashes):
@@ -263,9 +273,10 @@ def _read_input(run: _Run, path: Path, sha: str, input_format: str | None, field
     use = FieldUse(fields, default_source, str(path))
     content = hashlib.sha256()
     n_rec = n_doc = n_tok = n_rej = 0
-    for rec in read_records(path, input_format, run.limits):
+    records = _validated(run, read_records(path, input_format, run.limits), use)
+    for (rec, row), tokens in tokenized(records, run.writer.encoder.tokenizer.settings, run.jobs):
         n_rec += 1
-        stored = _store_record(run, rec, use, content)
+        stored = _store_record(run, rec, row, tokens, content)
         if isinstance(stored, Reject):
             run.reject(stored)
             n_rej += 1
@@ -282,15 +293,25 @@ def _read_input(run: _Run, path: Path, sha: str, input_format: str | None, field
     return InputSummary(str(path), sha, "added", n_rec, n_doc, n_tok, n_rej, use.fields_found(), warnings), entry
 
 
-def _store_record(run: _Run, rec: RawRecord | Reject, use: FieldUse, content) -> int | Reject:
-    """One record through validate, tokenize and store: its token count, or why it was rejected."""
-    if isinstance(rec, Reject):
-        return rec
-    use.add(rec)
-    row = run.validate(rec)
-    if isinstance(row, str):
-        return Reject(rec.file, rec.line, row, "")
-    tokens = run.writer.encoder.tokenize(row["text"])
+def _validated(run: _Run, records, use: FieldUse):
+    """``((record, row or reject), text to tokenize or None)`` for each record read, in order."""
+    for rec in records:
+        if isinstance(rec, Reject):
+            yield (rec, rec), None
+            continue
+        use.add(rec)
+        row = run.validate(rec)
+        if isinstance(row, str):
+            yield (rec, Reject(rec.file, rec.line, row, "")), None
+        else:
+            yield (rec, row), row["text"]
+
+
+def _store_record(run: _Run, rec: RawRecord | Reject, row: dict | Reject, tokens: list[str] | None,
+                  content) -> int | Reject:
+    """One validated and tokenized record into the store: its token count, or why it was rejected."""
+    if isinstance(row, Reject):
+        return row
     if not tokens:
         return Reject(rec.file, rec.line, "the text has no tokens", "")
     taken = run.writer.add(row, tokens)

@@ -38,7 +38,7 @@ from tracer.corpus.workspace import (CURRENT_FILE, DB_FILE, MANIFEST_FILE, OFFSE
                                      read_current, store_folders)
 
 WRITER_FILE = "writer.json"
-KILL_POINTS = ("generation-made", "documents-written", "manifest-written", "switched", "cleaned")
+KILL_POINTS = ("generation-made", "tokenizing", "documents-written", "manifest-written", "switched", "cleaned")
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS documents (

@@ -36,14 +36,18 @@ DEFAULT_MAX_BYTES = 4 * 1024 ** 3
 TMP_PREFIX = ".tmp-"
 
 
-def open_workspace(path: str | os.PathLike, *, cache: bool | str = False) -> Workspace:
+def open_workspace(path: str | os.PathLike, *, cache: bool | str = False, scheduler: str | None = None) -> Workspace:
     """Open a workspace with its cache: ``True`` reuses counts and models of slices made
     before and keeps new ones (``tracer run``); ``"read"`` reuses them and keeps nothing
-    new (the other commands); ``False`` neither."""
+    new (the other commands); ``False`` neither. With ``scheduler`` (a dask.distributed
+    scheduler's address) the counts not in the cache are counted on that cluster
+    (:func:`tracer.provenance.counts.count_slice`)."""
     if cache not in (False, True, "read"):
         raise ValueError(f"cache must be False, True or 'read'; got {cache!r}")
     path = Path(path)
-    return Workspace(path, cache=ResultCache(path / "cache", write=cache != "read") if cache else None)
+    ws = Workspace(path, cache=ResultCache(path / "cache", write=cache != "read") if cache else None)
+    ws.scheduler = scheduler
+    return ws
 
 
 def cacheable(weights: np.ndarray) -> bool:

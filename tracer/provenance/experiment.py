@@ -65,6 +65,7 @@ SCHEMA = {
                 "min_words": _INT},
     "trace": {"tests": _LIST_OF_STR, "slice": _STR, "top": _INT, "verify": _INT, "rank_by": _STR},
     "drift": {"tests": _LIST_OF_STR, "by": _STR, "bootstrap": _INT, "words": _LIST_OF_STR},
+    "compute": {"scheduler": _STR},
 }
 _MODEL_KEYS = {
     "ppmi_svd": {"dim": _INT, "eig_power": _NUM, "alpha": _NUM, "shift": _NUM, "seed": _INT},
@@ -104,6 +105,7 @@ class Experiment:
     drift_bootstrap: int
     drift_words: tuple[str, ...]
     text: str
+    scheduler: str | None = None  # a dask.distributed scheduler to count on ([compute] scheduler)
 
     @property
     def hash(self) -> str:
@@ -192,7 +194,8 @@ def load_experiment(path: str | Path) -> Experiment:
             trace_tests=tuple(tr.get("tests", [])), trace_slice=tr.get("slice", "all"), trace_top=tr.get("top", 20),
             trace_verify=tr.get("verify", 5), trace_rank_by=tr.get("rank_by", "gap"),
             drift_tests=tuple(dr.get("tests", [])), drift_by=dr.get("by", "time:10y"),
-            drift_bootstrap=dr.get("bootstrap", 20), drift_words=tuple(dr.get("words", [])), text=text)
+            drift_bootstrap=dr.get("bootstrap", 20), drift_words=tuple(dr.get("words", [])), text=text,
+            scheduler=data.get("compute", {}).get("scheduler"))
     except SettingError as e:
         raise InputError(f"{path}: {e}") from None
     return exp

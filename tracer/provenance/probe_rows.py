@@ -23,7 +23,8 @@ import dataclasses
 
 import numpy as np
 
-from tracer.core.counting import CountSettings, ModelVocab, build_vocab
+from tracer.core.counting import (CountSettings, ModelVocab, build_vocab, cumulative_weights, kept_tokens,
+                                  neighbour_weight)
 from tracer.errors import WordNotInVocabulary
 
 # documents are processed in groups of about this many tokens, so memory stays bounded
@@ -61,21 +62,6 @@ def _chunks(doc_offsets: np.ndarray, docs: np.ndarray):
     yield from np.split(docs, np.unique(cuts[(cuts > 0) & (cuts < len(docs))]))
 
 
-def _kept_stream(tokens, doc_offsets, docs, id_map):
-    """Model ids of the kept tokens of ``docs``, with each one's document and place in it."""
-    lengths = doc_offsets[docs + 1] - doc_offsets[docs]
-    starts = doc_offsets[docs]
-    idx = np.repeat(starts - np.cumsum(np.r_[0, lengths[:-1]]), lengths) + np.arange(lengths.sum())
-    ids = id_map[tokens[idx]]
-    keep = ids >= 0
-    owner = np.repeat(np.arange(len(docs)), lengths)[keep]
-    ids = ids[keep]
-    kept_len = np.bincount(owner, minlength=len(docs))
-    first = np.r_[0, np.cumsum(kept_len)[:-1]]
-    place = np.arange(len(ids)) - first[owner]
-    return ids, owner, place, kept_len
-
-
 def probe_rows(ws, weights: np.ndarray, settings: CountSettings, words: list[str], *,
                vocab: ModelVocab | None = None) -> ProbeRows:
     """Rows of ``words`` and the row sums of the count of ``ws`` under document ``weights``.
@@ -102,16 +88,17 @@ def probe_rows(ws, weights: np.ndarray, settings: CountSettings, words: list[str
     probe_of = np.full(n, -1, dtype=np.int64)
     probe_of[[vocab.index[w] for w in words]] = np.arange(len(words))
     dist_w = settings.distance_weights()
-    reach = np.r_[0.0, np.cumsum(dist_w)]          # reach[k]: weight of k neighbours on one side
+    cum = cumulative_weights(dist_w)
     win = settings.window
     id_map = vocab.id_map(len(ws.vocab))
     row_sums = np.zeros(n)
     rows = np.zeros(len(words) * n)
     for docs in _chunks(offsets, np.flatnonzero(weights > 0)):
-        ids, owner, place, kept_len = _kept_stream(tokens, offsets, docs, id_map)
+        kept = kept_tokens(tokens, offsets, docs, id_map)
+        ids, owner, place = kept.ids, kept.owner, kept.place
         doc_w = weights[docs][owner]
-        right = kept_len[owner] - 1 - place
-        row_sums += np.bincount(ids, weights=doc_w * (reach[np.minimum(place, win)] + reach[np.minimum(right, win)]),
+        right = kept.lengths[owner] - 1 - place
+        row_sums += np.bincount(ids, weights=doc_w * neighbour_weight(place, right, cum),
                                 minlength=n)
         at = np.flatnonzero(probe_of[ids] >= 0)
         for d in range(1, win + 1):

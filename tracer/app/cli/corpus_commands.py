@@ -78,9 +78,11 @@ def _limits(v: dict) -> dict:
 @click.option("--replace", is_flag=True,
               help="Rebuild the corpus from these inputs alone (to re-read a file with other fields or settings).")
 @click.option("--no-wait", is_flag=True, help="Fail at once if another command is writing to the workspace.")
+@click.option("--jobs", type=click.IntRange(min=1), default=None,
+              help="Processes that tokenize (default: the cores available; 1: no extra process).")
 @output_options
 def ingest(inputs, workspace, fields, default_source, input_format, strict, tokenizer, limits, replace, no_wait,
-           out):
+           jobs, out):
     """Read corpus files (JSONL, JSONL.gz, CSV, .txt folders, Parquet) into a workspace.
 
     Running it again on the same file changes nothing; a new file is appended.
@@ -92,7 +94,7 @@ def ingest(inputs, workspace, fields, default_source, input_format, strict, toke
     from tracer.corpus.ingest import ingest as run_ingest
     summary = run_ingest(workspace, inputs, fields=fields, tokenizer=tokenizer, input_format=input_format,
                          default_source=default_source, strict=strict, progress=progress_on(), replace=replace,
-                         wait=not no_wait, limits=limits, command="tracer ingest " + " ".join(map(str, inputs)))
+                         wait=not no_wait, limits=limits, jobs=jobs, command="tracer ingest " + " ".join(map(str, inputs)))
     out.table(pd.DataFrame([{"input": i.path, "status": i.status, "records": i.records, "documents": i.documents,
                              "tokens": i.tokens, "rejected": i.rejects} for i in summary.inputs]))
     for warning in summary.warnings:

@@ -19,6 +19,11 @@ def _root_obj() -> dict:
     return (ctx.find_root().obj or {}) if ctx is not None else {}
 
 
+def scheduler_address() -> str | None:
+    """The dask scheduler given with --scheduler, or None."""
+    return _root_obj().get("scheduler")
+
+
 def progress_on() -> bool:
     """Progress bars (on stderr): with --progress, else when stderr is a terminal and not --quiet."""
     obj = _root_obj()
@@ -95,13 +100,15 @@ def _show_raw(caught) -> None:
 @click.option("-v", "--verbose", is_flag=True, help="Print more about each step.")
 @click.option("--progress", is_flag=True, help="Show progress bars even when standard error is not a terminal.")
 @click.option("--debug", is_flag=True, help="Show the full traceback of an error, and warnings as they came.")
+@click.option("--scheduler", metavar="ADDRESS", default=None,
+              help="Count on this dask.distributed scheduler (e.g. tcp://host:8786; needs the dask extra).")
 @click.pass_context
-def cli(ctx, quiet, verbose, progress, debug):
+def cli(ctx, quiet, verbose, progress, debug, scheduler):
     """Trace associations in word embeddings back to the corpus that made them.
 
     Example:  tracer demo -w demo-work
     """
-    ctx.obj = {"quiet": quiet, "verbose": verbose, "progress": progress, "debug": debug}
+    ctx.obj = {"quiet": quiet, "verbose": verbose, "progress": progress, "debug": debug, "scheduler": scheduler}
     logging.basicConfig(level=logging.INFO if verbose else logging.WARNING, format="%(message)s")
 
 

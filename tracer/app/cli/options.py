@@ -18,7 +18,7 @@ from typing import Callable
 
 import click
 
-from tracer.app.cli.group import say
+from tracer.app.cli.group import say, scheduler_address
 
 MODELS = ("ppmi-svd", "word2vec")
 SEEDS_DEFAULT = 3
@@ -58,7 +58,7 @@ def open_workspace(path: Path):
     from tracer.provenance.cache import open_workspace as open_ws
     # counts and models that tracer run stored are reused (same corpus, documents and settings);
     # the other commands store nothing there
-    return open_ws(path, cache="read")
+    return open_ws(path, cache="read", scheduler=scheduler_address())
 
 
 def words_of(value: str) -> list[str]:

@@ -6,7 +6,7 @@ from pathlib import Path
 
 import click
 
-from tracer.app.cli.group import cli, progress_on, say
+from tracer.app.cli.group import cli, progress_on, say, scheduler_address
 from tracer.app.cli.options import check_out, workspace_option
 
 
@@ -20,8 +20,11 @@ def run(experiment, open_report):
     """
     from tracer.app.pipeline import run_experiment
     from tracer.provenance.experiment import load_experiment
-    result = run_experiment(load_experiment(experiment), progress=progress_on(), say=say,
-                            command=f"tracer run {experiment}")
+    import dataclasses
+    exp = load_experiment(experiment)
+    if scheduler_address():  # the command line's --scheduler over the file's [compute] scheduler
+        exp = dataclasses.replace(exp, scheduler=scheduler_address())
+    result = run_experiment(exp, progress=progress_on(), say=say, command=f"tracer run {experiment}")
     report_path = result.folder / "report.html"
     if open_report:
         click.echo(str(report_path))

@@ -1,0 +1,85 @@
+"""Tokenizing on worker processes stores the corpus the serial path stores, and stays crash-safe."""
+
+import multiprocessing
+import os
+import signal
+import sqlite3
+
+import numpy as np
+import pytest
+
+import tracer.corpus.tokenize_pool as tokenize_pool
+from tests.conftest import lee_documents, write_jsonl
+from tracer.corpus.ingest import ingest
+from tracer.corpus.tokenize import TokenizerSettings
+from tracer.corpus.workspace import Workspace
+
+FORK = multiprocessing.get_context("fork")
+
+
+@pytest.fixture(scope="module")
+def lee_input(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("pool")
+    docs = [t for t in lee_documents() if t.strip()]
+    records = [{"id": f"lee{i}", "source": f"s{i % 3}", "time": 1990 + i % 20, "text": t} for i, t in enumerate(docs)]
+    # rejects in the stream: an empty text, a duplicate id, a text of no tokens, an uppercase text for the case rule
+    records[10]["text"] = ""
+    records[20]["id"] = "lee3"
+    records[30]["text"] = "... !!! ---"
+    records[40]["text"] = "İSTANBUL Straße DON’T " + records[40]["text"].upper()
+    return write_jsonl(folder / "lee.jsonl", records)
+
+
+def stored(ws_path):
+    ws = Workspace(ws_path)
+    with sqlite3.connect(ws.store / "corpus.sqlite") as con:
+        rows = con.execute("SELECT doc_index, doc_id, source, time, title, text, n_tokens, token_start, input_line "
+                           "FROM documents ORDER BY doc_index").fetchall()
+    rejects = (ws.rejects_file.read_text(encoding="utf-8") if ws.rejects_file.is_file() else "")
+    return ws, rows, rejects
+
+
+@pytest.mark.parametrize("settings", [None, TokenizerSettings(lowercase=False, normalization="NFC"),
+                                      TokenizerSettings(case_rule="turkish")])
+def test_workers_store_what_the_serial_path_stores(tmp_path, lee_input, monkeypatch, settings):
+    monkeypatch.setattr(tokenize_pool, "CHUNK_CHARS", 5_000)  # about 30 chunks: the workers start
+    started = []
+    real = tokenize_pool.multiprocessing.get_context
+    monkeypatch.setattr(tokenize_pool.multiprocessing, "get_context", lambda m: started.append(m) or real(m))
+    serial = ingest(tmp_path / "one", [lee_input], tokenizer=settings, jobs=1)
+    assert started == []
+    parallel = ingest(tmp_path / "two", [lee_input], tokenizer=settings, jobs=2)
+    assert started == ["spawn"]
+    (a, rows_a, rej_a), (b, rows_b, rej_b) = stored(tmp_path / "one"), stored(tmp_path / "two")
+    assert a.corpus_hash == b.corpus_hash
+    assert np.array_equal(np.asarray(a.tokens), np.asarray(b.tokens))
+    assert np.array_equal(a.doc_offsets, b.doc_offsets)
+    assert a.vocab.words == b.vocab.words and np.array_equal(a.vocab.counts, b.vocab.counts)
+    assert rows_a == rows_b and rej_a == rej_b and rej_a.count("\n") == 3
+    assert serial.reject_reasons == parallel.reject_reasons
+
+
+def test_one_chunk_never_starts_workers(tmp_path, small_jsonl, monkeypatch):
+    monkeypatch.setattr(tokenize_pool.multiprocessing, "get_context",
+                        lambda m: pytest.fail("workers started for a small input"))
+    assert ingest(tmp_path / "ws", [small_jsonl], jobs=4).documents_total == 4
+
+
+def _ingest_killed_while_tokenizing(ws, path):
+    tokenize_pool.CHUNK_CHARS = 5_000  # the parent's chunks (the workers need no setting)
+    os.environ["TRACER_TEST_KILL_AT"] = "tokenizing"
+    ingest(ws, [path], jobs=2)
+
+
+def test_a_kill_while_workers_tokenize_leaves_the_old_corpus_and_frees_the_lock(tmp_path, lee_input, small_jsonl):
+    ws_path = tmp_path / "ws"
+    ingest(ws_path, [small_jsonl])
+    p = FORK.Process(target=_ingest_killed_while_tokenizing, args=(ws_path, lee_input))
+    p.start()
+    p.join(timeout=120)
+    assert p.exitcode == -signal.SIGKILL
+    assert Workspace(ws_path).n_documents == 4
+    # no worker holds the lock: a writer that will not wait gets it at once
+    again = ingest(ws_path, [lee_input], wait=False, jobs=1)
+    alone = ingest(tmp_path / "alone", [lee_input], jobs=1)
+    assert again.documents_total == 4 + alone.documents_total
