@@ -29,7 +29,7 @@ from typing import Callable
 import pandas as pd
 
 from tracer.analysis.measure import MeasureSettings, SUMMARY_COLUMNS, measure
-from tracer.app.output import plain_values, to_records
+from tracer.app.output import csv_text, plain_values, to_records
 from tracer.core.association import AssociationTest
 from tracer.corpus.ingest import ingest
 from tracer.corpus.lock import workspace_lock
@@ -266,7 +266,7 @@ def _store(exp: Experiment, ws, folder: RunFolder, parts: _Parts, key: str, file
     parts.tables["not_measured"] = pd.DataFrame(parts.not_measured, columns=["part", "name", "reason"])
     stems = {name: table_stem(name) for name in parts.tables}
     for name, df in parts.tables.items():
-        df.to_csv(folder.tmp / "tables" / f"{stems[name]}.csv", index=False)
+        (folder.tmp / "tables" / f"{stems[name]}.csv").write_text(csv_text(df), encoding="utf-8")
         (folder.tmp / "tables" / f"{stems[name]}.json").write_text(
             json.dumps(to_records(df), ensure_ascii=False, indent=1), encoding="utf-8")
     checkpoint("tables")
@@ -294,7 +294,7 @@ def _store(exp: Experiment, ws, folder: RunFolder, parts: _Parts, key: str, file
                   errors=(Exception,))
     if len(parts.not_measured) > len(parts.tables["not_measured"]):  # the report failed: say so in the run too
         failed = pd.DataFrame(parts.not_measured, columns=["part", "name", "reason"])
-        failed.to_csv(folder.tmp / "tables" / "not_measured.csv", index=False)
+        (folder.tmp / "tables" / "not_measured.csv").write_text(csv_text(failed), encoding="utf-8")
         (folder.tmp / "tables" / "not_measured.json").write_text(
             json.dumps(to_records(failed), ensure_ascii=False, indent=1), encoding="utf-8")
         status = write_info()
