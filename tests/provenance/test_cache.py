@@ -137,3 +137,21 @@ def test_two_processes_writing_the_same_entry_both_succeed_and_leave_it_whole(tm
     expected = np.array([[0.0, 2.0, 1.0], [2.0, 0.0, 0.0], [1.0, 0.0, 4.0]])
     np.testing.assert_array_equal(got.matrix.toarray(), expected)
     assert got.vocab.words == ["a", "b", "c"] and got.vocab.counts.tolist() == [3, 2, 5]
+
+
+def test_a_stored_model_is_written_under_the_workspace_lock(small_ws, monkeypatch):
+    import tracer.provenance.models as models
+    from tracer.corpus.lock import holds_lock
+    held = []
+    real_save = models.save_embedding
+
+    def save(emb, folder):
+        held.append(holds_lock(small_ws.path))
+        return real_save(emb, folder)
+
+    monkeypatch.setattr(models, "save_embedding", save)
+    emb = train_embedding(small_ws, slice_from_spec(small_ws, "all"), "ppmi-svd", CountSettings(min_count=1),
+                          PpmiSvdSettings(dim=3))
+    assert held == [True] and not holds_lock(small_ws.path)  # held while writing, released after
+    stored = models.load_embedding(small_ws, "ppmi-svd", "all")
+    np.testing.assert_array_equal(stored.vectors, emb.vectors)
