@@ -115,3 +115,4 @@ def test_numbers_are_never_quoted_and_read_back_unchanged():
 def test_a_summary_in_csv_keeps_numbers_and_quotes_text():
     rows = _cells(render_mapping({"statistic": -0.5, "name": "-cmd", "=key": "x", "words": ["-a", "b"]}, "csv"))
     assert rows[1:] == [["statistic", "-0.5"], ["name", "'-cmd"], ["'=key", "x"], ["words", "'-a,b"]]
+    assert _cells(render_mapping({"name": "a\r=b", "n": 2}, "csv"))[1:] == [["name", "a\r=b"], ["n", "2"]]

@@ -130,7 +130,11 @@ def csv_text(df: pd.DataFrame) -> str:
     would become a row beginning ``=...``); a table with a carriage return in its text is
     therefore written with every text cell quoted.
     """
-    safe = spreadsheet_safe(df)
+    return _to_csv(spreadsheet_safe(df))
+
+
+def _to_csv(safe: pd.DataFrame) -> str:
+    """CSV of a table already made safe, quoting every text cell when one holds a carriage return."""
     texts = [str(c) for c in safe.columns] + [v for c in safe.columns if not pd.api.types.is_numeric_dtype(safe[c])
                                               for v in safe[c] if isinstance(v, str)]
     quoting = csv.QUOTE_NONNUMERIC if any("\r" in t for t in texts) else csv.QUOTE_MINIMAL
@@ -244,7 +248,7 @@ def render_mapping(data: dict, fmt: str = "table", *, width: int | None = TERMIN
     if fmt == "csv":
         # a number stays a number (its text is not quoted); text and lists are made safe
         cells = [safe_text(v) if isinstance(raw, (str, list, tuple)) else v for raw, v in zip(data.values(), values)]
-        return pd.DataFrame({"key": [safe_text(k) for k in data], "value": cells}).to_csv(index=False)
+        return _to_csv(pd.DataFrame({"key": [safe_text(k) for k in data], "value": cells}))
     key_width = max(len(k) for k in data) if data else 0
     lines = [f"{k.ljust(key_width)}  {v}" for k, v in zip(data, values)]
     if width is not None:
