@@ -121,3 +121,45 @@ def test_rejects_are_reported(tmp_path):
 def test_debug_shows_the_traceback(tmp_path):
     res = CliRunner().invoke(cli, ["--debug", "info", "-w", str(tmp_path / "none")])
     assert res.exit_code == 1 and "Traceback" in res.stderr
+
+
+LIMIT_PARAMS = ("max_record_mb", "max_line_mb", "max_depth", "max_gzip_ratio")
+
+
+def test_the_ingest_limits_default_to_read_limits():
+    from tracer.app.cli.corpus_commands import _limits
+    from tracer.corpus.streams import ReadLimits
+    params = {p.name: p for p in cli.commands["ingest"].params}
+    # each option's default, converted as click converts it, gives the library's own limits
+    defaults = {name: params[name].type_cast_value(None, params[name].default) for name in LIMIT_PARAMS}
+    assert _limits(defaults) == {"limits": ReadLimits()}
+
+
+# other defaults given to ReadLimits before the command line is imported: the ingest options
+# must follow them (with the limits written as literals in the CLI they would not)
+OTHER_LIMITS = """
+import dataclasses, json
+import tracer.corpus.streams as streams
+base = streams.ReadLimits
+streams.ReadLimits = dataclasses.make_dataclass("ReadLimits", [
+    ("max_record_bytes", int, dataclasses.field(default=3 * 2 ** 20)),
+    ("max_line_bytes", int, dataclasses.field(default=5 * 2 ** 19)),
+    ("max_depth", int, dataclasses.field(default=17)),
+    ("max_gzip_ratio", float, dataclasses.field(default=33.5)),
+    ("gzip_ratio_floor_bytes", int, dataclasses.field(default=2 ** 20))], bases=(base,), frozen=True)
+from tracer.app.cli import cli
+params = {p.name: p for p in cli.commands["ingest"].params}
+print(json.dumps({n: params[n].default for n in %r}))
+print([p.help for p in cli.commands["ingest"].params if p.name == "max_gzip_ratio"][0])
+"""
+
+
+def test_the_ingest_limits_follow_read_limits_when_its_defaults_change():
+    import subprocess
+    import sys
+    res = subprocess.run([sys.executable, "-c", OTHER_LIMITS % (LIMIT_PARAMS,)], capture_output=True, text=True,
+                         timeout=120)
+    assert res.returncode == 0, res.stderr
+    defaults, gzip_help = res.stdout.splitlines()
+    assert json.loads(defaults) == {"max_record_mb": 3, "max_line_mb": 2.5, "max_depth": 17, "max_gzip_ratio": 33.5}
+    assert gzip_help.endswith("(checked past 1 MB).")

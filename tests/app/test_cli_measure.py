@@ -82,3 +82,23 @@ def test_correlate_on_the_invented_occupation_table(demo_dir, tmp_path):
                                    "--table", str(ROOT / "corpora_demo" / "occupation_shares.csv"),
                                    "--value-column", "share_women"])
     assert res.exit_code == 1 and "no column 'word'" in res.stderr
+
+
+def test_correlate_normalises_table_words_by_the_workspaces_case_rule(tmp_path):
+    # an invented corpus in Turkish spelling, ingested under the Turkish case rule: the table's
+    # upper-case "KIZ" must become the corpus's "kız" (I -> dotless ı), which plain case folding
+    # ("kiz") would miss
+    import numpy as np
+    from tests.conftest import write_jsonl
+    rng = np.random.default_rng(5)
+    vocab = ["kız", "ışık", "ılık", "sıcak", "anne", "baba", "yol", "ev", "su", "kar"]
+    records = [{"id": f"t{i}", "source": "Kuzey", "text": " ".join(rng.choice(vocab, 40))} for i in range(60)]
+    write_jsonl(tmp_path / "t.jsonl", records)
+    run("ingest", tmp_path / "t.jsonl", "-w", tmp_path / "ws", "--case-rule", "turkish")
+    (tmp_path / "tests.toml").write_text('[tests.sicak]\ntargets_x = ["kız", "ışık", "ılık", "sıcak"]\n'
+                                         'attributes_a = ["anne"]\nattributes_b = ["baba"]\n', encoding="utf-8")
+    (tmp_path / "table.csv").write_text("word,value\nKIZ,1\nIŞIK,2\nILIK,3\nSICAK,4\n", encoding="utf-8")
+    out = json.loads(run("correlate", "-w", tmp_path / "ws", "--tests", tmp_path / "tests.toml", "--test", "sicak",
+                         "--table", tmp_path / "table.csv", "--value-column", "value", "--dim", "4",
+                         "--resamples", "0", "--format", "json").stdout)
+    assert [(r["n_words"], r["words_missing"]) for r in out] == [(4, []), (4, [])]

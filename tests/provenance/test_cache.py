@@ -87,3 +87,71 @@ def test_prune_removes_other_corpora_and_versions_first_then_the_oldest(cached_l
     size = sum(f.stat().st_size for f in later.rglob("*") if f.is_file())
     assert cache.prune(cached_lee.corpus_hash, max_bytes=size)[0] == 1
     assert not newest.exists() and later.is_dir()
+
+
+# A writer of one cache entry, run as its own process. Its os.replace (the rename that commits an
+# entry) first waits until every writer has reached it, so both processes have checked that the
+# entry is missing and written their whole temporary copy before either commits: the interleaving
+# that concurrent writers meet by chance, made certain.
+WRITER = """
+import os, sys, time
+from pathlib import Path
+import numpy as np, scipy.sparse as sp
+from tracer.core.counting import Counts, CountSettings, ModelVocab
+from tracer.provenance.cache import ResultCache
+
+folder, me, writers = Path(sys.argv[1]), sys.argv[2], int(sys.argv[3])
+real_replace = os.replace
+
+def replace_together(src, dst):
+    if Path(dst).name.startswith("counts-"):
+        (folder.parent / f"ready-{me}").touch()
+        deadline = time.monotonic() + 60
+        while len(list(folder.parent.glob("ready-*"))) < writers and time.monotonic() < deadline:
+            time.sleep(0.01)
+    return real_replace(src, dst)
+
+os.replace = replace_together
+matrix = sp.csr_array(np.array([[0.0, 2.0, 1.0], [2.0, 0.0, 0.0], [1.0, 0.0, 4.0]]))
+counts = Counts(matrix, ModelVocab(["a", "b", "c"], np.arange(3), np.array([3, 2, 5])), CountSettings(), "all")
+cache = ResultCache(folder)
+key = ResultCache.key("corpus", np.ones(3), "counts")
+cache.put_counts(key, counts, "corpus")
+print(key)
+"""
+
+
+def test_two_processes_writing_the_same_entry_both_succeed_and_leave_it_whole(tmp_path):
+    import subprocess
+    import sys
+    folder = tmp_path / "cache"
+    procs = [subprocess.Popen([sys.executable, "-c", WRITER, str(folder), str(i), "2"], stdout=subprocess.PIPE,
+                              stderr=subprocess.PIPE, text=True) for i in range(2)]
+    results = [p.communicate(timeout=120) + (p.returncode,) for p in procs]
+    for out, err, code in results:
+        assert code == 0, err
+    assert len(list(tmp_path.glob("ready-*"))) == 2  # both really reached the rename
+    key = results[0][0].strip()
+    assert [p.name for p in folder.iterdir()] == [f"counts-{key}"]  # one entry, no temporary folder left
+    got = ResultCache(folder).get_counts(key)
+    expected = np.array([[0.0, 2.0, 1.0], [2.0, 0.0, 0.0], [1.0, 0.0, 4.0]])
+    np.testing.assert_array_equal(got.matrix.toarray(), expected)
+    assert got.vocab.words == ["a", "b", "c"] and got.vocab.counts.tolist() == [3, 2, 5]
+
+
+def test_a_stored_model_is_written_under_the_workspace_lock(small_ws, monkeypatch):
+    import tracer.provenance.models as models
+    from tracer.corpus.lock import holds_lock
+    held = []
+    real_save = models.save_embedding
+
+    def save(emb, folder):
+        held.append(holds_lock(small_ws.path))
+        return real_save(emb, folder)
+
+    monkeypatch.setattr(models, "save_embedding", save)
+    emb = train_embedding(small_ws, slice_from_spec(small_ws, "all"), "ppmi-svd", CountSettings(min_count=1),
+                          PpmiSvdSettings(dim=3))
+    assert held == [True] and not holds_lock(small_ws.path)  # held while writing, released after
+    stored = models.load_embedding(small_ws, "ppmi-svd", "all")
+    np.testing.assert_array_equal(stored.vectors, emb.vectors)

@@ -2,7 +2,7 @@ from pathlib import Path
 
 import pytest
 
-from tracer.provenance.experiment import load_experiment
+from tracer.provenance.experiment import experiment_summary, load_experiment
 from tracer.errors import InputError
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -27,6 +27,19 @@ def test_defaults_fill_in(tmp_path):
     p.write_text(GOOD, encoding="utf-8")
     exp = load_experiment(p)
     assert exp.workspace == (tmp_path / "w").resolve() and exp.bootstrap == 20 and exp.measure_slices == ("all",)
+    # case folding as ingest; each slice its own words in measure, the words of every period in drift
+    assert exp.tokenizer.case_rule == "fold" and exp.per_slice_words and not exp.drift_per_slice_words
+
+
+def test_case_rule_and_per_slice_words_are_read_and_part_of_the_run_settings(tmp_path):
+    p = tmp_path / "e.toml"
+    p.write_text(GOOD.replace('workspace = "w"', 'workspace = "w"\ncase_rule = "turkish"')
+                 + "per_slice_words = false\n[drift]\nper_slice_words = true\n", encoding="utf-8")
+    exp = load_experiment(p)
+    assert exp.tokenizer.case_rule == "turkish" and not exp.per_slice_words and exp.drift_per_slice_words
+    summary = experiment_summary(exp)  # the resolved settings the run key is made of
+    assert summary["tokenizer"]["case_rule"] == "turkish"
+    assert summary["per_slice_words"] is False and summary["drift_per_slice_words"] is True
 
 
 # each bad file and the exact message it must produce ({p} is the file's path)
@@ -47,6 +60,14 @@ BAD = [
      "{p}: weighting must be one of uniform, harmonic, linear; got 'gauss'"),
     (GOOD + "\n[counts]\nlowercase = true\n", "{p}, line 9: unknown key counts.lowercase"),
     ("[corpus\n", "{p}: not valid TOML"),
+    (GOOD.replace('workspace = "w"', 'workspace = "w"\ncase_rule = "greek"'),
+     "{p}, line 4: corpus.case_rule is 'greek'; use fold or turkish"),
+    (GOOD.replace('workspace = "w"', 'workspace = "w"\ncase_rule = "lower"'),
+     "{p}, line 4: corpus.case_rule is 'lower'; use fold or turkish"),
+    (GOOD.replace('workspace = "w"', 'workspace = "w"\nlowercase = false\ncase_rule = "turkish"'),
+     "{p}, line 5: corpus.case_rule applies only when words are lower-cased"),
+    (GOOD + 'per_slice_words = "yes"\n', "{p}, line 7: measure.per_slice_words must be a true or false, not 'yes'"),
+    (GOOD + "\n[drift]\nper_slice_words = 1\n", "{p}, line 9: drift.per_slice_words must be a true or false, not 1"),
 ]
 
 

@@ -205,3 +205,51 @@ def test_a_failing_report_or_slice_does_not_lose_the_run(lee_exp, monkeypatch):
     assert rows["source=Bramble Wire"]["measured"] is False
     assert rows["source=Bramble Wire"]["reason"] == "ValueError: cannot measure here"
     assert rows["source=Ashford Post"]["measured"] is True
+
+
+def test_experiment_keys_choose_the_case_rule_and_the_word_sets(tmp_path):
+    # "metres" occurs 4, 28 and 2 times in the three sources (counted from gensim's Lee corpus):
+    # below min_count 3 in Cinder Daily only
+    exp_file = _lee_folder(tmp_path)
+    (tmp_path / "tests.toml").write_text(TESTS.replace('"security"]', '"security", "metres"]'), encoding="utf-8")
+    text = EXPERIMENT.replace('workspace = "ws"', 'workspace = "ws"\ncase_rule = "turkish"')
+    exp_file.write_text(text.replace("bootstrap = 0", "bootstrap = 0\nper_slice_words = false"), encoding="utf-8")
+    common = run_experiment(load_experiment(exp_file))
+    manifest = json.loads((common.folder / "run.json").read_text(encoding="utf-8"))["manifest"]
+    assert manifest["tokenizer"]["case_rule"] == "turkish"  # the ingest used the experiment's rule
+    rows = {r["slice"]: r for r in _measure_rows(common.folder)}
+    assert set(rows) == {"all", "source=Ashford Post", "source=Bramble Wire", "source=Cinder Daily"}
+    # under the Turkish rule the corpus's "Israeli" is "ısraeli" (dotless), so the typed "israeli" is unknown
+    assert rows["all"]["dropped_words"] == ["israeli"]
+    for name, r in rows.items():  # every slice compares the words known in all of them
+        assert r["word_sets"] == "common" and r["n_targets_x"] == 3, name
+    assert rows["source=Ashford Post"]["not_in_every_slice"] == ["metres"]
+    assert rows["source=Cinder Daily"]["dropped_words"] == ["metres", "israeli"]
+    exp_file.write_text(text, encoding="utf-8")  # the default: each slice keeps the words it knows
+    own = run_experiment(load_experiment(exp_file))
+    assert not own.reused and own.folder != common.folder
+    rows = {r["slice"]: r for r in _measure_rows(own.folder)}
+    assert rows["source=Ashford Post"]["word_sets"] == "per slice" and rows["source=Ashford Post"]["n_targets_x"] == 4
+    assert rows["source=Cinder Daily"]["n_targets_x"] == 3
+
+
+def test_drift_takes_its_own_per_slice_words_key(lee_exp, monkeypatch):
+    import tracer.analysis.drift as drift
+    measure_part = EXPERIMENT.replace("bootstrap = 0", "bootstrap = 0\nper_slice_words = false")
+    (lee_exp.parent / "exp.toml").write_text(measure_part + '[drift]\ntests = ["power"]\nby = "time:10y"\n'
+                                             'bootstrap = 0\nper_slice_words = true\n', encoding="utf-8")
+    seen = {}
+    real_measure = pipeline.measure
+
+    def measure(*args, **kwargs):
+        seen["measure"] = args[6].per_slice_words
+        return real_measure(*args, **kwargs)
+
+    def drift_tests(ws, tests, model, periods, counts, svd, settings, progress=False):
+        seen["drift"] = settings.per_slice_words
+        return {}
+
+    monkeypatch.setattr(pipeline, "measure", measure)
+    monkeypatch.setattr(drift, "drift_tests", drift_tests)
+    run_experiment(load_experiment(lee_exp.parent / "exp.toml"))
+    assert seen == {"measure": False, "drift": True}

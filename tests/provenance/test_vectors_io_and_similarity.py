@@ -57,3 +57,26 @@ def test_missing_model_and_bad_vector_file(lee_ws, tmp_path):
     (tmp_path / "junk.txt").write_text("not a vector file\n", encoding="utf-8")
     with pytest.raises(InputError, match="not a word2vec text file"):
         read_word2vec_format(tmp_path / "junk.txt")
+
+
+def test_similarity_pairs_are_normalised_like_the_corpus(tmp_path):
+    from scipy import stats
+    from tracer.corpus.tokenize import TokenizerSettings
+    rng = np.random.default_rng(3)
+    words = ["strasse", "k\u0131z", "caf\u00e9", "weg", "haus", "kind"]  # forms the corpus's tokens take
+    emb = Embedding(words, rng.normal(size=(6, 5)).astype(np.float32), {})
+    pairs_file = tmp_path / "pairs.tsv"
+    # typed as a person writes them: German capitals (ß folds to ss), Turkish capital I, NFD é
+    pairs_file.write_text("STRASSE\tWeg\t7.5\nStraße\tHaus\t6\nKIZ\tKind\t8\nCafe\u0301\tHaus\t2\n",
+                          encoding="utf-8")
+    pairs = read_pairs(pairs_file)
+    got = evaluate_similarity(emb, pairs, TokenizerSettings(case_rule="turkish"))
+    assert (got.pairs_used, got.pairs_total) == (4, 4)
+    # reference: scipy.stats.spearmanr on the cosines of the four pairs, computed here with numpy
+    unit = emb.vectors / np.linalg.norm(emb.vectors, axis=1, keepdims=True)
+    idx = {w: i for i, w in enumerate(words)}
+    cos = [float(unit[idx[a]] @ unit[idx[b]]) for a, b in
+           [("strasse", "weg"), ("strasse", "haus"), ("k\u0131z", "kind"), ("caf\u00e9", "haus")]]
+    assert got.spearman_rho == pytest.approx(stats.spearmanr(cos, [7.5, 6, 8, 2]).statistic, abs=1e-6)
+    # under plain case folding "KIZ" is "kiz", another word than the corpus's "kız"
+    assert evaluate_similarity(emb, pairs, TokenizerSettings()).pairs_used == 3

@@ -148,11 +148,14 @@ def bootstrap_stream(seed: int, slice_name: str) -> np.random.Generator:
 def measure(ws, tests: dict[str, AssociationTest], model: str, slices: list[Slice],
             counts: CountSettings = CountSettings(), model_settings=None,
             settings: MeasureSettings = MeasureSettings(), *, vectors: Embedding | None = None,
-            progress: bool = False) -> MeasureResult:
+            shared_words: set[str] | None = None, progress: bool = False) -> MeasureResult:
     """Measure every test on every slice with one model, and on ``vectors`` trained elsewhere if given.
 
     With more than one slice (and ``settings.per_slice_words`` off) each test keeps only the
-    words known in every slice, so that all slices compare the same word sets.
+    words known in every slice, so that all slices compare the same word sets. A caller that
+    measures the slices it compares one call at a time (``tracer run``) passes those words as
+    ``shared_words`` (:func:`common_words` over all of them); they are used in place of this
+    call's own common words unless ``settings.per_slice_words``.
 
     Returns
     -------
@@ -177,8 +180,8 @@ def measure(ws, tests: dict[str, AssociationTest], model: str, slices: list[Slic
     tests = normalized_tests(tests, ws)
     compared = len(slices) + (vectors is not None)
     common = None
-    if compared > 1 and not settings.per_slice_words:
-        common = common_words(ws, tests, slices, counts)
+    if not settings.per_slice_words and (shared_words is not None or compared > 1):
+        common = set(shared_words) if shared_words is not None else common_words(ws, tests, slices, counts)
         if vectors is not None:
             common &= set(vectors.index)
     used = {n: restricted(t, common) for n, t in tests.items()} if common is not None else dict(tests)

@@ -90,7 +90,7 @@ def _usefulness(ws, sl, mask, emb_before, emb_after, frequent, counts, settings,
         rows.append({"measure": f"the same after removing {len(take)} random documents ({tokens} tokens or more)",
                      "before": 1.0, "after": neighbour_overlap(emb_before, rand, frequent)})
     pairs = read_pairs(bundled_wordsim353())
-    b, a = evaluate_similarity(emb_before, pairs), evaluate_similarity(emb_after, pairs)
+    b, a = (evaluate_similarity(e, pairs, ws.tokenizer_settings) for e in (emb_before, emb_after))
     if min(b.pairs_used, a.pairs_used) >= WORDSIM_MIN_PAIRS:
         rows.append({"measure": "WordSim-353 Spearman rho", "before": b.spearman_rho, "after": a.spearman_rho})
     rows.append({"measure": f"WordSim-353 pairs covered (rho shown only from {WORDSIM_MIN_PAIRS})",

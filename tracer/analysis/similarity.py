@@ -9,6 +9,7 @@ from scipy import stats
 
 from tracer.errors import InputError
 from tracer.core.embedding import Embedding
+from tracer.corpus.tokenize import TokenizerSettings, normalize_text
 
 
 @dataclasses.dataclass(frozen=True)
@@ -39,12 +40,16 @@ def read_pairs(path: str | Path) -> list[tuple[str, str, float]]:
 
 
 def evaluate_similarity(emb: Embedding, pairs: list[tuple[str, str, float]],
-                        lowercase: bool = True) -> SimilarityResult:
-    """Cosine similarity against human scores over the pairs whose both words are known."""
+                        settings: TokenizerSettings | None = None) -> SimilarityResult:
+    """Cosine similarity against human scores over the pairs whose both words are known.
+
+    The words of each pair are normalised as the corpus text was (``settings``: the workspace's
+    tokenizer settings; default those of a new workspace).
+    """
+    settings = settings or TokenizerSettings()
     model, human = [], []
     for a, b, score in pairs:
-        if lowercase:
-            a, b = a.lower(), b.lower()
+        a, b = normalize_text(a.strip(), settings), normalize_text(b.strip(), settings)
         if a in emb and b in emb:
             model.append(emb.similarity(a, b))
             human.append(score)

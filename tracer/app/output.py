@@ -13,10 +13,16 @@ The terminal rules, one for every command:
   (ending in an ellipsis; a file path keeps its end instead), columns that do not fit are left off from the right (commands put
   the columns that matter first), and a line under the table names them;
 - prose (notes, legends, cautions) is wrapped to the same width.
+
+Every CSV the tool writes (``--format csv`` and a run's tables) is safe to open in a spreadsheet:
+a text cell, column names included, that begins with ``=``, ``+``, ``-``, ``@``, a tab or a carriage
+return gets a single quote (``'``) in front, so it is shown as text and never evaluated as a formula.
+Numbers are written as numbers, a negative one included (see ``spreadsheet_safe``).
 """
 
 from __future__ import annotations
 
+import csv
 import json
 import math
 import textwrap
@@ -31,6 +37,9 @@ TERMINAL_WIDTH = 100
 MAX_TEXT_WIDTH = 40
 MIN_TEXT_WIDTH = 12
 ELLIPSIS = "…"
+# first characters a spreadsheet may read as the start of a formula (or, tab and CR, of a cell
+# that an importer shifts so that the formula starts it)
+FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
 
 
 def plain_values(value):
@@ -95,6 +104,47 @@ def _cell(v) -> str:
     if isinstance(v, float):
         return format_number(v)
     return str(v)
+
+
+def safe_text(value):
+    """``value`` with a single quote in front when it is text beginning with FORMULA_STARTS;
+    anything else (numbers, None, other text) unchanged."""
+    if isinstance(value, str) and value.startswith(FORMULA_STARTS):
+        return "'" + value
+    return value
+
+
+def spreadsheet_safe(df: pd.DataFrame) -> pd.DataFrame:
+    """A copy of ``df`` whose text cells and column names cannot start a spreadsheet formula.
+
+    Only ``str`` cells change (by ``safe_text``); numeric columns, and numbers inside a mixed
+    column, are left as they are, so ``pandas.read_csv`` reads them back unchanged.
+    """
+    out = df.copy()
+    for c in out.columns:
+        if not (pd.api.types.is_numeric_dtype(out[c]) or pd.api.types.is_bool_dtype(out[c])):
+            out[c] = out[c].map(safe_text)
+    out.columns = [safe_text(c) for c in out.columns]
+    return out
+
+
+def csv_text(df: pd.DataFrame) -> str:
+    """The table as CSV without the index, its text cells made spreadsheet-safe.
+
+    Python's csv writer (below 3.12) leaves a field holding a lone carriage return unquoted
+    when rows end in ``\n``, and an importer would start a new row there (a quoted ``'\r=...``
+    would become a row beginning ``=...``); a table with a carriage return in its text is
+    therefore written with every text cell quoted.
+    """
+    return _to_csv(spreadsheet_safe(df))
+
+
+def _to_csv(safe: pd.DataFrame) -> str:
+    """CSV of a table already made safe, quoting every text cell when one holds a carriage return."""
+    texts = [str(c) for c in safe.columns] + [v for c in safe.columns if not pd.api.types.is_numeric_dtype(safe[c])
+                                              for v in safe[c] if isinstance(v, str)]
+    quoting = csv.QUOTE_NONNUMERIC if any("\r" in t for t in texts) else csv.QUOTE_MINIMAL
+    return safe.to_csv(index=False, quoting=quoting)
 
 
 def _column_cells(col: pd.Series) -> tuple[list[str], bool]:
@@ -190,7 +240,7 @@ def render(df: pd.DataFrame, fmt: str = "table", *, width: int | None = TERMINAL
         out = df.copy()
         for c in listy:
             out[c] = out[c].map(lambda v: format_list(v) if isinstance(v, (list, tuple)) else v)
-        return out.to_csv(index=False)
+        return csv_text(out)
     if fmt != "table":
         raise ValueError(f"unknown format {fmt!r}")
     return table_text(df, width=width)
@@ -202,7 +252,9 @@ def render_mapping(data: dict, fmt: str = "table", *, width: int | None = TERMIN
         return json.dumps(plain_values(data), indent=1, ensure_ascii=False) + "\n"
     values = [_cell(v) for v in data.values()]
     if fmt == "csv":
-        return pd.DataFrame({"key": list(data.keys()), "value": values}).to_csv(index=False)
+        # a number stays a number (its text is not quoted); text and lists are made safe
+        cells = [safe_text(v) if isinstance(raw, (str, list, tuple)) else v for raw, v in zip(data.values(), values)]
+        return _to_csv(pd.DataFrame({"key": [safe_text(k) for k in data], "value": cells}))
     key_width = max(len(k) for k in data) if data else 0
     lines = [f"{k.ljust(key_width)}  {v}" for k, v in zip(data, values)]
     if width is not None:

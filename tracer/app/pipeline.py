@@ -28,8 +28,8 @@ from typing import Callable
 
 import pandas as pd
 
-from tracer.analysis.measure import MeasureSettings, SUMMARY_COLUMNS, measure
-from tracer.app.output import plain_values, to_records
+from tracer.analysis.measure import MeasureSettings, SUMMARY_COLUMNS, common_words, measure
+from tracer.app.output import csv_text, plain_values, to_records
 from tracer.core.association import AssociationTest
 from tracer.corpus.ingest import ingest
 from tracer.corpus.lock import workspace_lock
@@ -39,7 +39,7 @@ from tracer.provenance.cache import open_workspace
 from tracer.provenance.experiment import Experiment, experiment_summary
 from tracer.provenance.runs import (RUNS_DIR, RunFolder, RunResult, checkpoint, clean_abandoned, file_sha256,
                                     find_run, reusable_run, run_key, table_stem)
-from tracer.provenance.specs import load_tests, select_tests
+from tracer.provenance.specs import load_tests, normalized_tests, select_tests
 from tracer.files import write_atomic
 from tracer.versions import package_versions
 
@@ -183,15 +183,16 @@ def _analyses(exp: Experiment, ws, plan: RunPlan, parts: _Parts, progress: bool)
 def _measure(exp: Experiment, ws, plan: RunPlan, parts: _Parts, progress: bool) -> None:
     """Measure slice by slice (the results do not depend on it); a failing slice is retried test by test."""
     summaries, words = [], []
+    shared = None if exp.per_slice_words or len(plan.slices) < 2 else _shared_words(ws, plan, exp.counts)
     for model in exp.models:
         parts.say(f"measuring {len(plan.tests)} tests with {model} on {len(plan.slices)} slices")
         ms = MeasureSettings(bootstrap=exp.bootstrap if model == "ppmi-svd" else 0,
                              seeds=exp.word2vec_seeds if model == "word2vec" else 1, seed=exp.seed,
-                             min_words=exp.min_words, alpha=exp.ppmi_svd.alpha)
+                             min_words=exp.min_words, alpha=exp.ppmi_svd.alpha, per_slice_words=exp.per_slice_words)
         settings = exp.ppmi_svd if model == "ppmi-svd" else exp.word2vec
 
         def one(tests, sl):
-            return measure(ws, tests, model, [sl], exp.counts, settings, ms, progress=progress)
+            return measure(ws, tests, model, [sl], exp.counts, settings, ms, shared_words=shared, progress=progress)
 
         for sl in plan.slices:
             r = parts.attempt("measure", f"{model} {sl.name}", lambda: one(plan.tests, sl))
@@ -211,6 +212,22 @@ def _measure(exp: Experiment, ws, plan: RunPlan, parts: _Parts, progress: bool) 
                     summaries.append(_not_measured_row(test, model, sl, reason))
     parts.tables["measure"] = pd.concat(summaries, ignore_index=True)
     parts.tables["measure_words"] = pd.concat(words, ignore_index=True) if words else pd.DataFrame()
+
+
+def _shared_words(ws, plan: RunPlan, counts) -> set[str]:
+    """The test words known in every slice the run compares (what ``measure`` keeps by default).
+
+    A slice without any word at the minimum count restricts nothing: it is reported as not
+    measured on its own.
+    """
+    tests = normalized_tests(plan.tests, ws)
+    known = {w for t in tests.values() for w in t.all_words}
+    for sl in plan.slices:
+        try:
+            known &= common_words(ws, tests, [sl], counts)
+        except SliceError:
+            continue
+    return known
 
 
 def _not_measured_row(test: AssociationTest, model: str, sl: Slice, reason: str) -> pd.DataFrame:
@@ -238,7 +255,7 @@ def _drift(exp, ws, plan: RunPlan, parts: _Parts, progress) -> None:
     from tracer.analysis.drift import drift_tests
     parts.say(f"drift of {', '.join(plan.drift_tests)} by {exp.drift_by}")
     ms = MeasureSettings(bootstrap=exp.drift_bootstrap, seed=exp.seed, min_words=exp.min_words,
-                         alpha=exp.ppmi_svd.alpha)
+                         alpha=exp.ppmi_svd.alpha, per_slice_words=exp.drift_per_slice_words)
 
     def run(tests):
         return drift_tests(ws, tests, "ppmi-svd", plan.periods, exp.counts, exp.ppmi_svd, ms, progress=progress)
@@ -267,7 +284,7 @@ def _store(exp: Experiment, ws, folder: RunFolder, parts: _Parts, key: str, file
     parts.tables["not_measured"] = pd.DataFrame(parts.not_measured, columns=["part", "name", "reason"])
     stems = {name: table_stem(name) for name in parts.tables}
     for name, df in parts.tables.items():
-        df.to_csv(folder.tmp / "tables" / f"{stems[name]}.csv", index=False)
+        (folder.tmp / "tables" / f"{stems[name]}.csv").write_text(csv_text(df), encoding="utf-8")
         (folder.tmp / "tables" / f"{stems[name]}.json").write_text(
             json.dumps(to_records(df), ensure_ascii=False, indent=1), encoding="utf-8")
     checkpoint("tables")
@@ -295,7 +312,7 @@ def _store(exp: Experiment, ws, folder: RunFolder, parts: _Parts, key: str, file
                   errors=(Exception,))
     if len(parts.not_measured) > len(parts.tables["not_measured"]):  # the report failed: say so in the run too
         failed = pd.DataFrame(parts.not_measured, columns=["part", "name", "reason"])
-        failed.to_csv(folder.tmp / "tables" / "not_measured.csv", index=False)
+        (folder.tmp / "tables" / "not_measured.csv").write_text(csv_text(failed), encoding="utf-8")
         (folder.tmp / "tables" / "not_measured.json").write_text(
             json.dumps(to_records(failed), ensure_ascii=False, indent=1), encoding="utf-8")
         status = write_info()

@@ -5,8 +5,9 @@ the vocabulary given (if any), the model settings and the versions of tracer, nu
 scipy (an entry made by another version, whose counting or SVD may differ, is never
 reused). Only slices (weights of exactly 0 and 1) are cached: :meth:`ResultCache.key`
 refuses other weights, so a bootstrap replicate or a reweighted period can never be
-stored or found under a slice's key. Entries are written into a temporary folder and
-renamed into place whole, and never pickled.
+stored or found under a slice's key. Entries are written into a temporary folder of their
+writer's own and renamed into place whole (the first writer of a key wins, see
+:meth:`ResultCache._commit`), and never pickled.
 
 Every entry holds ``entry.json`` (corpus hash, versions, kind). :meth:`ResultCache.prune`
 removes entries of other corpus hashes or versions first, then the least recently used,
@@ -16,11 +17,12 @@ until the cache fits a size limit (``tracer cache prune``; ``tracer run`` prunes
 
 from __future__ import annotations
 
+import errno
 import hashlib
 import json
 import os
 import shutil
-import time
+import uuid
 from pathlib import Path
 
 import numpy as np
@@ -99,15 +101,26 @@ class ResultCache:
         return h.hexdigest()[:24]
 
     def _tmp(self, kind: str, key: str) -> Path:
-        return self.folder / f"{TMP_PREFIX}{kind}-{key}-{os.getpid()}-{time.monotonic_ns()}"
+        # unique per writer, threads of one process included (the pid is for prune: a living
+        # writer's folder is left alone)
+        return self.folder / f"{TMP_PREFIX}{kind}-{key}-{os.getpid()}-{uuid.uuid4().hex}"
 
     def _commit(self, tmp: Path, final: Path, kind: str, corpus_hash: str) -> None:
+        """Rename the whole temporary entry into place; the first writer of a key wins.
+
+        Two writers of one key (two processes, or a library user beside ``tracer run``) each
+        write a folder of their own, so neither can mix files into the other's; renaming a folder
+        onto an existing entry fails (ENOTEMPTY or EEXIST), and the loser drops its copy, which
+        holds the same content, since the key names everything the content was made from.
+        """
         (tmp / "entry.json").write_text(json.dumps({"kind": kind, "corpus_hash": corpus_hash,
                                                     "versions": versions_tag()}), encoding="utf-8")
-        if final.exists():  # made meanwhile by another writer: same key, same content
+        try:
+            os.replace(tmp, final)
+        except OSError as e:
+            if e.errno not in (errno.ENOTEMPTY, errno.EEXIST) or not final.is_dir():
+                raise
             shutil.rmtree(tmp, ignore_errors=True)
-            return
-        os.replace(tmp, final)
 
     @staticmethod
     def _touch(folder: Path) -> None:

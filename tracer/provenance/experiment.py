@@ -3,6 +3,7 @@
     [corpus]
     inputs = ["../corpora_demo/archive.jsonl.gz"]   # paths relative to this file
     workspace = "../demo-work"
+    case_rule = "fold"                              # or "turkish" (a new workspace's case rule)
 
     [counts]
     window = 5
@@ -18,6 +19,7 @@
     by = ["source", "time:10y"]
     slices = ["all"]
     bootstrap = 20
+    per_slice_words = true                          # default; false: only the words known in every slice
 
     [trace]
     tests = ["gazette_outlet"]
@@ -27,6 +29,13 @@
     [drift]
     tests = ["rise_and_fall", "tribune_mix"]
     by = "time:10y"
+    per_slice_words = false                         # default: the words known in every period
+
+``measure.per_slice_words`` defaults to true, unlike ``tracer measure``: a run measures slices
+of very different sizes side by side (the whole corpus, each source, each period), and the words
+common to all of them would let the smallest slice narrow every other; false compares only the
+words known in every slice of the run. Drift compares periods, so ``drift.per_slice_words``
+defaults to false, as ``tracer drift`` does.
 
 Unknown keys and wrong types are errors that name the key and its line.
 """
@@ -58,13 +67,13 @@ _TABLE = ("table", lambda v: isinstance(v, dict))
 SCHEMA = {
     "corpus": {"inputs": _LIST_OF_STR, "workspace": _STR, "text_field": _STR, "id_field": _STR,
                "source_field": _STR, "time_field": _STR, "title_field": _STR, "lowercase": _BOOL,
-               "normalization": _STR},
+               "normalization": _STR, "case_rule": _STR},
     "counts": {"window": _INT, "min_count": _INT, "weighting": _STR, "max_vocab": _INT},
     "models": {"use": _LIST_OF_STR, "ppmi_svd": _TABLE, "word2vec": _TABLE},
     "measure": {"tests": _STR, "by": _LIST_OF_STR, "slices": _LIST_OF_STR, "bootstrap": _INT, "seed": _INT,
-                "min_words": _INT},
+                "min_words": _INT, "per_slice_words": _BOOL},
     "trace": {"tests": _LIST_OF_STR, "slice": _STR, "top": _INT, "verify": _INT, "rank_by": _STR},
-    "drift": {"tests": _LIST_OF_STR, "by": _STR, "bootstrap": _INT, "words": _LIST_OF_STR},
+    "drift": {"tests": _LIST_OF_STR, "by": _STR, "bootstrap": _INT, "words": _LIST_OF_STR, "per_slice_words": _BOOL},
     "compute": {"scheduler": _STR},
 }
 _MODEL_KEYS = {
@@ -73,6 +82,9 @@ _MODEL_KEYS = {
                  "skip_gram": _BOOL},
 }
 REQUIRED = {("corpus", "inputs"), ("corpus", "workspace"), ("measure", "tests")}
+# the case rules an ingest may choose (the ingest command's --case-rule); "lower" is only the
+# recorded rule of workspaces made before there was a choice
+INGEST_CASE_RULES = ("fold", "turkish")
 
 
 @dataclasses.dataclass(frozen=True)
@@ -95,6 +107,7 @@ class Experiment:
     bootstrap: int
     seed: int
     min_words: int
+    per_slice_words: bool
     trace_tests: tuple[str, ...]
     trace_slice: str
     trace_top: int
@@ -104,6 +117,7 @@ class Experiment:
     drift_by: str
     drift_bootstrap: int
     drift_words: tuple[str, ...]
+    drift_per_slice_words: bool
     text: str
     scheduler: str | None = None  # a dask.distributed scheduler to count on ([compute] scheduler)
 
@@ -142,6 +156,19 @@ def _check_keys(table: dict, schema: dict, name: str, listing: str, where) -> No
         what, ok = schema[key]
         if not ok(v):
             raise InputError(f"{where(key)}: {name}.{key} must be a {what}, not {v!r}")
+
+
+def _tokenizer(c: dict, path: Path, text: str) -> TokenizerSettings:
+    """The tokenizer settings of ``[corpus]``; the case rule checked here so the error has its line."""
+    rule = c.get("case_rule", "fold")
+    if rule not in INGEST_CASE_RULES:
+        raise InputError(f"{_where(path, text, 'corpus', 'case_rule')}: corpus.case_rule is {rule!r}; "
+                         f"use {' or '.join(INGEST_CASE_RULES)}")
+    lowercase = c.get("lowercase", True)
+    if not lowercase and "case_rule" in c:
+        raise InputError(f"{_where(path, text, 'corpus', 'case_rule')}: corpus.case_rule applies only when "
+                         "words are lower-cased; remove it or lowercase = false")
+    return TokenizerSettings(lowercase=lowercase, normalization=c.get("normalization", "NFKC"), case_rule=rule)
 
 
 def load_experiment(path: str | Path) -> Experiment:
@@ -185,16 +212,18 @@ def load_experiment(path: str | Path) -> Experiment:
             fields=FieldMap(text=c.get("text_field", "text"), id=c.get("id_field", "id"),
                             source=c.get("source_field", "source"), time=c.get("time_field"),
                             title=c.get("title_field", "title")),
-            tokenizer=TokenizerSettings(lowercase=c.get("lowercase", True), normalization=c.get("normalization", "NFKC")),
+            tokenizer=_tokenizer(c, path, text),
             counts=CountSettings(**data.get("counts", {})),
             models=use, ppmi_svd=PpmiSvdSettings(**m.get("ppmi_svd", {})), word2vec=Word2VecSettings(**w2v),
             word2vec_seeds=seeds, tests_file=(base / meas["tests"]).resolve(),
             measure_by=tuple(meas.get("by", [])), measure_slices=tuple(meas.get("slices", ["all"])),
             bootstrap=meas.get("bootstrap", 20), seed=meas.get("seed", 0), min_words=meas.get("min_words", 3),
+            per_slice_words=meas.get("per_slice_words", True),
             trace_tests=tuple(tr.get("tests", [])), trace_slice=tr.get("slice", "all"), trace_top=tr.get("top", 20),
             trace_verify=tr.get("verify", 5), trace_rank_by=tr.get("rank_by", "gap"),
             drift_tests=tuple(dr.get("tests", [])), drift_by=dr.get("by", "time:10y"),
-            drift_bootstrap=dr.get("bootstrap", 20), drift_words=tuple(dr.get("words", [])), text=text,
+            drift_bootstrap=dr.get("bootstrap", 20), drift_words=tuple(dr.get("words", [])),
+            drift_per_slice_words=dr.get("per_slice_words", False), text=text,
             scheduler=data.get("compute", {}).get("scheduler"))
     except SettingError as e:
         raise InputError(f"{path}: {e}") from None

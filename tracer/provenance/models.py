@@ -13,6 +13,7 @@ import pandas as pd
 from tracer.core.counting import CountSettings, build_vocab
 from tracer.provenance.counts import count_slice
 from tracer.versions import package_versions
+from tracer.corpus.lock import workspace_lock
 from tracer.corpus.slices import Slice
 from tracer.provenance.cache import cacheable, counts_digest
 from tracer.errors import ModelNotFound, SettingError, SliceError
@@ -81,7 +82,10 @@ def train_embedding(ws, sl: Slice, model: str, counts: CountSettings,
     }
     emb = Embedding(list(vocab.words), vectors, card, extras)
     if save:
-        save_embedding(emb, model_folder(ws, model, sl.name))
+        # the folder is rewritten file by file: two writers of one slice at once could leave one's
+        # vectors under the other's card, so the store is written under the workspace's write lock
+        with workspace_lock(ws.path, command=f"store the {model} model of slice {sl.name}"):
+            save_embedding(emb, model_folder(ws, model, sl.name))
     return emb
 
 

@@ -10,6 +10,7 @@ from tracer.app.cli.group import cli, progress_on, say
 from tracer.app.cli.options import (LAYOUT_OPTION, PER_DOC_OPTION, TOP_DOCUMENTS_OPTION, counting_options, one_slice,
                                     one_slice_option, open_workspace, option_group, output_options, slice_options,
                                     words_of, workspace_option)
+from tracer.corpus.streams import ReadLimits
 
 FIELD_OPTIONS = [
     click.option("--text-field", default="text", show_default=True, help="Field holding the text."),
@@ -45,22 +46,42 @@ def _tokenizer(v: dict) -> dict:
                                            case_rule=v["case_rule"] or "fold")}
 
 
-LIMIT_OPTIONS = [
-    click.option("--max-record-mb", type=click.FloatRange(min=0.001), default=64, show_default=True,
-                 help="Largest record (also the CSV field limit); larger ones are rejected."),
-    click.option("--max-line-mb", type=click.FloatRange(min=0.001), default=64, show_default=True,
-                 help="Longest line of a JSONL or CSV file; longer ones are rejected unread."),
-    click.option("--max-depth", type=click.IntRange(min=1), default=64, show_default=True,
-                 help="Deepest nesting of a JSON record."),
-    click.option("--max-gzip-ratio", type=click.FloatRange(min=1, min_open=True), default=200, show_default=True,
-                 help="Largest decompressed/compressed size of a .gz input (checked past 64 MB)."),
-]
+_MIB = 2 ** 20
+
+
+def _plain(x: float) -> int | float:
+    """A whole number as an int, so --help shows ``64``, not ``64.0``."""
+    return int(x) if x == int(x) else x
+
+
+def _mb(n_bytes: int) -> int | float:
+    """A byte count in MB, as the limit options take it."""
+    return _plain(n_bytes / _MIB)
+
+
+def _limit_options() -> list:
+    # the defaults are ReadLimits' own, so the library and the command line cannot drift apart
+    d = ReadLimits()
+    return [
+        click.option("--max-record-mb", type=click.FloatRange(min=0.001), default=_mb(d.max_record_bytes),
+                     show_default=True, help="Largest record (also the CSV field limit); larger ones are rejected."),
+        click.option("--max-line-mb", type=click.FloatRange(min=0.001), default=_mb(d.max_line_bytes),
+                     show_default=True, help="Longest line of a JSONL or CSV file; longer ones are rejected unread."),
+        click.option("--max-depth", type=click.IntRange(min=1), default=d.max_depth, show_default=True,
+                     help="Deepest nesting of a JSON record."),
+        click.option("--max-gzip-ratio", type=click.FloatRange(min=1, min_open=True), default=_plain(d.max_gzip_ratio),
+                     show_default=True,
+                     help="Largest decompressed/compressed size of a .gz input (checked past "
+                          f"{_mb(d.gzip_ratio_floor_bytes)} MB)."),
+    ]
+
+
+LIMIT_OPTIONS = _limit_options()
 
 
 def _limits(v: dict) -> dict:
-    from tracer.corpus.readers import ReadLimits
-    return {"limits": ReadLimits(max_record_bytes=int(v["max_record_mb"] * 2 ** 20),
-                                 max_line_bytes=int(v["max_line_mb"] * 2 ** 20),
+    return {"limits": ReadLimits(max_record_bytes=int(v["max_record_mb"] * _MIB),
+                                 max_line_bytes=int(v["max_line_mb"] * _MIB),
                                  max_depth=v["max_depth"], max_gzip_ratio=v["max_gzip_ratio"])}
 
 

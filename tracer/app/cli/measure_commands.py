@@ -107,7 +107,7 @@ def correlate(workspace, tests_file, test_name, table_file, word_column, value_c
     from tracer.provenance.models import train_embedding
     ws = open_workspace(workspace)
     test = one_test(tests_file, test_name)
-    table = read_word_values(table_file, word_column, value_column)
+    table = read_word_values(table_file, word_column, value_column, ws.tokenizer_settings)
     pairs = [(train_embedding(ws, sl, model.name, counts, model.settings, save=False, progress=progress_on()),
               count_slice(ws, sl.weights, counts, slice_name=sl.name))
              for sl in steps(slices.resolve(ws), "correlate", "slices")]
