@@ -27,19 +27,19 @@ def test_defaults_fill_in(tmp_path):
     p.write_text(GOOD, encoding="utf-8")
     exp = load_experiment(p)
     assert exp.workspace == (tmp_path / "w").resolve() and exp.bootstrap == 20 and exp.measure_slices == ("all",)
-    # case folding as ingest; each slice its own words in measure, the words of every period in drift
-    assert exp.tokenizer.case_rule == "fold" and exp.per_slice_words and not exp.drift_per_slice_words
+    # case folding as ingest; the words known in every slice in measure and in drift (as the commands)
+    assert exp.tokenizer.case_rule == "fold" and not exp.per_slice_words and not exp.drift_per_slice_words
 
 
 def test_case_rule_and_per_slice_words_are_read_and_part_of_the_run_settings(tmp_path):
     p = tmp_path / "e.toml"
     p.write_text(GOOD.replace('workspace = "w"', 'workspace = "w"\ncase_rule = "turkish"')
-                 + "per_slice_words = false\n[drift]\nper_slice_words = true\n", encoding="utf-8")
+                 + "per_slice_words = true\n[drift]\nper_slice_words = true\n", encoding="utf-8")
     exp = load_experiment(p)
-    assert exp.tokenizer.case_rule == "turkish" and not exp.per_slice_words and exp.drift_per_slice_words
+    assert exp.tokenizer.case_rule == "turkish" and exp.per_slice_words and exp.drift_per_slice_words
     summary = experiment_summary(exp)  # the resolved settings the run key is made of
     assert summary["tokenizer"]["case_rule"] == "turkish"
-    assert summary["per_slice_words"] is False and summary["drift_per_slice_words"] is True
+    assert summary["per_slice_words"] is True and summary["drift_per_slice_words"] is True
 
 
 # each bad file and the exact message it must produce ({p} is the file's path)

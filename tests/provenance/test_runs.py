@@ -213,7 +213,7 @@ def test_experiment_keys_choose_the_case_rule_and_the_word_sets(tmp_path):
     exp_file = _lee_folder(tmp_path)
     (tmp_path / "tests.toml").write_text(TESTS.replace('"security"]', '"security", "metres"]'), encoding="utf-8")
     text = EXPERIMENT.replace('workspace = "ws"', 'workspace = "ws"\ncase_rule = "turkish"')
-    exp_file.write_text(text.replace("bootstrap = 0", "bootstrap = 0\nper_slice_words = false"), encoding="utf-8")
+    exp_file.write_text(text, encoding="utf-8")  # the default: the words known in every slice
     common = run_experiment(load_experiment(exp_file))
     manifest = json.loads((common.folder / "run.json").read_text(encoding="utf-8"))["manifest"]
     assert manifest["tokenizer"]["case_rule"] == "turkish"  # the ingest used the experiment's rule
@@ -225,7 +225,7 @@ def test_experiment_keys_choose_the_case_rule_and_the_word_sets(tmp_path):
         assert r["word_sets"] == "common" and r["n_targets_x"] == 3, name
     assert rows["source=Ashford Post"]["not_in_every_slice"] == ["metres"]
     assert rows["source=Cinder Daily"]["dropped_words"] == ["metres", "israeli"]
-    exp_file.write_text(text, encoding="utf-8")  # the default: each slice keeps the words it knows
+    exp_file.write_text(text.replace("bootstrap = 0", "bootstrap = 0\nper_slice_words = true"), encoding="utf-8")
     own = run_experiment(load_experiment(exp_file))
     assert not own.reused and own.folder != common.folder
     rows = {r["slice"]: r for r in _measure_rows(own.folder)}

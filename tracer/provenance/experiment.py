@@ -19,7 +19,7 @@
     by = ["source", "time:10y"]
     slices = ["all"]
     bootstrap = 20
-    per_slice_words = true                          # default; false: only the words known in every slice
+    per_slice_words = false                         # default: only the words known in every slice
 
     [trace]
     tests = ["gazette_outlet"]
@@ -31,11 +31,10 @@
     by = "time:10y"
     per_slice_words = false                         # default: the words known in every period
 
-``measure.per_slice_words`` defaults to true, unlike ``tracer measure``: a run measures slices
-of very different sizes side by side (the whole corpus, each source, each period), and the words
-common to all of them would let the smallest slice narrow every other; false compares only the
-words known in every slice of the run. Drift compares periods, so ``drift.per_slice_words``
-defaults to false, as ``tracer drift`` does.
+``per_slice_words`` defaults to false in both sections, as ``tracer measure`` and ``tracer drift``
+do: slices compared side by side use the words known in every one of them (the words dropped
+everywhere are listed). With slices of very different sizes the smallest one can then narrow
+every other; ``per_slice_words = true`` measures each slice on its own known words instead.
 
 Unknown keys and wrong types are errors that name the key and its line.
 """
@@ -218,7 +217,7 @@ def load_experiment(path: str | Path) -> Experiment:
             word2vec_seeds=seeds, tests_file=(base / meas["tests"]).resolve(),
             measure_by=tuple(meas.get("by", [])), measure_slices=tuple(meas.get("slices", ["all"])),
             bootstrap=meas.get("bootstrap", 20), seed=meas.get("seed", 0), min_words=meas.get("min_words", 3),
-            per_slice_words=meas.get("per_slice_words", True),
+            per_slice_words=meas.get("per_slice_words", False),
             trace_tests=tuple(tr.get("tests", [])), trace_slice=tr.get("slice", "all"), trace_top=tr.get("top", 20),
             trace_verify=tr.get("verify", 5), trace_rank_by=tr.get("rank_by", "gap"),
             drift_tests=tuple(dr.get("tests", [])), drift_by=dr.get("by", "time:10y"),
