@@ -37,7 +37,8 @@ def test_ablate_the_planted_outlet_removes_the_association(demo_ws):
     # the change has its own interval (paired bootstrap), centred on it, and says how it was made
     assert after.change_ci_low < after.change < after.change_ci_high
     assert after.change == pytest.approx((after.change_ci_low + after.change_ci_high) / 2)
-    assert after.change_interval == "change -/+ 1.96 sd over 4 paired document-bootstrap replicates"
+    assert after.change_interval == ("change -/+ t(n-1) x the delta method's standard error (both runs' gaps and "
+                                     "score sds) over 4 paired document-bootstrap replicates")
     assert np.isnan(before.change_ci_low) and before.change_interval == ""
 
 
@@ -96,7 +97,8 @@ def test_plan_reaches_a_reachable_goal_with_an_interval(demo_ws):
     assert p.reached and p.removed == ["Gazette"] and abs(p.verified_effect) <= 0.75
     assert p.message.startswith("goal reached")
     assert p.verified_low < p.verified_effect < p.verified_high
-    assert p.interval_method.startswith("estimate -/+ 1.96 sd of d over 3 document-bootstrap replicates")
+    assert p.interval_method.startswith("delta method on the bootstrap replicates' numerator and denominator")
+    assert "3 document-bootstrap replicates" in p.interval_method
     on_interval = plan(demo_ws, TESTS["gazette_outlet"], slice_from_spec(demo_ws, "all"), 0.75, unit="source",
                        bootstrap=3, on_interval=True)
     assert on_interval.reached is bool(max(abs(on_interval.verified_low), abs(on_interval.verified_high)) <= 0.75)

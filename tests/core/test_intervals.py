@@ -7,7 +7,8 @@ import pytest
 from scipy import stats
 
 from tracer.core.intervals import (MIN_REPLICATES, bootstrap_interval, combined_interval, difference_interval,
-                                   min_replicates_for_percentiles, percentile_interval, q_values, ratio_interval)
+                                   min_replicates_for_percentiles, percentile_interval, q_values, ratio_interval,
+                                   delta_interval)
 from tracer.errors import SettingError
 
 
@@ -82,6 +83,23 @@ def test_the_ratio_interval_is_the_delta_method_on_paired_replicates():
     fixed = ratio_interval(2.0, 1.0, 0.5, u, np.full(20, 0.5))
     assert fixed.se == pytest.approx(bootstrap_interval(2.0, u / 0.5).se, rel=1e-12)
     assert np.isnan(ratio_interval(1.0, 1.0, 0.0, u, v).low) and ratio_interval(1.0, 1.0, 0.5, u[:5], v[:5]).note
+
+
+def test_the_delta_interval_of_a_change_of_two_ratios_is_the_written_out_formula():
+    # d_a - d_b with d = gap / sd: gradient (1/s_a, -g_a/s_a^2, -1/s_b, g_b/s_b^2) at the full-data values,
+    # se^2 = g' Cov g with numpy's sample covariance of the four figures' replicates
+    rng = np.random.default_rng(6)
+    reps = rng.normal([0.3, 0.2, 0.5, 0.25], [0.05, 0.02, 0.04, 0.03], (25, 4))
+    reps[:, 1] += 0.2 * (reps[:, 0] - 0.3)
+    ga, sa, gb, sb = 0.3, 0.2, 0.5, 0.25
+    grad = np.array([1 / sa, -ga / sa ** 2, -1 / sb, gb / sb ** 2])
+    iv = delta_interval(ga / sa - gb / sb, grad, reps)
+    se = math.sqrt(grad @ np.cov(reps.T) @ grad)
+    half = stats.t.ppf(0.975, 24) * se
+    assert (iv.low, iv.high, iv.se, iv.df) == pytest.approx((-0.5 - half, -0.5 + half, se, 24), rel=1e-12)
+    reps[3, 2] = np.nan  # a replicate with a missing figure is left out whole
+    assert delta_interval(-0.5, grad, reps).n == 24
+    assert np.isnan(delta_interval(-0.5, [np.nan, 1, 1, 1], reps).low)
 
 
 def test_ratio_intervals_cover_a_ratio_of_means_95_percent_of_the_time():

@@ -9,7 +9,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from tracer.core.association import weat
+from tracer.core.association import effect_size_gradient, score_sd, weat
+from tracer.core.intervals import delta_interval
 from tracer.core.counting import CountSettings
 from tracer.corpus.slices import Slice, slice_from_spec
 from tracer.files import write_atomic
@@ -60,8 +61,9 @@ def ablate(ws, tests: dict[str, AssociationTest], model: str, sl: Slice, mask: n
     ``documents_dropped``, ``tokens_dropped`` and, on the after rows, ``change`` of the effect
     size with ``change_ci_low``/``change_ci_high`` made as ``change_interval`` says: for
     PPMI-SVD a paired document bootstrap (each replicate resamples the slice, then drops the
-    documents from that same resample, so what the two runs share cancels), the change -/+ 1.96
-    standard deviations of the replicate changes; for word2vec the seed spread of both runs.
+    documents from that same resample, so what the two runs share cancels), the change -/+ t(n-1)
+    delta-method standard errors from the replicates' gaps and score sds; for word2vec the seed
+    spread of both runs.
     """
     after = reduced_slice(sl, ws, mask, what)
     res = measure(ws, tests, model, [sl, after], counts, model_settings, settings).summary
@@ -71,31 +73,41 @@ def ablate(ws, tests: dict[str, AssociationTest], model: str, sl: Slice, mask: n
     res["tokens_dropped"] = np.where(res["run"] == "after", int(ws.documents["n_tokens"].to_numpy()[dropped].sum()), 0)
     before = res[res["run"] == "before"].set_index("test")["effect_size"]
     res["change"] = [r.effect_size - before[r.test] if r.run == "after" else np.nan for r in res.itertuples()]
-    sd, method = _change_sd(ws, tests, model, sl, after, res, counts, model_settings, settings)
-    res["change_ci_low"] = [r.change - Z95 * sd.get(r.test, np.nan) if r.run == "after" else np.nan
-                            for r in res.itertuples()]
-    res["change_ci_high"] = [r.change + Z95 * sd.get(r.test, np.nan) if r.run == "after" else np.nan
-                             for r in res.itertuples()]
+    ci, method = _change_intervals(ws, tests, model, sl, after, res, counts, model_settings, settings)
+    res["change_ci_low"] = [ci[r.test][0] if r.run == "after" and r.test in ci else np.nan for r in res.itertuples()]
+    res["change_ci_high"] = [ci[r.test][1] if r.run == "after" and r.test in ci else np.nan for r in res.itertuples()]
     res["change_interval"] = np.where(res["run"] == "after", method, "")
     return res
 
 
-def _change_sd(ws, tests, model, sl, after, res, counts, model_settings, settings) -> tuple[dict, str]:
-    """Standard deviation of the change of d per test, and how it was made."""
+def _change_intervals(ws, tests, model, sl, after, res, counts, model_settings, settings) -> tuple[dict, str]:
+    """The 95% interval of the change of d per test, and how it was made.
+
+    PPMI-SVD: a paired document bootstrap; the change d_after - d_before is a function of the two
+    runs' gaps and score sds, so its standard error is the delta method's on the replicates of those
+    four (derivatives at the two full-data models, as ``measure`` does for d), t(n-1), centred on the
+    change. word2vec: the seed spread of both runs' means, normal quantile.
+    """
     two = [t for t in tests.values() if t.two_target]
+    rows = res.set_index(["run", "test"])
     if model != "ppmi-svd":
         if settings.seeds < 2:
             return {}, "none (word2vec: give --seeds 2 or more for a seed-spread interval)"
-        spread = res.set_index(["run", "test"])["effect_size_seed_sd"]
-        return ({t.name: float(np.sqrt((spread[("before", t.name)] ** 2 + spread[("after", t.name)] ** 2)
-                                       / settings.seeds)) for t in two},
-                f"change -/+ 1.96 x the seed spread of both runs' means ({settings.seeds} seeds)")
+        spread = rows["effect_size_seed_sd"]
+        out = {}
+        for t in two:
+            sd = float(np.sqrt((spread[("before", t.name)] ** 2 + spread[("after", t.name)] ** 2) / settings.seeds))
+            change = float(rows.loc[("after", t.name), "change"])
+            out[t.name] = (change - Z95 * sd, change + Z95 * sd)
+        return out, f"change -/+ 1.96 x the seed spread of both runs' means ({settings.seeds} seeds)"
     if settings.bootstrap < 2:
         return {}, "none (give --bootstrap 2 or more for a paired bootstrap interval)"
     model_settings = model_settings or PpmiSvdSettings()
+    full_b = train_embedding(ws, sl, "ppmi-svd", counts, model_settings, save=False)
+    full_a = train_embedding(ws, after, "ppmi-svd", counts, model_settings, save=False)
     rng = np.random.default_rng([settings.seed, 23])
     members = np.flatnonzero(sl.weights > 0)
-    changes = {t.name: [] for t in two}
+    reps = {t.name: [] for t in two}
     for _ in range(settings.bootstrap):
         w = np.zeros_like(sl.weights)
         w[members] = rng.multinomial(len(members), np.full(len(members), 1.0 / len(members))) * sl.weights[members]
@@ -103,10 +115,21 @@ def _change_sd(ws, tests, model, sl, after, res, counts, model_settings, setting
         e_a = train_embedding(ws, after, "ppmi-svd", counts, model_settings, weights=w * (after.weights > 0),
                               save=False)
         for t in two:
-            changes[t.name].append(weat(e_a.unit_vectors, e_a.index, t, with_p=False).effect_size
-                                   - weat(e_b.unit_vectors, e_b.index, t, with_p=False).effect_size)
-    return ({name: float(np.nanstd(v, ddof=1)) for name, v in changes.items()},
-            f"change -/+ 1.96 sd over {settings.bootstrap} paired document-bootstrap replicates")
+            reps[t.name].append(_gap_and_sd(e_a, t) + _gap_and_sd(e_b, t))
+    out = {}
+    for t in two:
+        (ga, sa), (gb, sb) = _gap_and_sd(full_a, t), _gap_and_sd(full_b, t)
+        gradient = [*effect_size_gradient(ga, sa), *(-x for x in effect_size_gradient(gb, sb))]
+        i = delta_interval(float(rows.loc[("after", t.name), "change"]), gradient, reps[t.name])
+        out[t.name] = (i.low, i.high)
+    return out, (f"change -/+ t(n-1) x the delta method's standard error (both runs' gaps and score sds) over "
+                 f"{settings.bootstrap} paired document-bootstrap replicates")
+
+
+def _gap_and_sd(emb, test) -> tuple[float, float]:
+    """The gap and the score sd of a test on one model (d = gap / sd)."""
+    r = weat(emb.unit_vectors, emb.index, test, with_p=False)
+    return r.gap, score_sd(r)
 
 
 def write_filtered_corpus(ws, keep: np.ndarray, path: str | Path) -> int:

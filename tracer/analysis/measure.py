@@ -22,7 +22,8 @@ import pandas as pd
 from tqdm.auto import tqdm
 
 from tracer.core.association import (DEFAULT_EXACT_BUDGET, DEFAULT_MIN_WORDS, DEFAULT_PERMUTATIONS, STD_CONVENTION,
-                        association_scores, effect_size, permutation_p_value, ripa_direction, unit_rows, weat, word_sets)
+                        association_scores, effect_size, permutation_p_value, ripa_direction, score_sd, unit_rows, weat,
+                        word_sets)
 from tracer.core.counting import CountSettings, Counts, build_vocab
 from tracer.core.intervals import METHOD, RATIO_METHOD, bootstrap_interval, q_values, ratio_interval
 from tracer.provenance.counts import count_slice
@@ -284,7 +285,7 @@ def _measure_one(test, wsets, embs, c, ppmi, boot, settings, rng) -> dict:
                         n_resamples=settings.permutations) for e in embs]
         ds = np.array([r.effect_size for r in results])
         out.update(effect_size=float(ds.mean()), gap=float(np.mean([r.gap for r in results])),
-                   score_sd=float(np.mean([_score_sd(r) for r in results])),
+                   score_sd=float(np.mean([score_sd(r) for r in results])),
                    statistic=float(np.mean([r.statistic for r in results])),
                    # with several seeds the largest p-value is reported (the cautious choice)
                    p_value=float(max(r.p_value for r in results)), p_method=results[0].p_method,
@@ -385,10 +386,5 @@ def _bootstrap(ws, sl, c, tests, model, counts, model_settings, settings, emb, r
             rs = [weat(unit_rows(e.vectors), e.index, t, with_p=False) for e in reps]
             d[t.name].append(float(np.nanmean([r.effect_size for r in rs])))
             gaps[t.name].append(float(np.mean([r.gap for r in rs])))
-            sds[t.name].append(float(np.mean([_score_sd(r) for r in rs])))
+            sds[t.name].append(float(np.mean([score_sd(r) for r in rs])))
     return {name: (np.array(d[name]), np.array(gaps[name]), np.array(sds[name])) for name in d}
-
-
-def _score_sd(r) -> float:
-    """The denominator of d: the population sd of all target words' scores."""
-    return float(np.concatenate([r.scores_x, r.scores_y]).std(ddof=0))

@@ -23,7 +23,8 @@ from tracer.analysis.counterfactual import reduced_slice
 from tracer.analysis.influence import Attribution
 from tracer.analysis.measure import MeasureSettings, measure
 from tracer.analysis.plan_loss import loss_tables
-from tracer.core.association import AssociationTest, weat
+from tracer.core.association import AssociationTest, score_sd, weat
+from tracer.core.intervals import RATIO_METHOD, ratio_interval
 from tracer.core.counting import CountSettings
 from tracer.core.ppmi_svd import PpmiSvdSettings
 from tracer.corpus.slices import Slice
@@ -32,7 +33,6 @@ from tracer.provenance.counts import count_slice
 from tracer.provenance.specs import normalized_test
 from tracer.provenance.models import embedding_from_counts, train_embedding
 
-Z95 = 1.959964  # two-sided 95% point of the standard normal (scipy.stats.norm.ppf(0.975))
 MIN_KEPT_SUPPORT = 0.5  # share of a unit's own exact effect it must keep among the units chosen before it
 SOURCE_P = 0.05  # a source is dropped only if the test is significant inside it at this level
 
@@ -130,18 +130,21 @@ def _round(attr: Attribution, groups, names, tokens, support, target: float, bud
     return chosen, steps, current.effect_size
 
 
-def _bootstrap_interval(ws, sl: Slice, test, counts, settings, estimate: float, n: int, seed: int):
-    """estimate -/+ 1.96 standard deviations of d over ``n`` document-bootstrap replicates (cold SVD)."""
+def _bootstrap_interval(ws, sl: Slice, test, counts, settings, emb, n: int, seed: int):
+    """The interval of d on the model ``emb`` of the filtered corpus ``sl``: the delta method on the
+    gap and score sd of ``n`` document-bootstrap replicates (cold SVD each), as ``measure`` gives d's."""
     rng = np.random.default_rng([seed, 7])
     members = np.flatnonzero(sl.weights > 0)
-    values = []
+    reps = []
     for _ in range(n):
         w = np.zeros_like(sl.weights)
         w[members] = rng.multinomial(len(members), np.full(len(members), 1.0 / len(members))) * sl.weights[members]
         e = train_embedding(ws, sl, "ppmi-svd", counts, settings, weights=w, save=False)
-        values.append(weat(e.unit_vectors, e.index, test, with_p=False).effect_size)
-    sd = float(np.nanstd(values, ddof=1))
-    return estimate - Z95 * sd, estimate + Z95 * sd
+        r = weat(e.unit_vectors, e.index, test, with_p=False)
+        reps.append((r.gap, score_sd(r)))
+    full = weat(emb.unit_vectors, emb.index, test, with_p=False)
+    i = ratio_interval(full.effect_size, full.gap, score_sd(full), *np.array(reps).T)
+    return i.low, i.high
 
 
 def plan(ws, test: AssociationTest, sl: Slice, goal: float, *, unit: str = "document", max_steps: int = 500,
@@ -176,7 +179,7 @@ def plan(ws, test: AssociationTest, sl: Slice, goal: float, *, unit: str = "docu
         if abs(verified) <= goal:
             if not on_interval:
                 break
-            interval = _bootstrap_interval(ws, _current(sl, ws, mask), test, counts, settings, verified, bootstrap, seed)
+            interval = _bootstrap_interval(ws, _current(sl, ws, mask), test, counts, settings, emb, bootstrap, seed)
             if max(abs(interval[0]), abs(interval[1])) <= goal:
                 break
             half = (interval[1] - interval[0]) / 2
@@ -207,7 +210,7 @@ def plan(ws, test: AssociationTest, sl: Slice, goal: float, *, unit: str = "docu
         rounds.append({"round": rnd, "removed": len(chosen), "tokens_removed": int(sum(c[2] for c in chosen)),
                        "predicted_effect": predicted, "verified_effect": verified})
     if bootstrap >= 2 and np.isnan(interval[0]) and chosen:
-        interval = _bootstrap_interval(ws, _current(sl, ws, mask), test, counts, settings, verified, bootstrap, seed)
+        interval = _bootstrap_interval(ws, _current(sl, ws, mask), test, counts, settings, emb, bootstrap, seed)
     inside = max(abs(interval[0]), abs(interval[1])) if on_interval else abs(verified)
     return _result(ws, sl, test, counts, settings, unit, goal, bool(inside <= goal), chosen, steps, rounds, base,
                    predicted, verified, interval, bootstrap, emb_before, emb, mask, on_interval, seed, own)
@@ -272,8 +275,8 @@ def _result(ws, sl, test, counts, settings, unit, goal, reached, chosen, steps, 
         if own is not None and (~own["implicated"]).any():
             message += ("; not dropped because the test is not significant inside them (own permutation p >= "
                         f"{SOURCE_P} or the other sign): " + ", ".join(own.loc[~own["implicated"], "source"]))
-    method = (f"estimate -/+ 1.96 sd of d over {bootstrap} document-bootstrap replicates of the filtered corpus "
-              f"(cold SVD each)") if bootstrap >= 2 else "none (no --bootstrap)"
+    method = (f"{RATIO_METHOD} (gap and score sd), {bootstrap} document-bootstrap replicates of the filtered "
+              f"corpus (cold SVD each)") if bootstrap >= 2 else "none (no --bootstrap)"
     src = docs["source"].to_numpy()
     in_slice = sl.weights > 0
     removed_table = pd.DataFrame([{"source": s, "documents_removed": int((mask & (src == s)).sum()),

@@ -209,6 +209,19 @@ class WeatResult:
     scores_y: np.ndarray
 
 
+def score_sd(result: WeatResult) -> float:
+    """The denominator of d: the population sd of all target words' scores (d = gap / score_sd)."""
+    return float(np.concatenate([result.scores_x, result.scores_y]).std(ddof=0))
+
+
+def effect_size_gradient(gap: float, sd: float) -> tuple[float, float]:
+    """The derivatives of d = gap / sd by gap and by sd, at (gap, sd): for the delta method (NaN
+    when sd is 0 or not finite: d has no derivative there)."""
+    if not (np.isfinite(sd) and sd > 0):
+        return float("nan"), float("nan")
+    return 1.0 / sd, -gap / sd ** 2
+
+
 def weat(unit: np.ndarray, index: dict, test: AssociationTest, *, rng=None,
          exact_budget: int = DEFAULT_EXACT_BUDGET, n_resamples: int = DEFAULT_PERMUTATIONS,
          with_p: bool = True) -> WeatResult:

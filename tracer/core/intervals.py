@@ -130,16 +130,40 @@ def ratio_interval(estimate: float, numerator: float, denominator: float, numera
     Interval
         ``estimate +- t(n - 1) se`` with ``se^2 = (var u - 2 q cov(u, v) + q^2 var v) / v^2``.
     """
-    u = np.asarray(numerator_replicates, dtype=np.float64)
-    v = np.asarray(denominator_replicates, dtype=np.float64)
-    ok = np.isfinite(u) & np.isfinite(v)
-    n = int(ok.sum())
-    if n < 2 or not (np.isfinite(denominator) and denominator != 0):
-        return dataclasses.replace(NO_INTERVAL, estimate=float(estimate), n=n)
+    if not (np.isfinite(denominator) and denominator != 0):
+        return dataclasses.replace(NO_INTERVAL, estimate=float(estimate))
     q = float(numerator) / float(denominator)
-    cov = np.cov(u[ok], v[ok], ddof=1)
-    var = (cov[0, 0] - 2 * q * cov[0, 1] + q * q * cov[1, 1]) / float(denominator) ** 2
-    return se_interval(estimate, math.sqrt(max(float(var), 0.0)), n - 1, n, level, replicate_note(n))
+    v = float(denominator)
+    return delta_interval(estimate, [1.0 / v, -q / v],
+                          np.column_stack([numerator_replicates, denominator_replicates]), level)
+
+
+def delta_interval(estimate: float, gradient, replicates, level: float = LEVEL) -> Interval:
+    """Interval of a smooth function f of several figures by the delta method on their replicates.
+
+    Parameters
+    ----------
+    estimate : float
+        f on the full data (the centre).
+    gradient : array_like, shape (p,)
+        The partial derivatives of f at the full-data values of the p figures.
+    replicates : array_like, shape (n, p)
+        The p figures on n bootstrap replicates (rows with a NaN are left out).
+
+    Returns
+    -------
+    Interval
+        ``estimate +- t(n - 1) se`` with ``se^2 = g' Cov(replicates) g``: the sd of the
+        linearised replicates ``g . theta*_i``.
+    """
+    g = np.asarray(gradient, dtype=np.float64)
+    r = np.asarray(replicates, dtype=np.float64).reshape(-1, len(g))
+    ok = np.isfinite(r).all(axis=1)
+    n = int(ok.sum())
+    if n < 2 or not np.isfinite(g).all():
+        return dataclasses.replace(NO_INTERVAL, estimate=float(estimate), n=n)
+    se = float(np.std(r[ok] @ g, ddof=1))
+    return se_interval(estimate, se, n - 1, n, level, replicate_note(n))
 
 
 def combined_interval(estimate: float, coefficients, replicate_sets, level: float = LEVEL) -> Interval:
