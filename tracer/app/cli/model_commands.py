@@ -6,7 +6,7 @@ from pathlib import Path
 
 import click
 
-from tracer.app.cli.corpus_commands import known_words
+from tracer.app.commands import known_words
 from tracer.app.cli.group import cli, progress_on, say, steps
 from tracer.app.cli.options import (MODELS, NEIGHBOURS_OPTION, check_out, counting_options, model_options, open_workspace,
                                     output_options,

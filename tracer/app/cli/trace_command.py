@@ -9,7 +9,7 @@ from tracer.app.cli.group import cli, progress_on
 from tracer.app.cli.options import (PER_DOC_OPTION, SEEDS_OPTION, TOP_DOCUMENTS_OPTION, counting_options,
                                     model_options, one_slice, one_slice_option,
                                     one_test, open_workspace, output_options, tests_file_option, workspace_option)
-from tracer.app.cli.texts import CAUTIONS, ESTIMATE_NOTE
+from tracer.app.texts import CAUTIONS, ESTIMATE_NOTE
 
 TABLES = ["sources", "documents", "passages", "first-order", "verification"]
 DEFAULT = ["sources", "documents", "passages", "verification"]
