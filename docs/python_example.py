@@ -1,6 +1,7 @@
 import tracer
 
-ws = tracer.open_workspace("work")  # made by tracer.ingest("work", "corpora_demo/archive.jsonl.gz")
+tracer.ingest("work", "corpora_demo/archive.jsonl.gz")  # the demo archive; again, it changes nothing
+ws = tracer.open_workspace("work")
 
 m = tracer.measure(ws, "configs/demo_tests.toml", "gazette_outlet")
 print(m)                    # the summary table, its warnings and what the columns mean
