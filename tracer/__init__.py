@@ -7,7 +7,7 @@
 
 from tracer._version import __version__
 
-API = ("open_workspace", "ingest", "measure", "trace", "drift", "ablate", "plan", "correlate")
+API = ("open_workspace", "ingest", "measure", "trace", "drift", "ablate", "plan", "correlate", "pmi", "neighbours")
 __all__ = ["__version__", *API]
 
 

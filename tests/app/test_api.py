@@ -81,15 +81,31 @@ def test_user_words_are_normalised_like_the_command_line(demo_ws):
     assert a["measured"].all() and a["effect_size"].tolist() == b["effect_size"].tolist()
 
 
+def test_pmi_and_neighbours_equal_the_command_lines(small_ws):
+    # words as a user types them (capitals, one unknown) give the command's table and its note
+    res = CliRunner().invoke(cli, ["pmi", "Cat", "--with", "MAT,Dog,zebra", "-w", str(small_ws.path), "--min-count",
+                                   "1", "--by", "source", "--format", "csv"], catch_exceptions=False)
+    assert res.exit_code == 0, res.output
+    p = tracer.pmi(small_ws, "Cat", "MAT,Dog,zebra", slices="source", min_count=1)
+    assert render(p.table, "csv") == res.stdout and list(p.table["context"].unique()) == ["mat", "dog"]
+    assert p.notes == ["Note: skipped, not in the corpus at all: zebra"]
+    train = CliRunner().invoke(cli, ["train", "-w", str(small_ws.path), "--min-count", "1", "--dim", "3"])
+    assert train.exit_code == 0, train.output
+    res = CliRunner().invoke(cli, ["neighbours", "Cat,DOG", "-w", str(small_ws.path), "-n", "3", "--format", "csv"])
+    n = tracer.neighbours(small_ws.path, ["Cat", "DOG"], neighbours=3)
+    assert render(n.table, "csv") == res.stdout and len(n.table) == 6
+
+
 def _cli_defaults(command) -> dict:
     ctx = click.Context(cli.commands[command])
     return {p.name: p.get_default(ctx) for p in cli.commands[command].params if not getattr(p, "multiple", False)}
 
 
-API_NAME = {"slice_spec": "slice", "n_neighbours": "neighbours"}
+API_NAME = {"slice_spec": "slice", "slice_name": "slice", "n_neighbours": "neighbours"}
 
 
-@pytest.mark.parametrize("command", ["measure", "trace", "drift", "ablate", "plan", "correlate", "ingest"])
+@pytest.mark.parametrize("command", ["measure", "trace", "drift", "ablate", "plan", "correlate", "ingest", "pmi",
+                                     "neighbours"])
 def test_defaults_are_the_command_lines(command):
     # every option the API takes has the default of the command's option of that name
     own = {k: p.default for k, p in inspect.signature(getattr(api, command)).parameters.items()
@@ -103,7 +119,7 @@ def test_defaults_are_the_command_lines(command):
             expected = own.get(name, shared.get(name))
             assert expected == default, f"{command} {name}: API {expected!r}, command line {default!r}"
             compared += 1
-    assert compared >= {"ingest": 5}.get(command, 4)
+    assert compared >= {"ingest": 5, "neighbours": 3}.get(command, 4)
 
 
 def test_bad_input_raises_named_errors(small_ws, tmp_path):

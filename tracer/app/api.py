@@ -30,9 +30,10 @@ from tracer.analysis.counterfactual import ablate as _ablate, drop_mask
 from tracer.analysis.drift import drift_tests, word_drift
 from tracer.analysis.measure import measure as _measure
 from tracer.analysis.plan import plan as _plan
+from tracer.analysis.pmi_table import pmi_table
 from tracer.analysis.trace import TraceSettings, trace as _trace
 from tracer.app import commands
-from tracer.app.output import render, wrap
+from tracer.app.output import TERMINAL_WIDTH, render, wrap
 from tracer.app.texts import CAUTIONS, DRIFT_LEGEND, ESTIMATE_NOTE, measure_legend
 from tracer.core.association import AssociationTest
 from tracer.core.ppmi_svd import PpmiSvdSettings
@@ -50,6 +51,10 @@ COUNT_OPTIONS = list(inspect.signature(commands.count_settings).parameters)
 MODEL_OPTIONS = [p for p in inspect.signature(commands.model_choice).parameters if p != "model"]
 MEASURE_OPTIONS = [p for p in inspect.signature(commands.measure_settings).parameters if p != "model"]
 OPTIONS = COUNT_OPTIONS + MODEL_OPTIONS + MEASURE_OPTIONS
+
+
+def _width(wide: bool) -> int | None:
+    return None if wide else TERMINAL_WIDTH
 
 
 class _Result:
@@ -101,7 +106,9 @@ def _settings(model: str, options: dict, allowed: list[str]):
     unknown = sorted(set(options) - set(allowed))
     if unknown:
         raise SettingError(f"unknown option {unknown[0]!r}; the options are {', '.join(allowed)}")
-    pick = lambda keys: {k: v for k, v in options.items() if k in keys}  # noqa: E731
+    def pick(keys):
+        return {k: v for k, v in options.items() if k in keys}
+
     choice = commands.model_choice(model, **pick(MODEL_OPTIONS))
     return (commands.count_settings(**pick(COUNT_OPTIONS)), choice,
             commands.measure_settings(choice, **pick(MEASURE_OPTIONS)))
@@ -119,7 +126,7 @@ class Ingested(_Result):
 
     def text(self, wide: bool = False) -> str:
         s = self.summary
-        return (render(self.inputs, width=None if wide else 100)
+        return (render(self.inputs, width=_width(wide))
                 + f"workspace {s.workspace}: {s.documents_total} documents, {s.tokens_total} tokens, "
                   f"{s.vocabulary_total} word types\n")
 
@@ -150,7 +157,7 @@ class Measured(_Result):
     legend: str
 
     def text(self, wide: bool = False) -> str:
-        width = None if wide else 100
+        width = _width(wide)
         return (render(commands.summary_view(self.summary, wide), width=width)
                 + "".join(wrap(f"Warning: {w}", width) for w in self.warnings) + wrap(self.legend, width))
 
@@ -193,7 +200,7 @@ class Traced(_Result):
     result: object
 
     def text(self, wide: bool = False) -> str:
-        width = None if wide else 100
+        width = _width(wide)
         parts = [wrap(f"{self.headline}\n{ESTIMATE_NOTE}", width), "\n== sources ==\n",
                  render(self.sources, width=width), "\n== documents ==\n", render(self.documents, width=width)]
         if self.verification is not None:
@@ -219,7 +226,7 @@ def trace(workspace, tests, test=None, *, model: str = "ppmi-svd", slice: str = 
 # ---- drift --------------------------------------------------------------------------------------
 
 def _tables_text(tables: dict, notes: list[str], wide: bool) -> str:
-    width = None if wide else 100
+    width = _width(wide)
     return ("".join(f"== {name} ==\n" + render(df, width=width) for name, df in tables.items())
             + "".join(wrap(f"Note: {n}", width) for n in notes))
 
@@ -238,7 +245,7 @@ class Drifted(_Result):
 
     def text(self, wide: bool = False) -> str:
         return _tables_text({"periods": self.periods, "trend": self.trend, "changes": self.changes},
-                            self.notes, wide) + wrap(DRIFT_LEGEND, None if wide else 100)
+                            self.notes, wide) + wrap(DRIFT_LEGEND, _width(wide))
 
 
 @dataclasses.dataclass(frozen=True, repr=False)
@@ -262,9 +269,8 @@ def drift(workspace, tests=None, test=None, *, words=None, by: str = "time:10y",
     counts, choice, measuring = _settings(model, options, OPTIONS)
     periods = slices_by(ws, by)
     if words is not None:
-        listed = words.split(",") if isinstance(words, str) else list(words)
-        kept, skipped = commands.known_words(ws.normalize_words([w.strip() for w in listed if w.strip()]),
-                                             ws.vocab.index, "the corpus at all")
+        kept, skipped = commands.known_words(ws.normalize_words(commands.word_list(words)), ws.vocab.index,
+                                             "the corpus at all")
         change, near, notes = word_drift(ws, kept, periods, counts, choice.ppmi_svd, neighbours=neighbours)
         return WordDrift(change, near, skipped + list(notes))
     if tests is None:
@@ -290,7 +296,7 @@ class Table(_Result):
     notes: list[str] = dataclasses.field(default_factory=list)
 
     def text(self, wide: bool = False) -> str:
-        width = None if wide else 100
+        width = _width(wide)
         return render(self.table, width=width) + "".join(wrap(n, width) for n in self.notes)
 
 
@@ -319,7 +325,7 @@ class Planned(_Result):
     plan: object
 
     def text(self, wide: bool = False) -> str:
-        width = None if wide else 100
+        width = _width(wide)
         return wrap(self.message, width) + render(self.summary, width=width) + "== rounds ==\n" + render(
             self.tables["rounds"], width=width) + wrap(CAUTIONS, width)
 
@@ -357,3 +363,27 @@ def correlate(workspace, tests, test=None, *, table, value_column: str, word_col
     pairs = commands.correlation_pairs(ws, _slices(ws, slices), choice, counts)
     summary, points = _correlate(pairs, _one_test(tests, test), values, n_boot=resamples, seed=choice.seed)
     return Correlated(summary, [CAUTIONS], points)
+
+
+# ---- words --------------------------------------------------------------------------------------
+
+def pmi(workspace, word: str, contexts, *, slices=None, alpha: float = 0.75, shift: float = 1.0,
+        **options) -> Table:
+    """Window counts, marginals, PMI and PPMI of ``word`` with each context word (a list or
+    comma-separated text), per slice, as ``tracer pmi``."""
+    ws = open_workspace(workspace)
+    counts, _, _ = _settings("ppmi-svd", options, COUNT_OPTIONS)
+    kept, notes = commands.known_words(ws.normalize_words(commands.word_list(contexts)), ws.vocab.index,
+                                       "the corpus at all")
+    return Table(pmi_table(ws, word, kept, _slices(ws, slices), counts, alpha=alpha, shift=shift),
+                 [f"Note: {n}" for n in notes])
+
+
+def neighbours(workspace, words, *, model: str = "ppmi-svd", slice: str = "all", neighbours: int = 10) -> Table:
+    """The nearest words by cosine in a stored model (``tracer train`` or ``tracer run`` stores
+    them), as ``tracer neighbours``."""
+    ws = open_workspace(workspace)
+    emb = commands.stored_model(ws, commands.model_choice(model).name, slice)
+    kept, notes = commands.known_words(ws.normalize_words(commands.word_list(words)), emb.index,
+                                       f"the {model} model of slice {slice}")
+    return Table(commands.neighbour_table(emb, kept, neighbours), [f"Note: {n}" for n in notes])

@@ -157,3 +157,23 @@ def plan_tables(p) -> dict:
     return {"summary": pd.DataFrame([plan_summary(p)]), "rounds": p.rounds, "removed-by-source": p.removed_table,
             "test-words-removed": p.losses, "frequent-words-falling": p.falling, "usefulness": p.usefulness,
             "steps": p.steps}
+
+
+def word_list(words) -> list[str]:
+    """Words from comma-separated text (as every word-list option takes them) or a list."""
+    listed = words.split(",") if isinstance(words, str) else list(words)
+    return [w.strip() for w in listed if w.strip()]
+
+
+def stored_model(ws, model: str, slice_name: str):
+    """The model stored for a slice (named as ``--slice`` takes it)."""
+    from tracer.corpus.slices import slice_from_spec
+    from tracer.provenance.models import load_embedding
+    return load_embedding(ws, model, slice_from_spec(ws, slice_name).name)
+
+
+def neighbour_table(emb, words: list[str], n: int):
+    """The ``n`` nearest words of each word by cosine: word, rank, neighbour, cosine."""
+    import pandas as pd
+    return pd.DataFrame([{"word": w, "rank": r + 1, "neighbour": x, "cosine": c}
+                         for w in words for r, (x, c) in enumerate(emb.neighbours(w, n))])
