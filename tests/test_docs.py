@@ -1,9 +1,6 @@
 """The README's commands and example stay true."""
 
-import os
 import re
-import subprocess
-import sys
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -24,10 +21,8 @@ def test_readme_states_the_cautions_and_conventions():
         assert phrase in " ".join(README.split())
 
 
-def test_the_python_example_runs(tmp_path):
+def test_the_python_example_is_the_tested_one():
+    # the README's Python section shows docs/python_example.py word for word; tests/app/test_api.py
+    # runs that file on the demo workspace
     block = re.search(r"## Python\n\n.*?```python\n(.*?)```", README, re.S).group(1)
-    for name in ("corpora_demo", "configs"):
-        os.symlink(ROOT / name, tmp_path / name)
-    res = subprocess.run([sys.executable, "-c", block], cwd=tmp_path, capture_output=True, text=True, timeout=300)
-    assert res.returncode == 0, res.stderr[-2000:]
-    assert (tmp_path / "work" / "CURRENT").is_file()
+    assert block == (ROOT / "docs" / "python_example.py").read_text(encoding="utf-8")

@@ -1,9 +1,10 @@
 """The package's layers: each module imports only from its own layer or the ones below,
 and no two modules import each other (directly or through others).
 
-Layers, bottom to top: the base modules (``tracer``, ``errors``, ``files``, ``versions``),
+Layers, bottom to top: the base modules (``errors``, ``files``, ``versions``, ``_version``),
 ``core`` (numerics on arrays), ``corpus`` (the stored corpus), ``provenance`` (cache,
-models, experiments), ``analysis`` and ``app``. Imports inside functions count too: a
+models, experiments), ``analysis``, ``app``, and on top the package itself (``tracer``, whose
+``__init__`` hands out the Python API of ``tracer.app.api``): no module imports the package root. Imports inside functions count too: a
 deferred import is for start-up time only, never a way around a cycle.
 """
 
@@ -13,7 +14,7 @@ import ast
 from pathlib import Path
 
 PACKAGE = Path(__file__).resolve().parent.parent / "tracer"
-LAYERS = ["base", "core", "corpus", "provenance", "analysis", "app"]
+LAYERS = ["base", "core", "corpus", "provenance", "analysis", "app", "package"]
 
 
 def module_name(path: Path) -> str:
@@ -23,6 +24,8 @@ def module_name(path: Path) -> str:
 
 def layer_of(module: str) -> int:
     parts = module.split(".")
+    if module == "tracer":
+        return LAYERS.index("package")
     return LAYERS.index(parts[1]) if len(parts) > 1 and parts[1] in LAYERS else 0
 
 
@@ -74,3 +77,7 @@ def test_the_layer_rule_sees_a_wrong_import(tmp_path):
     f.write_text("def g():\n    from tracer.app.cli import main\n", encoding="utf-8")
     assert "tracer.app.cli" in imports_of(f)
     assert layer_of("tracer.app.cli") > layer_of("tracer.core.pmi") > layer_of("tracer.errors")
+    # the package root sits above everything: a module reading tracer.__version__ from it is caught
+    g = tmp_path / "y.py"
+    g.write_text("from tracer import __version__\n", encoding="utf-8")
+    assert "tracer" in imports_of(g) and layer_of("tracer") > layer_of("tracer.app.api")

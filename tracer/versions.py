@@ -6,7 +6,7 @@ import sys
 
 import numpy as np
 
-from tracer import __version__
+from tracer._version import __version__
 
 
 def package_versions() -> dict[str, str]:

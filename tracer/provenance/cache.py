@@ -29,7 +29,7 @@ import numpy as np
 import scipy
 import scipy.sparse as sp
 
-from tracer import __version__
+from tracer._version import __version__
 from tracer.core.counting import Counts, CountSettings, ModelVocab
 from tracer.corpus.workspace import Workspace
 from tracer.provenance.vectors_io import load_embedding_folder, save_embedding

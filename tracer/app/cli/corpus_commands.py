@@ -7,6 +7,7 @@ from pathlib import Path
 import click
 
 from tracer.app.cli.group import cli, progress_on, say
+from tracer.app.commands import known_words
 from tracer.app.cli.options import (LAYOUT_OPTION, PER_DOC_OPTION, TOP_DOCUMENTS_OPTION, counting_options, one_slice,
                                     one_slice_option, open_workspace, option_group, output_options, slice_options,
                                     words_of, workspace_option)
@@ -110,14 +111,12 @@ def ingest(inputs, workspace, fields, default_source, input_format, strict, toke
 
     Example:  tracer ingest news.jsonl.gz -w work/
     """
-    import pandas as pd
-
+    from tracer.app.commands import ingest_table
     from tracer.corpus.ingest import ingest as run_ingest
     summary = run_ingest(workspace, inputs, fields=fields, tokenizer=tokenizer, input_format=input_format,
                          default_source=default_source, strict=strict, progress=progress_on(), replace=replace,
                          wait=not no_wait, limits=limits, jobs=jobs, command="tracer ingest " + " ".join(map(str, inputs)))
-    out.table(pd.DataFrame([{"input": i.path, "status": i.status, "records": i.records, "documents": i.documents,
-                             "tokens": i.tokens, "rejected": i.rejects} for i in summary.inputs]))
+    out.table(ingest_table(summary))
     for warning in summary.warnings:
         say(f"Warning: {warning}")
     if summary.replaced:
@@ -164,16 +163,6 @@ def verify(workspace):
         click.echo(f"PROBLEM  {line}")
     if not report.ok:
         raise WorkspaceError(f"workspace {workspace} has {len(report.problems)} problem(s), listed above")
-
-
-def known_words(words: list[str], vocabulary, where: str) -> tuple[list[str], list[str]]:
-    """(the words in ``vocabulary``, a note naming the others) for commands that can go on without
-    some of the words they were given; none known is the library's error to raise."""
-    kept = [w for w in words if w in vocabulary]
-    missing = [w for w in words if w not in vocabulary]
-    if not kept:
-        return words, []
-    return kept, [f"skipped, not in {where}: {', '.join(missing)}"] if missing else []
 
 
 CONTEXT_WORDS_OPTION = click.option("--with", "contexts", required=True,

@@ -5,12 +5,12 @@ from __future__ import annotations
 import click
 
 from tracer.app.cli.views import chosen_tables, emit, show_option
-from tracer.app.cli.corpus_commands import known_words
+from tracer.app.commands import known_words
 from tracer.app.cli.group import cli, progress_on
 from tracer.app.cli.options import (NEIGHBOURS_OPTION, counting_options, load_tests, measuring_options,
                                     open_workspace, output_options,
                                     test_names_option, tests_file_option, words_of, workspace_option)
-from tracer.app.cli.texts import CAUTIONS, DRIFT_LEGEND
+from tracer.app.texts import CAUTIONS, DRIFT_LEGEND
 
 TABLES = ["periods", "trend", "changes", "sources"]
 DEFAULT = ["periods", "trend", "changes"]
@@ -39,11 +39,11 @@ def drift(workspace, tests_file, test_names, words, by, counts, model, measuring
 
     Example:  tracer drift -w work/ --tests configs/demo_tests.toml --test tribune_mix --by time:10y
     """
+    from tracer.app.commands import check_periods, drift_chosen
     from tracer.corpus.slices import slices_by
     from tracer.errors import InputError
     ws = open_workspace(workspace)
-    if not by.startswith("time") and by != "year":
-        raise InputError(f"--by {by}: drift needs periods of time (time:Ny or year)")
+    check_periods(by)
     _check_show(show, WORD_TABLES if words else TABLES, "with --words" if words else "of a test's drift")
     chosen_tables(show, WORD_TABLES if words else TABLES, [], "", out.fmt)  # a wrong --show fails before the work
     periods = slices_by(ws, by)
@@ -54,8 +54,7 @@ def drift(workspace, tests_file, test_names, words, by, counts, model, measuring
         raise InputError("give --tests FILE (and --test NAME), or --words")
     from tracer.analysis.drift import drift_tests
     tests = load_tests(tests_file, test_names)
-    chosen = list(tests.values()) if test_names else [t for t in tests.values() if t.two_target]
-    results = list(drift_tests(ws, {t.name: t for t in chosen}, model.name, periods, counts, model.settings,
+    results = list(drift_tests(ws, drift_chosen(tests, bool(test_names)), model.name, periods, counts, model.settings,
                                measuring, min_tokens=min_tokens, progress=progress_on()).values())
     emit(out, show, tables=TABLES, default=DEFAULT, main="periods",
                get=lambda name: _concat(results, name), document=lambda: _document(results),

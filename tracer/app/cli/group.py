@@ -10,7 +10,7 @@ import warnings
 
 import click
 
-from tracer import __version__
+from tracer._version import __version__
 from tracer.errors import TracerError
 
 

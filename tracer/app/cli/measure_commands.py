@@ -10,33 +10,9 @@ from tracer.app.cli.group import cli, progress_on, say, steps
 from tracer.app.cli.options import (DIM_OPTION, check_out, counting_options, load_tests, measuring_options, model_options,
                                     one_slice, one_slice_option, one_test, open_workspace, output_options,
                                     slice_options, test_names_option, tests_file_option, workspace_option)
-from tracer.app.cli.texts import CAUTIONS, measure_legend
+from tracer.app.commands import distinct_warnings, read_drop_list, summary_view
+from tracer.app.texts import CAUTIONS, measure_legend
 from tracer.app.cli.views import chosen_tables, emit, show_option
-
-# the terminal view of a measure summary: the finding first, then its evidence and bookkeeping
-MEASURE_COLUMNS = ["test", "slice", "effect_size", "ci_low", "ci_high", "p_value", "q_value", "gap", "measured",
-                   "reason", "dropped_words", "model", "pmi_effect_size", "pmi_p_value", "p_method", "mean_score",
-                   "n_targets_x", "n_targets_y", "n_attributes_a", "n_attributes_b"]
-
-
-def summary_view(table, wide: bool):
-    """The summary columns the terminal shows (all of them with --wide)."""
-    cols = [c for c in MEASURE_COLUMNS if c in table.columns]
-    return table[cols + [c for c in table.columns if c not in cols]] if wide else table[cols]
-
-
-def distinct_warnings(warnings) -> list[str]:
-    """The different warnings of a table's rows, each once: a row's warning that only joins
-    others with '; ' is left out, since its parts are listed."""
-    kept: list[str] = []
-    for w in sorted({w for w in warnings if w}, key=len):
-        rest = w
-        for k in kept:
-            rest = rest.replace(k, "")
-        if rest.strip("; "):
-            kept.append(w)
-    return sorted(kept)
-
 
 @cli.command()
 @workspace_option()
@@ -100,34 +76,16 @@ def correlate(workspace, tests_file, test_name, table_file, word_column, value_c
     Example:  tracer correlate -w work/ --tests configs/demo_tests.toml --test occupations
               --table corpora_demo/occupation_shares.csv --word-column occupation --value-column share_women
     """
-    from tracer.analysis.correlate import correlate as run_correlate
-    from tracer.provenance.tables import read_word_values
+    from tracer.app.commands import correlation
     from tracer.app.report.figures import scatter_plot
-    from tracer.provenance.counts import count_slice
-    from tracer.provenance.models import train_embedding
     ws = open_workspace(workspace)
-    test = one_test(tests_file, test_name)
-    table = read_word_values(table_file, word_column, value_column, ws.tokenizer_settings)
-    pairs = [(train_embedding(ws, sl, model.name, counts, model.settings, save=False, progress=progress_on()),
-              count_slice(ws, sl.weights, counts, slice_name=sl.name))
-             for sl in steps(slices.resolve(ws), "correlate", "slices")]
-    summary, points = run_correlate(pairs, test, table, n_boot=resamples, seed=model.seed)
+    summary, points = correlation(ws, one_test(tests_file, test_name), table_file, word_column, value_column,
+                                  steps(slices.resolve(ws), "correlate", "slices"), model, counts,
+                                  resamples=resamples, progress=progress_on())
     if plot is not None:
         scatter_plot(points, value_column, plot)
         say(f"wrote {plot}")
     out.table(summary, first=CORRELATE_COLUMNS)
-
-
-def _read_drop_list(path: Path | None) -> list[str]:
-    from tracer.errors import InputError
-    if path is None:
-        return []
-    if not path.is_file():
-        raise InputError(f"{path}: no such file")
-    ids = [line.strip() for line in path.read_text(encoding="utf-8").splitlines() if line.strip()]
-    if not ids:
-        raise InputError(f"{path}: the drop list is empty")
-    return ids
 
 
 ABLATE_COLUMNS = ["run", "test", "effect_size", "change", "change_ci_low", "change_ci_high", "ci_low", "ci_high",
@@ -154,7 +112,7 @@ def ablate(workspace, tests_file, test_names, drops, drop_docs, slice_spec, coun
     from tracer.analysis.counterfactual import ablate as run_ablate, drop_mask
     ws = open_workspace(workspace)
     tests = load_tests(tests_file, test_names)
-    mask, what = drop_mask(ws, list(drops), _read_drop_list(drop_docs))
+    mask, what = drop_mask(ws, list(drops), read_drop_list(drop_docs))
     res = run_ablate(ws, tests, model.name, one_slice(ws, slice_spec), mask, what, counts, model.settings, measuring)
     if out.fmt == "table":
         cols = [c for c in ABLATE_COLUMNS if c in res.columns]
@@ -229,17 +187,9 @@ def _write_plan_files(ws, sl, p, drop_list: Path | None, write_corpus: Path | No
 
 
 def _show_plan(p, show: tuple[str, ...], out) -> None:
-    import pandas as pd
-
+    from tracer.app.commands import plan_summary, plan_tables
     from tracer.app.output import render, render_mapping, to_records, wrap
-    summary = {"goal_reached": p.reached, "unit": p.unit, "removed": len(p.removed),
-               "documents_removed": len(p.doc_indices), "tokens_removed": p.tokens_removed,
-               "token_share_removed": p.token_share, "effect_before": p.effect_before,
-               "predicted_effect": p.predicted_effect, "verified_effect": p.verified_effect,
-               "verified_low": p.verified_low, "verified_high": p.verified_high, "interval_method": p.interval_method}
-    tables = {"summary": pd.DataFrame([summary]), "rounds": p.rounds, "removed-by-source": p.removed_table,
-              "test-words-removed": p.losses, "frequent-words-falling": p.falling, "usefulness": p.usefulness,
-              "steps": p.steps}
+    summary, tables = plan_summary(p), plan_tables(p)
 
     def text(names: list[str]) -> str:
         parts = [render_mapping(summary, width=out.width) if name == "summary"

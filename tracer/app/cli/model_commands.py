@@ -6,7 +6,7 @@ from pathlib import Path
 
 import click
 
-from tracer.app.cli.corpus_commands import known_words
+from tracer.app.commands import known_words
 from tracer.app.cli.group import cli, progress_on, say, steps
 from tracer.app.cli.options import (MODELS, NEIGHBOURS_OPTION, check_out, counting_options, model_options, open_workspace,
                                     output_options,
@@ -57,9 +57,8 @@ STORED_MODEL_OPTIONS = [
 
 
 def _stored_model(ws, model: str, slice_name: str):
-    from tracer.corpus.slices import slice_from_spec
-    from tracer.provenance.models import load_embedding
-    return load_embedding(ws, model, slice_from_spec(ws, slice_name).name)
+    from tracer.app.commands import stored_model
+    return stored_model(ws, model, slice_name)
 
 
 @cli.command()
@@ -93,10 +92,8 @@ def neighbours(words, workspace, model, slice_name, n_neighbours, out):
 
     Example:  tracer neighbours -w work/ harbour,wheat --model word2vec
     """
-    import pandas as pd
+    from tracer.app.commands import neighbour_table
     ws = open_workspace(workspace)
     emb = _stored_model(ws, model, slice_name)
     kept, notes = known_words(ws.normalize_words(words_of(words)), emb.index, f"the {model} model of slice {slice_name}")
-    rows = [{"word": w, "rank": r + 1, "neighbour": n, "cosine": s}
-            for w in kept for r, (n, s) in enumerate(emb.neighbours(w, n_neighbours))]
-    out.table(pd.DataFrame(rows), notes=notes)
+    out.table(neighbour_table(emb, kept, n_neighbours), notes=notes)

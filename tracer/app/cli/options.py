@@ -20,9 +20,8 @@ import click
 
 from tracer.app.cli.group import say, scheduler_address
 
-MODELS = ("ppmi-svd", "word2vec")
-SEEDS_DEFAULT = 3
-DOCUMENT_BOOTSTRAP_DEFAULT = {"ppmi-svd": 20, "word2vec": 0}
+from tracer.app.commands import (DOCUMENT_BOOTSTRAP_DEFAULT, MODELS, SEEDS_DEFAULT,  # noqa: F401
+                                 ModelChoice)
 
 
 def option_group(options: list, build: Callable[[dict], dict]):
@@ -80,9 +79,8 @@ COUNT_OPTIONS = [
 
 
 def _count_settings(v: dict) -> dict:
-    from tracer.core.counting import CountSettings
-    return {"counts": CountSettings(window=v["window"], weighting=v["weighting"], min_count=v["min_count"],
-                                    max_vocab=v["max_vocab"])}
+    from tracer.app.commands import count_settings
+    return {"counts": count_settings(**v)}
 
 
 counting_options = option_group(COUNT_OPTIONS, _count_settings)
@@ -127,20 +125,6 @@ def one_slice(ws, spec: str):
 
 # ---- models -----------------------------------------------------------------------------------
 
-@dataclasses.dataclass(frozen=True)
-class ModelChoice:
-    """The model a command trains: its name, its settings, and the seed of the statistics."""
-
-    name: str
-    settings: object
-    ppmi_svd: object
-    seed: int
-
-    @property
-    def alpha(self) -> float:
-        return self.ppmi_svd.alpha
-
-
 DIM_OPTION = click.option("--dim", type=click.IntRange(min=1), default=100, show_default=True, help="Vector size.")
 MODEL_OPTIONS = [
     click.option("--model", type=click.Choice(MODELS), default="ppmi-svd", show_default=True,
@@ -164,20 +148,11 @@ MODEL_OPTIONS = [
 
 
 def _model_choice(v: dict) -> dict:
-    from tracer.core.ppmi_svd import PpmiSvdSettings
-    from tracer.core.word2vec import Word2VecSettings
-    seed = v["seed"]
-    ppmi = PpmiSvdSettings(dim=v["dim"], eig_power=v["eig_power"], alpha=v["alpha"], shift=v["shift"],
-                           seed=0 if seed is None else seed)
-    if v["model"] == "ppmi-svd":
-        settings = ppmi
-    else:
-        settings = Word2VecSettings(dim=v["dim"], skip_gram=not v["cbow"], negative=v["negative"],
-                                    epochs=v["epochs"], seed=1 if seed is None else seed, workers=v["workers"])
-        if v["workers"] > 1:
-            click.echo(f"Note: word2vec on {v['workers']} workers: the vectors are not reproducible "
-                       "(another run gives other vectors); --workers 1 makes them reproducible", err=True)
-    return {"model": ModelChoice(v["model"], settings, ppmi, 0 if seed is None else seed)}
+    from tracer.app.commands import model_choice
+    if v["model"] == "word2vec" and v["workers"] > 1:
+        click.echo(f"Note: word2vec on {v['workers']} workers: the vectors are not reproducible "
+                   "(another run gives other vectors); --workers 1 makes them reproducible", err=True)
+    return {"model": model_choice(**v)}
 
 
 model_options = option_group(MODEL_OPTIONS, _model_choice)
@@ -206,14 +181,10 @@ MEASURE_OPTIONS = MODEL_OPTIONS + [
 
 
 def _measure_settings(v: dict) -> dict:
-    from tracer.analysis.measure import MeasureSettings
-    model = _model_choice(v)["model"]
-    bootstrap = DOCUMENT_BOOTSTRAP_DEFAULT[model.name] if v["bootstrap"] is None else v["bootstrap"]
-    return {"model": model,
-            "measuring": MeasureSettings(min_words=v["min_words"], bootstrap=bootstrap, seeds=v["seeds"],
-                                         permutations=v["permutations"], exact_budget=v["exact_budget"],
-                                         seed=model.seed, alpha=model.alpha,
-                                         per_slice_words=v["per_slice_words"])}
+    from tracer.app.commands import measure_settings
+    model_names = {opt_name(o) for o in MODEL_OPTIONS}
+    model = _model_choice({k: x for k, x in v.items() if k in model_names})["model"]
+    return {"model": model, "measuring": measure_settings(model, **{k: x for k, x in v.items() if k not in model_names})}
 
 
 measuring_options = option_group(MEASURE_OPTIONS, _measure_settings)

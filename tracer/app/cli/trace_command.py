@@ -10,7 +10,7 @@ from tracer.app.cli.corpus_commands import check_layout, passages_view
 from tracer.app.cli.options import (LAYOUT_OPTION, PER_DOC_OPTION, SEEDS_OPTION, TOP_DOCUMENTS_OPTION, counting_options,
                                     model_options, one_slice, one_slice_option,
                                     one_test, open_workspace, output_options, tests_file_option, workspace_option)
-from tracer.app.cli.texts import CAUTIONS, ESTIMATE_NOTE
+from tracer.app.texts import CAUTIONS, ESTIMATE_NOTE
 
 TABLES = ["sources", "documents", "passages", "first-order", "verification"]
 DEFAULT = ["sources", "documents", "passages", "verification"]
