@@ -97,8 +97,10 @@ def _chunks(raw, path: Path, limits: ReadLimits) -> Iterator[bytes]:
                                    "times the compressed size, limit max_gzip_ratio: a gzip bomb?); "
                                    "the rest of the file is skipped")
                 yield chunk
-    except (OSError, EOFError, zlib.error) as e:  # a damaged or truncated gzip stream
-        raise StopFile(f"damaged gzip data ({e}); the rest of the file is skipped") from None
+    except (OSError, EOFError, zlib.error) as e:
+        if isinstance(e, OSError) and e.errno is not None:  # reading the file failed, not decompressing it
+            raise StopFile(f"unreadable file ({e.strerror}); the rest of the file is skipped") from None
+        raise StopFile(f"damaged gzip data ({e}); the rest of the file is skipped") from None  # damaged or truncated
 
 
 class _Line:
