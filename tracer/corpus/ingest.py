@@ -26,7 +26,8 @@ from tqdm.auto import tqdm
 from tracer.errors import InputError, WorkspaceError
 from tracer.versions import package_versions
 from tracer.corpus.lock import workspace_lock
-from tracer.corpus.readers import RawRecord, ReadLimits, Reject, detect_format, read_records
+from tracer.corpus.readers import (RawRecord, ReadLimits, Reject, detect_format, read_records, shown_path,
+                                   txt_entries)
 from tracer.corpus.store import StoreWriter, remove_abandoned
 from tracer.corpus.tokenize import ENGINE, TokenizerSettings
 from tracer.corpus.tokenize_pool import tokenized
@@ -82,16 +83,26 @@ class IngestSummary:
 
 
 def hash_input(path: Path) -> str:
-    """sha256 of a file, or of a folder's .txt files (relative names and contents, sorted)."""
+    """sha256 of a file, or of the .txt files a folder's reader reads (relative names and contents, sorted).
+
+    Entries the reader skips (links outside the folder, broken links, special files)
+    are not read here either, so a link to a device or to a file that cannot be read
+    is one reject, not an error.
+    """
     h = hashlib.sha256()
-    files = ([path] if path.is_file() else
-             sorted(p for p in path.rglob("*") if p.is_file() and p.suffix.lower() == ".txt"))
-    for p in files:
-        if path.is_dir():
-            h.update(p.relative_to(path).as_posix().encode("utf-8", "surrogateescape") + b"\0")
-        with open(p, "rb") as f:
-            for block in iter(lambda: f.read(1 << 20), b""):
-                h.update(block)
+    # a folder: the files its reader reads, in the order of their paths (as before links were followed)
+    files = ([(path, None)] if path.is_file() else
+             sorted((rel, rel) for rel, problem in txt_entries(path) if problem is None))
+    for p, rel in files:
+        if rel is not None:
+            h.update(rel.as_posix().encode("utf-8", "surrogateescape") + b"\0")
+            p = path / rel
+        try:
+            with open(p, "rb") as f:
+                for block in iter(lambda: f.read(1 << 20), b""):
+                    h.update(block)
+        except OSError as e:  # the reader rejects it; the hash notes it
+            h.update(f"\0unreadable: {e.strerror}\0".encode())
     return h.hexdigest()
 
 
@@ -182,7 +193,11 @@ def ingest(workspace: str | os.PathLike, inputs: Iterable[str | os.PathLike], *,
         raise InputError("no input files given")
     for p in inputs:
         if not p.exists():
-            raise InputError(f"{p}: no such file or folder")
+            raise InputError(f"{shown_path(p)}: no such file or folder")
+        if not (p.is_file() or p.is_dir()):
+            # a pipe or device has no content to hash before reading, and may never end
+            raise InputError(f"{shown_path(p)}: not a regular file or folder (a pipe or a device?); "
+                             "save its content to a file and ingest that")
         if input_format is None:
             detect_format(p)
     with workspace_lock(ws_path, command=command or f"ingest {' '.join(map(str, inputs))}", wait=wait):
@@ -216,7 +231,7 @@ def _check_mapping(ws_path: Path, known: list[dict], inputs: list[Path], hashes:
         if prev is not None and (prev.get("fields") != asked["fields"]
                                  or prev.get("default_source") != default_source):
             raise WorkspaceError(
-                f"{p} is already in workspace {ws_path}, read with the fields "
+                f"{shown_path(p)} is already in workspace {shown_path(ws_path)}, read with the fields "
                 f"{mapping_text(prev).split(': ', 1)[1]}; this time the fields asked for are "
                 f"{mapping_text(asked).split(': ', 1)[1]}. To read it again with the new fields, add --replace, "
                 f"which rebuilds the corpus from the inputs given now (and drops the others)")
@@ -235,7 +250,7 @@ def _ingest_locked(ws_path: Path, inputs: list[Path], fields: FieldMap, tokenize
     known = {i["sha256"] for i in manifest_inputs}
     if old is not None and all(h in known for h in input_hashes):
         # nothing new: leave the store untouched
-        return IngestSummary(str(ws_path), [InputSummary(str(p), h, "already ingested", 0, 0, 0, 0)
+        return IngestSummary(shown_path(ws_path), [InputSummary(shown_path(p), h, "already ingested", 0, 0, 0, 0)
                                             for p, h in zip(inputs, input_hashes)],
                              old.n_documents, old.n_tokens, len(old.vocab), None, {})
     writer = StoreWriter(ws_path, old, settings, previous=current_name)
@@ -246,7 +261,7 @@ def _ingest_locked(ws_path: Path, inputs: list[Path], fields: FieldMap, tokenize
         with tqdm(desc="ingest", unit=" docs", disable=not progress, leave=False) as bar:
             for path, sha in zip(inputs, input_hashes):
                 if sha in known:
-                    summaries.append(InputSummary(str(path), sha, "already ingested", 0, 0, 0, 0))
+                    summaries.append(InputSummary(shown_path(path), sha, "already ingested", 0, 0, 0, 0))
                     continue
                 known.add(sha)
                 summary, entry = _read_input(run, path, sha, input_format, fields, default_source, bar)
@@ -254,7 +269,7 @@ def _ingest_locked(ws_path: Path, inputs: list[Path], fields: FieldMap, tokenize
                 manifest_inputs.append(entry)
         if writer.n_docs == 0:
             first = run.first_reject
-            raise InputError("empty corpus: no usable records in " + ", ".join(str(p) for p in inputs)
+            raise InputError("empty corpus: no usable records in " + ", ".join(shown_path(p) for p in inputs)
                              + (f" ({sum(run.reasons.values())} rejected; first: {first.reason})" if first else ""))
         writer.finish(_manifest(settings, manifest_inputs, writer))
         writer.commit()
@@ -263,14 +278,14 @@ def _ingest_locked(ws_path: Path, inputs: list[Path], fields: FieldMap, tokenize
         if not committed:
             writer.abort()
     rejects_file = writer.store / "rejects.jsonl"
-    return IngestSummary(str(ws_path), summaries, writer.n_docs, writer.n_tokens, len(writer.words),
-                         str(rejects_file) if run.reasons else None, run.reasons, replaced=replace)
+    return IngestSummary(shown_path(ws_path), summaries, writer.n_docs, writer.n_tokens, len(writer.words),
+                         shown_path(rejects_file) if run.reasons else None, run.reasons, replaced=replace)
 
 
 def _read_input(run: _Run, path: Path, sha: str, input_format: str | None, fields: FieldMap,
                 default_source: str | None, bar) -> tuple[InputSummary, dict]:
     """Read, validate, tokenize and store the records of one input; its summary and manifest entry."""
-    use = FieldUse(fields, default_source, str(path))
+    use = FieldUse(fields, default_source, shown_path(path))
     content = hashlib.sha256()
     n_rec = n_doc = n_tok = n_rej = 0
     records = _validated(run, read_records(path, input_format, run.limits), use)
@@ -285,12 +300,12 @@ def _read_input(run: _Run, path: Path, sha: str, input_format: str | None, field
         n_tok += stored
         bar.update()
     warnings = tuple(use.warnings())
-    entry = {"path": str(path), "sha256": sha, "format": input_format or detect_format(path),
+    entry = {"path": shown_path(path), "sha256": sha, "format": input_format or detect_format(path),
              "records": n_rec, "documents": n_doc, "tokens": n_tok, "rejects": n_rej,
              "fields": fields.to_dict(), "default_source": default_source, "fields_found": dict(use.found),
              "field_warnings": list(warnings), "content_sha256": content.hexdigest(),
              "ingested_at": dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds")}
-    return InputSummary(str(path), sha, "added", n_rec, n_doc, n_tok, n_rej, use.fields_found(), warnings), entry
+    return InputSummary(shown_path(path), sha, "added", n_rec, n_doc, n_tok, n_rej, use.fields_found(), warnings), entry
 
 
 def _validated(run: _Run, records, use: FieldUse):

@@ -31,7 +31,8 @@ from typing import Iterator
 from tracer.corpus.streams import ReadLimits, StopFile, chunks, lines
 from tracer.errors import InputError
 
-__all__ = ["FORMATS", "RawRecord", "ReadLimits", "Reject", "detect_format", "read_records", "shown_path"]
+__all__ = ["FORMATS", "RawRecord", "ReadLimits", "Reject", "detect_format", "read_records", "shown_path",
+           "txt_entries"]
 
 FORMATS = ("jsonl", "csv", "txt", "parquet")
 
@@ -138,8 +139,8 @@ def _json_record(raw: bytes, name: str, line_no: int, limits: ReadLimits) -> Raw
     return RawRecord(obj, name, line_no)
 
 
-def _too_long(name: str, line_no: int, limits: ReadLimits) -> Reject:
-    return Reject(name, line_no, f"line over the length limit (limit max_line_bytes = {limits.max_line_bytes})", "")
+def _too_long(limits: ReadLimits) -> str:
+    return f"line over the length limit (limit max_line_bytes = {limits.max_line_bytes})"
 
 
 def read_jsonl(path: Path, limits: ReadLimits = ReadLimits()) -> Iterator[RawRecord | Reject]:
@@ -149,29 +150,50 @@ def read_jsonl(path: Path, limits: ReadLimits = ReadLimits()) -> Iterator[RawRec
     try:
         for line_no, raw, _ in lines(chunks(path, limits), max_line):
             if raw is None:
-                yield _too_long(name, line_no, dataclasses.replace(limits, max_line_bytes=max_line))
+                yield Reject(name, line_no, _too_long(dataclasses.replace(limits, max_line_bytes=max_line)), "")
             elif raw.strip():
                 yield _json_record(raw, name, line_no, limits)
     except StopFile as e:
         yield Reject(name, line_no + 1, str(e), "")
 
 
-def _csv_text_lines(numbered, long_lines: list[int]):
-    """CSV text lines for :mod:`csv`; a too-long line becomes its quotes only, and is noted."""
+def _csv_text_lines(numbered, over: list[tuple[int, str]], limits: ReadLimits):
+    """CSV text lines for :mod:`csv`, each record kept under the size limit.
+
+    A line over the line limit, and every line of a record once the record is over the
+    size limit, becomes its quotes only (so :mod:`csv` keeps its quoting state and the
+    rows after it stay whole), and its line is noted in ``over`` with the reason. The
+    record's end is where the count of '"' since its start is even: the csv module's
+    own field limit is then never reached, and a long quoted field cannot make it
+    resume inside the quotes.
+    """
+    size, in_quotes, noted = 0, False, False
     for line_no, raw, quotes in numbered:
-        if raw is None:
-            long_lines.append(line_no)
+        if raw is not None:
+            quotes = raw.count(b'"')
+            size += len(raw) + 1  # the line end is part of a quoted field
+        if raw is None or size > limits.max_record_bytes:
+            if not noted:
+                over.append((line_no, _too_long(limits) if raw is None else _too_large(limits)))
+                noted = True
             yield '"' * (quotes % 2) + "\n"
         else:
             # surrogateescape keeps bad bytes visible so that only the record holding them is rejected
             yield raw.decode("utf-8", "surrogateescape") + "\n"
+        in_quotes ^= bool(quotes % 2)
+        if not in_quotes:
+            size, noted = 0, False
+
+
+def _too_large(limits: ReadLimits) -> str:
+    return f"record over the size limit (limit max_record_bytes = {limits.max_record_bytes})"
 
 
 def read_csv(path: Path, limits: ReadLimits = ReadLimits()) -> Iterator[RawRecord | Reject]:
     name = shown_path(path)
-    long_lines: list[int] = []
+    over: list[tuple[int, str]] = []
     csv.field_size_limit(limits.max_record_bytes)
-    reader = csv.reader(_csv_text_lines(lines(chunks(path, limits), limits.max_line_bytes), long_lines))
+    reader = csv.reader(_csv_text_lines(lines(chunks(path, limits), limits.max_line_bytes), over, limits))
     try:
         try:
             header = next(reader, None)
@@ -179,8 +201,8 @@ def read_csv(path: Path, limits: ReadLimits = ReadLimits()) -> Iterator[RawRecor
             raise InputError(f"{name}, line 1: malformed CSV header: {e}") from None
         if header is None:
             return
-        if long_lines or any(_has_surrogates(h) for h in header):
-            raise InputError(f"{name}, line 1: the header is not valid UTF-8 or is over the line limit")
+        if over or any(_has_surrogates(h) for h in header):
+            raise InputError(f"{name}, line 1: the header is not valid UTF-8 or is over the line or size limit")
         start = reader.line_num + 1
         while True:
             try:
@@ -192,9 +214,9 @@ def read_csv(path: Path, limits: ReadLimits = ReadLimits()) -> Iterator[RawRecor
                 start = reader.line_num + 1
                 continue
             line_no, end, start = start, reader.line_num, reader.line_num + 1
-            if long_lines and long_lines[0] <= end:
-                yield _too_long(name, long_lines[0], limits)
-                del long_lines[:]
+            if over and over[0][0] <= end:
+                yield Reject(name, over[0][0], over[0][1], "")
+                del over[:]
                 continue
             if not row:
                 continue  # a blank line
@@ -211,8 +233,7 @@ def _csv_row(row: list[str], header: list[str], name: str, line_no: int, limits:
     if any(_has_surrogates(v) for v in row):
         return Reject(name, line_no, "not valid UTF-8", "")
     if sum(len(v) for v in row) > limits.max_record_bytes:
-        return Reject(name, line_no, "record over the size limit (limit max_record_bytes = "
-                                     f"{limits.max_record_bytes})", "")
+        return Reject(name, line_no, _too_large(limits), "")
     return RawRecord(dict(zip(header, row)), name, line_no)
 
 
@@ -221,8 +242,7 @@ def read_txt(path: Path, limits: ReadLimits = ReadLimits()) -> Iterator[RawRecor
     if path.is_file():
         yield _txt_record(path, Path(path.name), limits)
         return
-    root = Path(os.path.realpath(path))
-    for rel, problem in _txt_entries(root):
+    for rel, problem in txt_entries(path):
         if problem:
             yield Reject(shown_path(path / rel), 1, problem, "")
         else:
@@ -233,13 +253,15 @@ def _inside(target: str, root: Path) -> bool:
     return os.path.commonpath([target, str(root)]) == str(root)
 
 
-def _txt_entries(root: Path) -> Iterator[tuple[Path, str | None]]:
-    """(path relative to root, why it is skipped or None) of every .txt file, sorted by path.
+def txt_entries(folder: Path) -> Iterator[tuple[Path, str | None]]:
+    """(path relative to the folder, why it is skipped or None) of every .txt file, sorted by path.
 
-    Links are followed when their target is inside ``root`` (a linked file or folder
-    is read under the link's name too); a link to a folder that holds the link is a
-    loop, counted and not followed.
+    Links are followed when their target is inside the folder (a linked file or
+    folder is read under the link's name too); a link to a folder that holds the
+    link is a loop, counted and not followed. Entries with None are the regular
+    files the reader reads (a name that is not UTF-8 is rejected when read).
     """
+    root = Path(os.path.realpath(folder))
     stack: list[tuple[Path, frozenset]] = [(Path(), frozenset([str(root)]))]
     found: list[tuple[Path, str | None]] = []
     while stack:

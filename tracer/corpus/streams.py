@@ -66,24 +66,41 @@ class StopFile(Exception):
 
 
 def chunks(path: Path, limits: ReadLimits) -> Iterator[bytes]:
-    """The bytes of a file in chunks, decompressed if .gz, under the ratio limit."""
-    with open(path, "rb") as raw:
-        if not path.name.lower().endswith(".gz"):
-            yield from iter(lambda: raw.read(_CHUNK), b"")
-            return
-        out = 0
+    """The bytes of a file in chunks, decompressed if .gz, under the ratio limit.
+
+    A file that cannot be opened or read on (an I/O error, a special file behind a
+    link) stops with :class:`StopFile`, after the chunks read before.
+    """
+    try:
+        raw = open(path, "rb")
+    except OSError as e:
+        raise StopFile(f"unreadable file ({e.strerror or e})") from None
+    with raw:
         try:
-            with gzip.GzipFile(fileobj=raw) as f:
-                # read1 returns what one compressed block gives, so records before damage come out
-                for chunk in iter(lambda: f.read1(_CHUNK), b""):
-                    out += len(chunk)
-                    if out > limits.gzip_ratio_floor_bytes and out > limits.max_gzip_ratio * max(raw.tell(), 1):
-                        raise StopFile(f"decompression ratio over the limit (over {limits.max_gzip_ratio:g} "
-                                        "times the compressed size, limit max_gzip_ratio: a gzip bomb?); "
-                                        "the rest of the file is skipped")
-                    yield chunk
-        except (OSError, EOFError, zlib.error) as e:  # a damaged or truncated gzip stream
-            raise StopFile(f"damaged gzip data ({e}); the rest of the file is skipped") from None
+            yield from _chunks(raw, path, limits)
+        except OSError as e:  # gzip's own damage errors are OSErrors too; those are StopFile already
+            raise StopFile(f"unreadable file ({e.strerror or e}); the rest of the file is skipped") from None
+
+
+def _chunks(raw, path: Path, limits: ReadLimits) -> Iterator[bytes]:
+    if not path.name.lower().endswith(".gz"):
+        yield from iter(lambda: raw.read(_CHUNK), b"")
+        return
+    out = 0
+    try:
+        with gzip.GzipFile(fileobj=raw) as f:
+            # read1 returns what one compressed block gives, so records before damage come out
+            for chunk in iter(lambda: f.read1(_CHUNK), b""):
+                out += len(chunk)
+                if out > limits.gzip_ratio_floor_bytes and out > limits.max_gzip_ratio * max(raw.tell(), 1):
+                    raise StopFile(f"decompression ratio over the limit (over {limits.max_gzip_ratio:g} "
+                                   "times the compressed size, limit max_gzip_ratio: a gzip bomb?); "
+                                   "the rest of the file is skipped")
+                yield chunk
+    except (OSError, EOFError, zlib.error) as e:
+        if isinstance(e, OSError) and e.errno is not None:  # reading the file failed, not decompressing it
+            raise StopFile(f"unreadable file ({e.strerror}); the rest of the file is skipped") from None
+        raise StopFile(f"damaged gzip data ({e}); the rest of the file is skipped") from None  # damaged or truncated
 
 
 class _Line:
