@@ -38,6 +38,53 @@ def test_a_csv_record_under_the_limit_with_a_quoted_field_over_many_lines_is_one
     assert out[0].fields["text"] == "ab\n" * 300 and out[1].line == 303
 
 
+def test_a_csv_line_over_the_line_limit_with_a_literal_quote_leaves_the_next_rows_whole(tmp_path):
+    # before: the dropped line was replaced by its quote parity; `1,"ab"ccc..c"` has three quotes but
+    # ends outside any quoted field (csv reads the last '"' as a literal character), so the odd parity
+    # opened a quoted field and every later row disappeared into the one line-limit reject
+    p = tmp_path / "literal.csv"
+    p.write_bytes(b'id,text\n1,"ab"' + b"c" * 2000 + b'"\n2,next\n3,"a ""quoted"" word"\n')
+    out = list(read_records(p, limits=ReadLimits(max_line_bytes=1000)))
+    assert isinstance(out[0], Reject) and out[0].line == 2 and out[0].reason.startswith("line over the length")
+    assert [(r.fields, r.line) for r in out[1:]] == [({"id": "2", "text": "next"}, 3),
+                                                    ({"id": "3", "text": 'a "quoted" word'}, 4)]
+
+
+def test_a_literal_quote_in_an_unquoted_field_does_not_join_the_next_rows_into_one_record(tmp_path):
+    # before: a '"' inside an unquoted field flipped the parity, so the record size ran on over every
+    # later row until the size limit, and those rows were rejected as one over-size record
+    p = tmp_path / "inch.csv"
+    rows = b"".join(b"%d,row number %d\n" % (i, i) for i in range(2, 60))
+    p.write_bytes(b'id,text\n1,a 5" screen\n' + rows)
+    out = list(read_records(p, limits=ReadLimits(max_record_bytes=200)))
+    assert all(isinstance(r, RawRecord) for r in out), [r for r in out if isinstance(r, Reject)][:2]
+    assert out[0].fields["text"] == 'a 5" screen' and len(out) == 59
+
+
+@pytest.mark.parametrize("line, start, end", [
+    (b'1,"ab"ccc"', False, False),        # the closing quote goes on unquoted; the last '"' is literal
+    (b'1,"ab""c', False, True),           # a doubled quote inside a quoted field
+    (b'1,ab"c', False, False),            # a quote inside an unquoted field is literal
+    (b'x", 2', True, False),              # a quoted field from the line before closes
+    (b'x"" y', True, True),               # a doubled quote: still inside
+    (b'"",""', False, False),             # two empty quoted fields
+    (b'a,"b', False, True),
+])
+def test_the_quoting_state_follows_the_csv_module(line, start, end):
+    # outside reference: Python's csv reader on the same text; a record goes on past the line end exactly
+    # when the line ends inside quotes
+    import csv
+    from tracer.corpus.streams import CsvQuoteState, csv_line_ends_in_quotes
+    text = ('"' if start else "") + line.decode() + "\nnext,line\n"
+    rows = list(csv.reader(text.splitlines(keepends=True)))
+    assert (len(rows) == 1) is end  # the csv module joined the next line into the record
+    assert csv_line_ends_in_quotes(line, start) is end
+    pieces = CsvQuoteState(start)  # fed byte by byte, as a too-long line is read in pieces
+    for i in range(len(line)):
+        pieces.feed(line[i:i + 1])
+    assert pieces.in_quotes is end
+
+
 def _bad_name(tmp_path: Path) -> Path:
     p = Path(os.fsdecode(bytes(tmp_path) + b"/caf\xe9.jsonl"))
     p.write_bytes(b'{"id": 1, "text": "alpha beta"}\n')

@@ -28,7 +28,7 @@ import os
 from pathlib import Path
 from typing import Iterator
 
-from tracer.corpus.streams import ReadLimits, StopFile, chunks, lines
+from tracer.corpus.streams import ReadLimits, StopFile, chunks, csv_line_ends_in_quotes, lines
 from tracer.errors import InputError
 
 __all__ = ["FORMATS", "RawRecord", "ReadLimits", "Reject", "detect_format", "read_records", "shown_path",
@@ -161,26 +161,30 @@ def _csv_text_lines(numbered, over: list[tuple[int, str]], limits: ReadLimits):
     """CSV text lines for :mod:`csv`, each record kept under the size limit.
 
     A line over the line limit, and every line of a record once the record is over the
-    size limit, becomes its quotes only (so :mod:`csv` keeps its quoting state and the
-    rows after it stay whole), and its line is noted in ``over`` with the reason. The
-    record's end is where the count of '"' since its start is even: the csv module's
-    own field limit is then never reached, and a long quoted field cannot make it
-    resume inside the quotes.
+    size limit, becomes a line holding one '"' when it changes the quoting and nothing
+    otherwise (so :mod:`csv` keeps its quoting state and the rows after it stay whole),
+    and its line is noted in ``over`` with the reason. The record's end is where a line
+    ends outside any quoted field, followed with csv's own quoting rules
+    (:class:`~tracer.corpus.streams.CsvQuoteState`: a literal '"' inside an unquoted field
+    changes nothing): the csv module's field limit is then never reached, and a long
+    quoted field cannot make it resume inside the quotes.
     """
     size, in_quotes, noted = 0, False, False
-    for line_no, raw, quotes in numbered:
+    for line_no, raw, ends in numbered:
         if raw is not None:
-            quotes = raw.count(b'"')
             size += len(raw) + 1  # the line end is part of a quoted field
+            after = csv_line_ends_in_quotes(raw, in_quotes)
+        else:
+            after = ends[1] if in_quotes else ends[0]
         if raw is None or size > limits.max_record_bytes:
             if not noted:
                 over.append((line_no, _too_long(limits) if raw is None else _too_large(limits)))
                 noted = True
-            yield '"' * (quotes % 2) + "\n"
+            yield ('"' if after != in_quotes else "") + "\n"
         else:
             # surrogateescape keeps bad bytes visible so that only the record holding them is rejected
             yield raw.decode("utf-8", "surrogateescape") + "\n"
-        in_quotes ^= bool(quotes % 2)
+        in_quotes = after
         if not in_quotes:
             size, noted = 0, False
 
@@ -193,7 +197,8 @@ def read_csv(path: Path, limits: ReadLimits = ReadLimits()) -> Iterator[RawRecor
     name = shown_path(path)
     over: list[tuple[int, str]] = []
     csv.field_size_limit(limits.max_record_bytes)
-    reader = csv.reader(_csv_text_lines(lines(chunks(path, limits), limits.max_line_bytes), over, limits))
+    reader = csv.reader(_csv_text_lines(lines(chunks(path, limits), limits.max_line_bytes, csv_quotes=True),
+                                         over, limits))
     try:
         try:
             header = next(reader, None)

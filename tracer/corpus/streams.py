@@ -103,38 +103,100 @@ def _chunks(raw, path: Path, limits: ReadLimits) -> Iterator[bytes]:
         raise StopFile(f"damaged gzip data ({e}); the rest of the file is skipped") from None  # damaged or truncated
 
 
-class _Line:
-    """The line being read: its pieces, or only its size and quote count once over the limit."""
+_START, _FIELD, _QUOTED, _QUOTE_IN_QUOTED = range(4)
+_CSV_SPECIAL = re.compile(rb'[",]')
 
-    def __init__(self, max_line: int):
-        self.max_line = max_line
+
+class CsvQuoteState:
+    """Where a physical line of excel-dialect CSV leaves the quoting, fed piece by piece.
+
+    The states are those of Python's :mod:`csv` reader (``strict`` off, ``doublequote`` on):
+    a '"' opens a quoted field only at the start of a field; inside one, '""' is a quote and
+    '"' followed by anything else closes it; in an unquoted field a '"' is a literal
+    character. Counting quotes is not enough: ``1,"ab"c"`` ends outside any quotes with
+    three of them.
+    """
+
+    def __init__(self, in_quotes: bool):
+        self.state = _QUOTED if in_quotes else _START
+
+    def feed(self, piece: bytes) -> None:
+        st, pos = self.state, 0
+        for m in _CSV_SPECIAL.finditer(piece):
+            i = m.start()
+            if i > pos and st in (_START, _QUOTE_IN_QUOTED):
+                st = _FIELD  # another character: a field begins unquoted, or a closed quote goes on
+            if piece[i] == 0x22:
+                st = {_START: _QUOTED, _QUOTED: _QUOTE_IN_QUOTED, _QUOTE_IN_QUOTED: _QUOTED}.get(st, st)
+            elif st != _QUOTED:
+                st = _START  # a delimiter outside quotes ends the field
+            pos = i + 1
+        if pos < len(piece) and st in (_START, _QUOTE_IN_QUOTED):
+            st = _FIELD
+        self.state = st
+
+    @property
+    def in_quotes(self) -> bool:
+        """Whether the line end falls inside a quoted field (the record goes on)."""
+        return self.state == _QUOTED
+
+
+def csv_line_ends_in_quotes(line: bytes, in_quotes: bool) -> bool:
+    """:class:`CsvQuoteState` over one whole line that starts ``in_quotes`` or not."""
+    if b'"' not in line:
+        return in_quotes
+    state = CsvQuoteState(in_quotes)
+    state.feed(line)
+    return state.in_quotes
+
+
+class _Line:
+    """The line being read: its pieces, or, once over the limit, only its size and (for CSV)
+    where it leaves the quoting from either starting state."""
+
+    def __init__(self, max_line: int, csv_quotes: bool):
+        self.max_line, self.csv_quotes = max_line, csv_quotes
         self.parts: list[bytes] = []
-        self.size = self.quotes = 0
+        self.size = 0
         self.over = False
+        self.states: tuple[CsvQuoteState, CsvQuoteState] | None = None
 
     def add(self, piece: bytes) -> None:
         self.size += len(piece)
         if self.over:
-            self.quotes += piece.count(b'"')
+            self._scan(piece)
         elif self.size > self.max_line:
             self.over = True
-            self.quotes = sum(p.count(b'"') for p in self.parts) + piece.count(b'"')
+            if self.csv_quotes:
+                self.states = (CsvQuoteState(False), CsvQuoteState(True))
+            for p in self.parts + [piece]:
+                self._scan(p)
             self.parts = []
         elif piece:
             self.parts.append(piece)
 
-    def value(self) -> tuple[bytes | None, int]:
-        return (None, self.quotes) if self.over else (b"".join(self.parts), 0)
+    def _scan(self, piece: bytes) -> None:
+        if self.states is not None:
+            for st in self.states:
+                st.feed(piece)
+
+    def value(self) -> tuple[bytes | None, tuple[bool, bool] | None]:
+        if not self.over:
+            return b"".join(self.parts), None
+        return None, None if self.states is None else (self.states[0].in_quotes, self.states[1].in_quotes)
 
 
-def lines(chunks: Iterable[bytes], max_line: int) -> Iterator[tuple[int, bytes | None, int]]:
-    """Physical lines as (number, bytes without the line end, count of '"' when too long).
+def lines(chunks: Iterable[bytes], max_line: int, *,
+          csv_quotes: bool = False) -> Iterator[tuple[int, bytes | None, tuple[bool, bool] | None]]:
+    """Physical lines as (number, bytes without the line end, quoting of a too-long line).
 
     Ends are ``\\r\\n``, ``\\r`` or ``\\n``. A line over ``max_line`` bytes comes as
-    None: its bytes are dropped as they are read; its quote count lets a CSV
-    reader keep its quoting state. A leading byte-order mark is dropped.
+    None: its bytes are dropped as they are read. With ``csv_quotes`` its third item says
+    whether it ends inside a quoted field when it starts outside one, and when it starts
+    inside one (:class:`CsvQuoteState`), so a CSV reader can keep its quoting state; else
+    None. A leading byte-order mark is dropped.
     """
-    line = _Line(max_line)
+    line = _Line(max_line, csv_quotes)
     number, first, cr_before = 1, True, False
     for chunk in chunks:
         if first:
@@ -146,7 +208,7 @@ def lines(chunks: Iterable[bytes], max_line: int) -> Iterator[tuple[int, bytes |
         for m in _NEWLINE.finditer(chunk):
             line.add(chunk[pos:m.start()])
             yield (number, *line.value())
-            number, line, pos = number + 1, _Line(max_line), m.end()
+            number, line, pos = number + 1, _Line(max_line, csv_quotes), m.end()
         line.add(chunk[pos:])
     if line.size:
         yield (number, *line.value())
