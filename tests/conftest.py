@@ -43,6 +43,14 @@ def small_ws(tmp_path, small_jsonl) -> Workspace:
 
 
 LEE_SOURCES = ["Ashford Post", "Bramble Wire", "Cinder Daily"]
+# a two-target test over words the Lee corpus has (a tests file's text), for runs on it
+LEE_TESTS = """
+[tests.power]
+targets_x = ["government", "police", "security"]
+targets_y = ["palestinian", "israeli", "australian"]
+attributes_a = ["against", "after", "before"]
+attributes_b = ["new", "first", "last"]
+"""
 
 
 def lee_documents() -> list[str]:

@@ -11,7 +11,7 @@ import pandas as pd
 import pytest
 from click.testing import CliRunner
 
-from tests.conftest import lee_documents, write_jsonl
+from tests.conftest import LEE_TESTS, lee_documents, write_jsonl
 from tracer.app.cli import cli
 from tracer.app.output import render, render_mapping, spreadsheet_safe
 from tracer.app.pipeline import run_experiment
@@ -19,14 +19,6 @@ from tracer.provenance.experiment import load_experiment
 
 HOSTILE = ['=HYPERLINK("http://evil.example","see")', "-cmd"]
 SOURCES = HOSTILE + ["Plain Post"]
-
-TESTS = """
-[tests.power]
-targets_x = ["government", "police", "security"]
-targets_y = ["palestinian", "israeli", "australian"]
-attributes_a = ["against", "after", "before"]
-attributes_b = ["new", "first", "last"]
-"""
 
 EXPERIMENT = """
 [corpus]
@@ -52,7 +44,7 @@ def hostile_run(tmp_path_factory):
     records = [{"id": f"n{i}", "source": SOURCES[i % 3], "time": 1990 + i % 20, "text": t}
                for i, t in enumerate(lee_documents()) if t.strip()]
     write_jsonl(folder / "lee.jsonl", records)
-    (folder / "tests.toml").write_text(TESTS, encoding="utf-8")
+    (folder / "tests.toml").write_text(LEE_TESTS, encoding="utf-8")
     (folder / "exp.toml").write_text(EXPERIMENT, encoding="utf-8")
     return run_experiment(load_experiment(folder / "exp.toml"))
 

@@ -18,15 +18,7 @@ from tracer.provenance.experiment import load_experiment
 from tracer.provenance.runs import (KILL_HOOK, TMP_PREFIX, RunFolder, clean_abandoned, find_run, stored_runs,
                                     table_stem)
 
-from tests.conftest import LEE_SOURCES, lee_documents, write_jsonl
-
-TESTS = """
-[tests.power]
-targets_x = ["government", "police", "security"]
-targets_y = ["palestinian", "israeli", "australian"]
-attributes_a = ["against", "after", "before"]
-attributes_b = ["new", "first", "last"]
-"""
+from tests.conftest import LEE_SOURCES, LEE_TESTS, lee_documents, write_jsonl
 
 EXPERIMENT = """
 [corpus]
@@ -47,7 +39,7 @@ def _lee_folder(folder: Path, year_of=lambda i: 1990 + i % 20) -> Path:
     records = [{"id": f"lee-{i:03d}", "source": LEE_SOURCES[i % 3], "time": year_of(i), "text": t}
                for i, t in enumerate(lee_documents()) if t.strip()]
     write_jsonl(folder / "lee.jsonl", records)
-    (folder / "tests.toml").write_text(TESTS, encoding="utf-8")
+    (folder / "tests.toml").write_text(LEE_TESTS, encoding="utf-8")
     (folder / "exp.toml").write_text(EXPERIMENT, encoding="utf-8")
     return folder / "exp.toml"
 
@@ -66,7 +58,7 @@ def test_an_edited_tests_file_gives_a_new_run(lee_exp):
     assert not first.reused and first.status == "complete"
     assert run_experiment(load_experiment(lee_exp)).reused  # nothing changed: reused
     tests = lee_exp.parent / "tests.toml"
-    tests.write_text(TESTS.replace('"government", "police"', '"government", "minister"'), encoding="utf-8")
+    tests.write_text(LEE_TESTS.replace('"government", "police"', '"government", "minister"'), encoding="utf-8")
     again = run_experiment(load_experiment(lee_exp))
     assert not again.reused and again.folder != first.folder
     words = {r["word"] for r in json.loads((again.folder / "tables" / "measure_words.json").read_text())}
@@ -134,7 +126,7 @@ def test_table_stems_are_safe_file_names_and_distinct():
 def test_test_names_that_cannot_be_file_names_are_stored(lee_exp):
     folder = lee_exp.parent
     hostile = ["a/b", "nul\x00name", "w" * 300]
-    text = "".join(TESTS.replace("[tests.power]", f'[tests."{n}"]'.replace("\x00", "\\u0000")) for n in hostile)
+    text = "".join(LEE_TESTS.replace("[tests.power]", f'[tests."{n}"]'.replace("\x00", "\\u0000")) for n in hostile)
     (folder / "tests.toml").write_text(text, encoding="utf-8")
     (folder / "exp.toml").write_text(EXPERIMENT + '[drift]\ntests = ["a/b", "nul\\u0000name", "' + "w" * 300
                                      + '"]\nby = "time:10y"\nbootstrap = 0\n', encoding="utf-8")
@@ -211,7 +203,7 @@ def test_experiment_keys_choose_the_case_rule_and_the_word_sets(tmp_path):
     # "metres" occurs 4, 28 and 2 times in the three sources (counted from gensim's Lee corpus):
     # below min_count 3 in Cinder Daily only
     exp_file = _lee_folder(tmp_path)
-    (tmp_path / "tests.toml").write_text(TESTS.replace('"security"]', '"security", "metres"]'), encoding="utf-8")
+    (tmp_path / "tests.toml").write_text(LEE_TESTS.replace('"security"]', '"security", "metres"]'), encoding="utf-8")
     text = EXPERIMENT.replace('workspace = "ws"', 'workspace = "ws"\ncase_rule = "turkish"')
     exp_file.write_text(text, encoding="utf-8")  # the default: the words known in every slice
     common = run_experiment(load_experiment(exp_file))
