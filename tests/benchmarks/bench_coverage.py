@@ -59,6 +59,9 @@ def main():
         print(f"{name:4s} linear interval: coverage of the same-size value {coverage(rows, col, low=low):.3f}; of the "
               f"{POPULATION_FACTOR}x corpus value {big_lin:.3f}; mean half-width "
               f"{np.mean(rows[:, low + 1] - rows[:, low]) / 2:.4f}")
+        ratio = (rows[:, low + 1] - rows[:, low]) / (rows[:, col + 2] - rows[:, col + 1])
+        print(f"{name:4s} linear / bootstrap width per corpus: median {np.median(ratio):.2f}, 10th-90th percentile "
+              f"{np.percentile(ratio, 10):.2f}-{np.percentile(ratio, 90):.2f}")
     print(f"{n} corpora of {args.docs} documents, {args.replicates} replicates each: {time.perf_counter() - t0:.0f} s")
 
 

@@ -26,8 +26,29 @@ sys.path.insert(0, str(HERE.parent / "analysis"))
 ROOT = HERE.parents[1]
 
 
+def fixed_subspace_se(attr, replicates, rng) -> tuple[float, float]:
+    """se of the gap and d over document resamples with the SVD subspace held fixed: the probe rows of
+    the PPMI recomputed exactly from the resampled counts (Attribution's exact tier) and projected on
+    the full-data subspace. Between the linear pass (first order, fixed subspace) and retraining (all
+    orders, subspace moving) it tells which of the two omissions makes the difference."""
+    from tracer.analysis.measure import bootstrap_weights
+
+    n_probe, n_docs = len(attr.probe_ids), attr.ws.n_documents
+    sl = type("S", (), {"weights": attr.weights})
+    gaps, ds = [], []
+    for _ in range(replicates):
+        m = np.divide(bootstrap_weights(sl, rng), attr.weights, out=np.zeros(n_docs), where=attr.weights > 0)
+        left = np.where(attr.weights > 0, 1.0 - m, 0.0)      # the share of each document taken away
+        removed = np.stack([left @ attr.document_probe_counts[k * n_docs:(k + 1) * n_docs] for k in range(n_probe)])
+        e = attr._effects_without(removed[None], (left @ attr.document_row_sums)[None])[0]
+        gaps.append(e.gap)
+        ds.append(e.effect_size)
+    return float(np.std(gaps, ddof=1)), float(np.std(ds, ddof=1))
+
+
 def compare(ws, tests, slices, counts, svd, replicates, seed=0):
-    """Rows (test, slice, linear gap se, bootstrap gap se, linear d se, bootstrap d se)."""
+    """Rows (test, slice, linear gap se, bootstrap gap se, linear d se, bootstrap d se, fixed-subspace
+    gap se, fixed-subspace d se)."""
     from tracer.analysis.influence import Attribution
     from tracer.analysis.linear_interval import linear_intervals
     from tracer.analysis.measure import MeasureSettings, measure
@@ -51,9 +72,10 @@ def compare(ws, tests, slices, counts, svd, replicates, seed=0):
             r = row.iloc[0]
             reps = res.replicates[(res.replicates.test == name) & (res.replicates.slice == sl.name)]
             d_boot = ratio_interval(r.effect_size, r.gap, r.gap / r.effect_size, reps.gap, reps.score_sd).se
-            lin = linear_intervals(Attribution(ws, sl.weights, c, emb, test, alpha=svd.alpha, shift=svd.shift,
-                                               eig_power=svd.eig_power))
-            out.append((name, sl.name, lin.gap.se, float(r.gap_se), lin.d.se, d_boot))
+            attr = Attribution(ws, sl.weights, c, emb, test, alpha=svd.alpha, shift=svd.shift, eig_power=svd.eig_power)
+            lin = linear_intervals(attr)
+            fixed = fixed_subspace_se(attr, replicates, np.random.default_rng(seed))
+            out.append((name, sl.name, lin.gap.se, float(r.gap_se), lin.d.se, d_boot, *fixed))
     return out
 
 
@@ -88,11 +110,16 @@ def main():
             rows += [(f"sim{k}", *r) for r in compare(ws, {"planted": TEST}, [slice_from_spec(ws, "all")], COUNTS,
                                                       SVD, args.replicates, seed=k)]
     print(f"{'case':6s} {'test':16s} {'slice':16s} {'gap lin':>9s} {'gap boot':>9s} {'ratio':>6s} "
-          f"{'d lin':>7s} {'d boot':>7s} {'ratio':>6s}")
-    for case, name, sl, gl, gb, dl, db in rows:
-        print(f"{case:6s} {name:16s} {sl:16s} {gl:9.5f} {gb:9.5f} {gl / gb:6.2f} {dl:7.4f} {db:7.4f} {dl / db:6.2f}")
+          f"{'d lin':>7s} {'d boot':>7s} {'ratio':>6s} {'gap fix':>9s} {'d fix':>7s}")
+    for case, name, sl, gl, gb, dl, db, gf, df in rows:
+        print(f"{case:6s} {name:16s} {sl:16s} {gl:9.5f} {gb:9.5f} {gl / gb:6.2f} {dl:7.4f} {db:7.4f} {dl / db:6.2f} "
+              f"{gf:9.5f} {df:7.4f}")
     g = np.array([r[3] / r[4] for r in rows])
     d = np.array([r[5] / r[6] for r in rows])
+    gf = np.array([r[7] / r[4] for r in rows])
+    df = np.array([r[8] / r[6] for r in rows])
+    print(f"fixed-subspace resample se / bootstrap se: gap median {np.median(gf):.2f} (range {gf.min():.2f}-"
+          f"{gf.max():.2f}), d median {np.median(df):.2f} (range {df.min():.2f}-{df.max():.2f})")
     print(f"se ratio linear/bootstrap over {len(rows)} cases: gap median {np.median(g):.2f} "
           f"(range {g.min():.2f}-{g.max():.2f}), d median {np.median(d):.2f} (range {d.min():.2f}-{d.max():.2f}); "
           f"{args.replicates} replicates (relative se of a bootstrap se about "
