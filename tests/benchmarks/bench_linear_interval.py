@@ -46,7 +46,20 @@ def fixed_subspace_se(attr, replicates, rng) -> tuple[float, float]:
     return float(np.std(gaps, ddof=1)), float(np.std(ds, ddof=1))
 
 
-def compare(ws, tests, slices, counts, svd, replicates, seed=0):
+def delete_one_se(attr) -> tuple[float, float]:
+    """The jackknife se (``sqrt((n - 1) / n sum (T_(i) - mean T_(.))^2)``, Efron and Tibshirani 1993,
+    ch. 11) of the gap and d from the exact re-rank without each document, subspace fixed."""
+    members = np.flatnonzero(attr.weights > 0)
+    effects = attr.exact_each(members)
+    n = len(members)
+    out = []
+    for which in ("gap", "effect_size"):
+        t = np.array([getattr(e, which) for e in effects])
+        out.append(float(np.sqrt((n - 1) / n * np.sum((t - t.mean()) ** 2))))
+    return out[0], out[1]
+
+
+def compare(ws, tests, slices, counts, svd, replicates, seed=0, jackknife=False):
     """Rows (test, slice, linear gap se, bootstrap gap se, linear d se, bootstrap d se, fixed-subspace
     gap se, fixed-subspace d se)."""
     from tracer.analysis.influence import Attribution
@@ -75,7 +88,8 @@ def compare(ws, tests, slices, counts, svd, replicates, seed=0):
             attr = Attribution(ws, sl.weights, c, emb, test, alpha=svd.alpha, shift=svd.shift, eig_power=svd.eig_power)
             lin = linear_intervals(attr)
             fixed = fixed_subspace_se(attr, replicates, np.random.default_rng(seed))
-            out.append((name, sl.name, lin.gap.se, float(r.gap_se), lin.d.se, d_boot, *fixed))
+            jack = delete_one_se(attr) if jackknife else (np.nan, np.nan)
+            out.append((name, sl.name, lin.gap.se, float(r.gap_se), lin.d.se, d_boot, *fixed, *jack))
     return out
 
 
@@ -93,6 +107,7 @@ def main():
     ap.add_argument("--replicates", type=int, default=20)
     ap.add_argument("--corpora", type=int, default=3)
     ap.add_argument("--no-demo", action="store_true")
+    ap.add_argument("--jackknife", action="store_true", help="also the delete-one jackknife (one re-rank a document)")
     args = ap.parse_args()
     t0 = time.perf_counter()
     rows = []
@@ -104,14 +119,16 @@ def main():
             tests = load_tests(ROOT / "configs" / "demo_tests.toml")
             slices = [slice_from_spec(ws, s) for s in ("all", "source=Gazette", "source=Tribune")]
             rows += [("demo", *r) for r in compare(ws, tests, slices, CountSettings(window=5, min_count=5),
-                                                   PpmiSvdSettings(dim=100), args.replicates)]
+                                                   PpmiSvdSettings(dim=100), args.replicates,
+                                                   jackknife=args.jackknife)]
         for k in range(args.corpora):
             ws = workspace(root / f"c{k}", k, 150)
             rows += [(f"sim{k}", *r) for r in compare(ws, {"planted": TEST}, [slice_from_spec(ws, "all")], COUNTS,
-                                                      SVD, args.replicates, seed=k)]
+                                                      SVD, args.replicates, seed=k,
+                                                      jackknife=args.jackknife)]
     print(f"{'case':6s} {'test':16s} {'slice':16s} {'gap lin':>9s} {'gap boot':>9s} {'ratio':>6s} "
           f"{'d lin':>7s} {'d boot':>7s} {'ratio':>6s} {'gap fix':>9s} {'d fix':>7s}")
-    for case, name, sl, gl, gb, dl, db, gf, df in rows:
+    for case, name, sl, gl, gb, dl, db, gf, df, _, _ in rows:
         print(f"{case:6s} {name:16s} {sl:16s} {gl:9.5f} {gb:9.5f} {gl / gb:6.2f} {dl:7.4f} {db:7.4f} {dl / db:6.2f} "
               f"{gf:9.5f} {df:7.4f}")
     g = np.array([r[3] / r[4] for r in rows])
@@ -120,6 +137,11 @@ def main():
     df = np.array([r[8] / r[6] for r in rows])
     print(f"fixed-subspace resample se / bootstrap se: gap median {np.median(gf):.2f} (range {gf.min():.2f}-"
           f"{gf.max():.2f}), d median {np.median(df):.2f} (range {df.min():.2f}-{df.max():.2f})")
+    if args.jackknife:
+        gj = np.array([r[9] / r[4] for r in rows])
+        dj = np.array([r[10] / r[6] for r in rows])
+        print(f"delete-one jackknife se / bootstrap se: gap median {np.median(gj):.2f} (range {gj.min():.2f}-"
+              f"{gj.max():.2f}), d median {np.median(dj):.2f} (range {dj.min():.2f}-{dj.max():.2f})")
     print(f"se ratio linear/bootstrap over {len(rows)} cases: gap median {np.median(g):.2f} "
           f"(range {g.min():.2f}-{g.max():.2f}), d median {np.median(d):.2f} (range {d.min():.2f}-{d.max():.2f}); "
           f"{args.replicates} replicates (relative se of a bootstrap se about "
