@@ -21,8 +21,11 @@ the workers, so small ingests pay nothing for them.
 from __future__ import annotations
 
 import collections
+import contextlib
 import itertools
 import multiprocessing
+import os
+import sys
 from typing import Iterable, Iterator
 
 import numpy as np
@@ -66,7 +69,9 @@ def tokenized(items: Iterable[tuple[object, str | None]], settings: TokenizerSet
         return
     ctx = multiprocessing.get_context("spawn")
     # leaving the block (the end, an error, or the consumer stopping early) terminates the workers
-    with ctx.Pool(jobs, initializer=start_worker, initargs=(settings,)) as pool:
+    with children_without_stderr():
+        pool = ctx.Pool(jobs, initializer=start_worker, initargs=(settings,))
+    with pool:
         pending: collections.deque = collections.deque()
         for chunk in itertools.chain(head, chunks):
             pending.append((chunk, pool.apply_async(tokenize_texts, ([t for _, t in chunk],))))
@@ -75,6 +80,27 @@ def tokenized(items: Iterable[tuple[object, str | None]], settings: TokenizerSet
                 checkpoint("tokenizing")  # the workers busy with the next chunks
         while pending:
             yield from _results(*pending.popleft())
+
+
+@contextlib.contextmanager
+def children_without_stderr() -> Iterator[None]:
+    """Processes started inside get /dev/null as stderr (this process keeps its own).
+
+    When the ingest is killed, its workers find the pipes to it closed, while starting or
+    when sending a chunk back, and Python prints that as a traceback on the terminal the
+    ingest ran in, after the ingest has ended; the resource tracker adds a warning about
+    leaked semaphores. Nothing a worker could print concerns the user: a task's error reaches
+    the ingest as the task's exception, and a killed ingest leaves the corpus as it was.
+    """
+    sys.stderr.flush()
+    saved, devnull = os.dup(2), os.open(os.devnull, os.O_WRONLY)
+    try:
+        os.dup2(devnull, 2)
+        yield
+    finally:
+        os.dup2(saved, 2)
+        os.close(saved)
+        os.close(devnull)
 
 
 def _results(chunk, result) -> Iterator[tuple[object, LocalTokens | None]]:
