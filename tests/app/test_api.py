@@ -71,6 +71,23 @@ def test_measure_table_equals_the_command_lines_csv(demo_ws):
     assert render(m.summary, "csv") == res.stdout
 
 
+def test_correlate_equals_the_command_lines_csv_with_table_words_normalised(demo_ws, tmp_path):
+    # the occupation table with its words in capitals: both doors normalise them like the corpus
+    # (one function, commands.correlation) and give the same table
+    table = pd.read_csv(ROOT / "corpora_demo" / "occupation_shares.csv")
+    table["occupation"] = table["occupation"].str.upper()
+    path = tmp_path / "shares.csv"
+    table.to_csv(path, index=False)
+    args = ["correlate", "-w", demo_ws.path, "--tests", TESTS, "--test", "occupations", "--table", path,
+            "--word-column", "occupation", "--value-column", "share_women", "--resamples", "50", "--format", "csv"]
+    res = CliRunner().invoke(cli, [str(a) for a in args], catch_exceptions=False)
+    assert res.exit_code == 0, res.output
+    c = tracer.correlate(demo_ws.path, TESTS, "occupations", table=path, word_column="occupation",
+                         value_column="share_women", resamples=50)
+    assert render(c.table, "csv") == res.stdout
+    assert (c.table["n_words"] == len(table)).all()
+
+
 def test_user_words_are_normalised_like_the_command_line(demo_ws):
     # a test written in capitals measures the corpus words it stands for (Workspace.normalize_words)
     test = load_tests(TESTS)["gazette_outlet"]
