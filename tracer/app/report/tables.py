@@ -44,9 +44,11 @@ class Col:
 def _missing(v) -> bool:
     if v is None:
         return True
+    if isinstance(v, (list, tuple, dict)):  # a list is a value, even an empty one (pd.isna would map over it)
+        return False
     try:
         return bool(pd.isna(v))
-    except (TypeError, ValueError):  # a list
+    except (TypeError, ValueError):
         return False
 
 
