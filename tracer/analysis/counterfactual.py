@@ -17,7 +17,7 @@ from tracer.files import write_atomic
 from tracer.core.ppmi_svd import PpmiSvdSettings
 from tracer.provenance.models import train_embedding
 from tracer.errors import InputError, SettingError
-from tracer.analysis.measure import MeasureSettings, measure
+from tracer.analysis.measure import MeasureSettings, bootstrap_weights, measure
 from tracer.core.association import AssociationTest
 
 Z95 = 1.959964  # two-sided 95% point of the standard normal (scipy.stats.norm.ppf(0.975))
@@ -106,19 +106,17 @@ def _change_intervals(ws, tests, model, sl, after, res, counts, model_settings, 
     full_b = train_embedding(ws, sl, "ppmi-svd", counts, model_settings, save=False)
     full_a = train_embedding(ws, after, "ppmi-svd", counts, model_settings, save=False)
     rng = np.random.default_rng([settings.seed, 23])
-    members = np.flatnonzero(sl.weights > 0)
     reps = {t.name: [] for t in two}
     for _ in range(settings.bootstrap):
-        w = np.zeros_like(sl.weights)
-        w[members] = rng.multinomial(len(members), np.full(len(members), 1.0 / len(members))) * sl.weights[members]
+        w = bootstrap_weights(sl, rng)
         e_b = train_embedding(ws, sl, "ppmi-svd", counts, model_settings, weights=w, save=False)
         e_a = train_embedding(ws, after, "ppmi-svd", counts, model_settings, weights=w * (after.weights > 0),
                               save=False)
         for t in two:
-            reps[t.name].append(_gap_and_sd(e_a, t) + _gap_and_sd(e_b, t))
+            reps[t.name].append(gap_and_score_sd(e_a, t) + gap_and_score_sd(e_b, t))
     out = {}
     for t in two:
-        (ga, sa), (gb, sb) = _gap_and_sd(full_a, t), _gap_and_sd(full_b, t)
+        (ga, sa), (gb, sb) = gap_and_score_sd(full_a, t), gap_and_score_sd(full_b, t)
         gradient = [*effect_size_gradient(ga, sa), *(-x for x in effect_size_gradient(gb, sb))]
         i = delta_interval(float(rows.loc[("after", t.name), "change"]), gradient, reps[t.name])
         out[t.name] = (i.low, i.high)
@@ -126,7 +124,7 @@ def _change_intervals(ws, tests, model, sl, after, res, counts, model_settings, 
                  f"{settings.bootstrap} paired document-bootstrap replicates")
 
 
-def _gap_and_sd(emb, test) -> tuple[float, float]:
+def gap_and_score_sd(emb, test) -> tuple[float, float]:
     """The gap and the score sd of a test on one model (d = gap / sd)."""
     r = weat(emb.unit_vectors, emb.index, test, with_p=False)
     return r.gap, score_sd(r)

@@ -19,9 +19,9 @@ import numpy as np
 import pandas as pd
 from threadpoolctl import threadpool_limits
 
-from tracer.analysis.counterfactual import reduced_slice
+from tracer.analysis.counterfactual import gap_and_score_sd, reduced_slice
 from tracer.analysis.influence import Attribution
-from tracer.analysis.measure import MeasureSettings, measure
+from tracer.analysis.measure import MeasureSettings, bootstrap_weights, measure
 from tracer.analysis.plan_loss import loss_tables
 from tracer.core.association import AssociationTest, score_sd, weat
 from tracer.core.intervals import RATIO_METHOD, ratio_interval
@@ -134,14 +134,11 @@ def _bootstrap_interval(ws, sl: Slice, test, counts, settings, emb, n: int, seed
     """The interval of d on the model ``emb`` of the filtered corpus ``sl``: the delta method on the
     gap and score sd of ``n`` document-bootstrap replicates (cold SVD each), as ``measure`` gives d's."""
     rng = np.random.default_rng([seed, 7])
-    members = np.flatnonzero(sl.weights > 0)
     reps = []
     for _ in range(n):
-        w = np.zeros_like(sl.weights)
-        w[members] = rng.multinomial(len(members), np.full(len(members), 1.0 / len(members))) * sl.weights[members]
-        e = train_embedding(ws, sl, "ppmi-svd", counts, settings, weights=w, save=False)
-        r = weat(e.unit_vectors, e.index, test, with_p=False)
-        reps.append((r.gap, score_sd(r)))
+        w = bootstrap_weights(sl, rng)
+        reps.append(gap_and_score_sd(train_embedding(ws, sl, "ppmi-svd", counts, settings, weights=w, save=False),
+                                     test))
     full = weat(emb.unit_vectors, emb.index, test, with_p=False)
     i = ratio_interval(full.effect_size, full.gap, score_sd(full), *np.array(reps).T)
     return i.low, i.high
