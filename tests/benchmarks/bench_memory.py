@@ -28,7 +28,7 @@ from tracer.corpus.workspace import Workspace
 from tracer.core import memory
 from tracer.core.counting import CountSettings, build_vocab, count_matrix
 from tracer.core.count_memory import count_size
-from tracer.core.ppmi_svd import PpmiSvdSettings, ppmi_svd_vectors, ppmi_svd_vectors_warm
+from tracer.core.ppmi_svd import PpmiSvdSettings, ppmi_svd_vectors
 from tracer.core.threads import ThreadPool, default_workers
 
 def status(key):
@@ -50,13 +50,8 @@ if step.startswith("count"):
 else:
     c = count_matrix(ws.tokens, ws.doc_offsets, ones, vocab, len(ws.vocab), s, workers=workers)
     dim = 100
-    if step == "ppmi + svd":
-        estimate = memory.ppmi_svd_peak(n, c.nnz, dim)
-        run = lambda: ppmi_svd_vectors(c, PpmiSvdSettings(dim=dim))
-    else:
-        start = np.linalg.qr(np.random.default_rng(0).standard_normal((n, dim)))[0]
-        estimate = memory.ppmi_svd_peak(n, c.nnz, dim, warm=True)
-        run = lambda: ppmi_svd_vectors_warm(c, PpmiSvdSettings(dim=dim), start)
+    estimate = memory.ppmi_svd_peak(n, c.nnz, dim)
+    run = lambda: ppmi_svd_vectors(c, PpmiSvdSettings(dim=dim))
 # the step's libraries loaded and its kernels compiled before the measurement
 count_matrix(np.zeros(4, np.uint32), np.array([0, 4]), np.ones(1), vocab, len(ws.vocab), s)
 open("/proc/self/clear_refs", "w").write("5")
@@ -65,7 +60,7 @@ result = run()
 print(estimate, status("VmHWM:") - before)
 """
 
-STEPS = ["count", "count replicate", "ppmi + svd", "warm svd (replicate)"]
+STEPS = ["count", "count replicate", "ppmi + svd"]
 
 
 def main() -> None:

@@ -21,10 +21,10 @@ from tracer.corpus.slices import Slice
 from tracer.core.association import AssociationTest, unit_rows, weat
 from tracer.core.embedding import Embedding
 from tracer.core.intervals import combined_interval, difference_interval
-from tracer.core.ppmi_svd import PpmiSvdSettings, ppmi_svd_vectors_warm
+from tracer.core.ppmi_svd import PpmiSvdSettings
 from tracer.errors import SettingError, WordNotInVocabulary
 from tracer.analysis.measure import (MeasureSettings, bootstrap_stream, bootstrap_weights, common_words, measure,
-                                     restricted)
+                                     replicate_vectors, restricted)
 from tracer.provenance.counts import count_slice
 from tracer.provenance.models import embedding_from_counts, train_embedding
 from tracer.provenance.specs import normalized_tests
@@ -222,19 +222,18 @@ class _Reweighted:
 
     def _replicates(self, period: Slice, other: Slice, rw: Slice) -> dict:
         """Gaps of the reweighted period over the period's own bootstrap resamples, each reweighted to
-        ``other``'s mix (PPMI-SVD only: the replicates are warm-started from the reweighted model)."""
+        ``other``'s mix (PPMI-SVD only: each replicate gets the exact SVD, as in measure)."""
         if self.model != "ppmi-svd" or self.settings.bootstrap < 2:
             return {}
         if period.name not in self._resamples:
             rng = bootstrap_stream(self.settings.seed, period.name)
             self._resamples[period.name] = [bootstrap_weights(period, rng) for _ in range(self.settings.bootstrap)]
         c, emb = self.counts_and_model(rw)
-        start = emb.extras["context_vectors"].astype(np.float64)
         out = {name: [] for name in self.tests}
         for w in self._resamples[period.name]:
             rw_k = reweight_to(self.ws, Slice(period.name, w, int((w > 0).sum()), period.n_tokens), other)[0]
             rc = count_slice(self.ws, rw_k.weights, self.counts, slice_name=rw.name, vocab=c.vocab)
-            unit = unit_rows(ppmi_svd_vectors_warm(rc.matrix, self.svd, start))
+            unit = unit_rows(replicate_vectors(rc.matrix, self.svd))
             for name, t in self.tests.items():
                 out[name].append(weat(unit, emb.index, t, with_p=False).gap)
         return {name: np.array(v) for name, v in out.items()}

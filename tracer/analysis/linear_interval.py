@@ -25,7 +25,7 @@ linearisation the delta method of :func:`tracer.core.intervals.ratio_interval` a
 the replicates of gap and score sd, here applied to every document's influence at once.
 
 What it ignores: (1) the SVD's subspace moving: the pass holds the right singular vectors
-and singular values fixed, while a bootstrap replicate retrains them (warm start); (2) the
+and singular values fixed, while a bootstrap replicate retrains them (an exact SVD); (2) the
 second-order terms of T in ``m* - 1``, which are not small for a resample (about 37% of the
 documents drop out, others count 2 or 3 times); (3) words crossing the PPMI threshold (only
 cells above it move). The interval is ``T +- z_0.975 se`` (normal quantile: no replicates, so

@@ -44,12 +44,6 @@ Truncated SVD with ARPACK (:func:`tracer.core.ppmi_svd.truncated_svd`).
 
     (measured with tracemalloc, 28,495 words: 12.2 bytes per nonzero and 5.0 k vectors.)
 
-Warm-started SVD of a bootstrap replicate (:func:`tracer.core.ppmi_svd.warm_truncated_svd`).
-    ``k + 30`` columns (the start plus the oversampling) as the product, ``q``, ``z`` and
-    the QR temporaries: six float64 blocks of ``n x (k + 30)``::
-
-        warm_svd = 8 * n * (k + 30) * 6
-
 Dense probe rows (:class:`tracer.analysis.influence.Attribution`).
     ``rows x n`` float64 arrays: the counts, the PPMI and the derivative of the probe rows,
     with about two temporaries: ``8 * rows * n * 5``.
@@ -128,16 +122,10 @@ def svd_peak(n_words: int, nnz: int, dim: int) -> int:
     return 12 * nnz + 8 * n_words * 5 * dim
 
 
-def warm_svd_peak(n_words: int, dim: int, oversample: int = 30) -> int:
-    """Peak bytes of the warm-started SVD of one replicate."""
-    return 8 * n_words * (dim + oversample) * 6
-
-
-def ppmi_svd_peak(n_words: int, nnz: int, dim: int, *, warm: bool = False) -> int:
+def ppmi_svd_peak(n_words: int, nnz: int, dim: int) -> int:
     """Peak bytes of the PPMI and then the SVD of a count matrix, beyond the counts: the PPMI's
     temporaries, or the PPMI matrix (12 bytes a nonzero) beside the SVD's arrays."""
-    svd = warm_svd_peak(n_words, dim) if warm else svd_peak(n_words, nnz, dim)
-    return max(ppmi_peak(nnz), 12 * nnz + svd)
+    return max(ppmi_peak(nnz), 12 * nnz + svd_peak(n_words, nnz, dim))
 
 
 def dense_rows_peak(n_rows: int, n_words: int) -> int:

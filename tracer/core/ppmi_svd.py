@@ -24,13 +24,13 @@ from tracer.errors import SettingError
 SVD_FIX = "lower --dim, or raise --min-count / set --max-vocab (fewer words)"
 
 
-def check_svd_memory(counts, dim: int, *, warm: bool = False) -> None:
+def check_svd_memory(counts, dim: int) -> None:
     """Raise :class:`tracer.errors.NotEnoughMemory` before the PPMI and SVD of ``counts`` when they
     cannot fit: the PPMI's temporaries, then the PPMI matrix (12 bytes a nonzero) beside the SVD's
     arrays (:mod:`tracer.core.memory`)."""
     n, nnz = counts.shape[0], counts.nnz
-    memory.require(f"the PPMI and {'warm-started ' if warm else ''}SVD of {n:,} words ({nnz:,} nonzeros, dim {dim})",
-                   memory.ppmi_svd_peak(n, nnz, dim, warm=warm), SVD_FIX)
+    memory.require(f"the PPMI and SVD of {n:,} words ({nnz:,} nonzeros, dim {dim})",
+                   memory.ppmi_svd_peak(n, nnz, dim), SVD_FIX)
 
 
 @dataclasses.dataclass(frozen=True)
@@ -128,42 +128,3 @@ def ppmi_svd_vectors(counts, settings: PpmiSvdSettings) -> tuple[np.ndarray, dic
     u, s, vt = truncated_svd(ppmi, settings.dim, settings.seed)
     vectors = u * (s ** settings.eig_power)
     return vectors.astype(np.float32), {"singular_values": s, "context_vectors": vt.T.astype(np.float32)}
-
-
-# Power iterations of the warm-started SVD. Against a cold ARPACK SVD of the same demo replicate
-# (tests/core/test_warm_svd.py), 4 iterations left errors up to 0.09 in d and 0.003 in the gap of
-# a test with nothing planted (d is a ratio of small numbers there); 8 keep them near 0.01 in d and
-# 0.001 in the gap, inside the tolerance the test holds (0.02 in d, 0.002 in the gap).
-WARM_ITERATIONS = 8
-
-
-def warm_truncated_svd(matrix, k: int, start: np.ndarray, *, n_iter: int = WARM_ITERATIONS, oversample: int = 30,
-                       seed: int = 0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Truncated SVD by subspace iteration started from a known right subspace.
-
-    For a bootstrap replicate of a PPMI matrix the full-data right singular
-    vectors ``start`` (shape (n_cols, k)) already span nearly the right subspace,
-    so a few power iterations (Halko, Martinsson and Tropp 2011, alg. 4.4,
-    with a warm start instead of a random one) replace a cold ARPACK run.
-    ``oversample`` random extra columns absorb what the start misses. Signs are
-    fixed by :func:`fix_signs`.
-    """
-    m = sp.csr_array(matrix, dtype=np.float64)
-    rng = np.random.default_rng(seed)
-    extra = rng.standard_normal((m.shape[1], oversample))
-    with blas_threads_for(m.shape[0]):
-        q, _ = np.linalg.qr(m @ np.hstack([start, extra]))
-        for _ in range(n_iter):
-            z, _ = np.linalg.qr(m.T @ q)
-            q, _ = np.linalg.qr(m @ z)
-        ub, s, vt = np.linalg.svd((m.T @ q).T, full_matrices=False)
-    u, vt = fix_signs(q @ ub[:, :k], vt[:k])
-    return u, s[:k], vt
-
-
-def ppmi_svd_vectors_warm(counts, settings: PpmiSvdSettings, start: np.ndarray) -> np.ndarray:
-    """Word vectors of a replicate, the SVD warm-started from the full data's context vectors."""
-    check_svd_memory(counts, settings.dim, warm=True)
-    ppmi = ppmi_matrix(counts, alpha=settings.alpha, shift=settings.shift)
-    u, s, _ = warm_truncated_svd(ppmi, settings.dim, start, seed=settings.seed)
-    return (u * (s ** settings.eig_power)).astype(np.float32)
