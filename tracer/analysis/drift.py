@@ -18,13 +18,13 @@ from scipy import stats
 
 from tracer.core.counting import CountSettings
 from tracer.corpus.slices import Slice
-from tracer.core.association import AssociationTest, unit_rows, weat
+from tracer.core.association import AssociationTest, unit_rows, weat, word_sets
 from tracer.core.embedding import Embedding
 from tracer.core.intervals import combined_interval, difference_interval
 from tracer.core.ppmi_svd import PpmiSvdSettings
 from tracer.errors import SettingError, WordNotInVocabulary
 from tracer.analysis.measure import (MeasureSettings, bootstrap_stream, bootstrap_weights, common_words, measure,
-                                     replicate_vectors, restricted)
+                                     replicate_vectors_many, restricted)
 from tracer.provenance.counts import count_slice
 from tracer.provenance.models import embedding_from_counts, train_embedding
 from tracer.provenance.specs import normalized_tests
@@ -205,35 +205,48 @@ class _Reweighted:
         self.settings = settings
         self.svd = model_settings if isinstance(model_settings, PpmiSvdSettings) else PpmiSvdSettings(
             dim=getattr(model_settings, "dim", 100))
-        self.one = dataclasses.replace(settings, bootstrap=0, per_slice_words=True)
         self._pairs: dict = {}
         self._models: dict = {}
         self._resamples: dict = {}
 
     def pair(self, period: Slice, other: Slice):
-        """(period reweighted to other's mix, sources only in period, sources only in other, its measure
-        summary by test, its replicate gaps by test)."""
+        """(period reweighted to other's mix, sources only in period, sources only in other, its gaps
+        by test (measured, gap), its replicate gaps by test)."""
         if (period.name, other.name) not in self._pairs:
             rw, only_p, only_o = reweight_to(self.ws, period, other)
-            summary = measure(self.ws, self.tests, self.model, [rw], self.counts, self.model_settings,
-                              self.one).summary.set_index("test")
-            self._pairs[period.name, other.name] = (rw, only_p, only_o, summary, self._replicates(period, other, rw))
+            self._pairs[period.name, other.name] = (rw, only_p, only_o, self._gaps(rw), self._replicates(period, other, rw))
         return self._pairs[period.name, other.name]
+
+    def _gaps(self, rw: Slice) -> pd.DataFrame:
+        """Whether each test can be measured on the reweighted period and its gap there, by test: what
+        :func:`measure` gives in those columns, from the model :meth:`counts_and_model` keeps (which
+        the per-source split and the replicates use as well), so it is made once."""
+        c, emb = self.counts_and_model(rw)
+        unit, known = unit_rows(emb.vectors), set(emb.index) & set(c.vocab.index)
+        rows = []
+        for name, t in self.tests.items():
+            ok = word_sets(t, known).reason_not_measured(True, self.settings.min_words) is None
+            rows.append({"test": name, "measured": ok,
+                         "gap": weat(unit, emb.index, t, with_p=False).gap if ok else float("nan")})
+        return pd.DataFrame(rows, columns=["test", "measured", "gap"]).set_index("test")
 
     def _replicates(self, period: Slice, other: Slice, rw: Slice) -> dict:
         """Gaps of the reweighted period over the period's own bootstrap resamples, each reweighted to
-        ``other``'s mix (PPMI-SVD only: each replicate gets the exact SVD, as in measure)."""
+        ``other``'s mix (PPMI-SVD only: each replicate gets the exact SVD, as in measure, on the
+        replicate pool's workers)."""
         if self.model != "ppmi-svd" or self.settings.bootstrap < 2:
             return {}
         if period.name not in self._resamples:
             rng = bootstrap_stream(self.settings.seed, period.name)
             self._resamples[period.name] = [bootstrap_weights(period, rng) for _ in range(self.settings.bootstrap)]
         c, emb = self.counts_and_model(rw)
+        resamples = self._resamples[period.name]
+        matrices = (count_slice(self.ws, reweight_to(self.ws, Slice(period.name, w, int((w > 0).sum()), period.n_tokens),
+                                                     other)[0].weights, self.counts, slice_name=rw.name,
+                                vocab=c.vocab).matrix for w in resamples)
         out = {name: [] for name in self.tests}
-        for w in self._resamples[period.name]:
-            rw_k = reweight_to(self.ws, Slice(period.name, w, int((w > 0).sum()), period.n_tokens), other)[0]
-            rc = count_slice(self.ws, rw_k.weights, self.counts, slice_name=rw.name, vocab=c.vocab)
-            unit = unit_rows(replicate_vectors(rc.matrix, self.svd))
+        for vectors in replicate_vectors_many(matrices, self.svd, len(resamples), c.matrix):
+            unit = unit_rows(vectors)
             for name, t in self.tests.items():
                 out[name].append(weat(unit, emb.index, t, with_p=False).gap)
         return {name: np.array(v) for name, v in out.items()}

@@ -14,8 +14,10 @@ sizes show which words carry a result.
 from __future__ import annotations
 
 import dataclasses
+import functools
 import hashlib
 import logging
+from typing import Iterable
 
 import numpy as np
 import pandas as pd
@@ -28,7 +30,9 @@ from tracer.core.counting import CountSettings, Counts, build_vocab
 from tracer.core.intervals import METHOD, RATIO_METHOD, bootstrap_interval, q_values, ratio_interval
 from tracer.provenance.counts import count_slice
 from tracer.corpus.slices import Slice
-from tracer.core.ppmi_svd import PpmiSvdSettings, ppmi_svd_vectors
+from tracer.core import memory
+from tracer.core.ppmi_svd import PpmiSvdSettings, word_vectors
+from tracer.core.replicate_pool import map_replicates, workers_for
 from tracer.provenance.models import embedding_from_counts, train_embedding
 from tracer.core.embedding import Embedding
 from tracer.core.word2vec import Word2VecSettings
@@ -131,7 +135,18 @@ def replicate_vectors(counts, settings: PpmiSvdSettings) -> np.ndarray:
     by up to 0.32 and the gap by up to 0.025 from the exact SVD of the same replicate
     (tests/benchmarks/bench_bootstrap.py measures both side by side).
     """
-    return ppmi_svd_vectors(counts, settings)[0]
+    return word_vectors(counts, settings)
+
+
+def replicate_vectors_many(matrices: Iterable, settings: PpmiSvdSettings, n: int, full) -> list[np.ndarray]:
+    """:func:`replicate_vectors` of each of ``n`` count matrices, in order, on the replicate pool's
+    worker processes (:mod:`tracer.core.replicate_pool`; the same vectors bit for bit on one).
+
+    ``full`` is the count matrix of the data resampled: a replicate has no more nonzeros, so the
+    number of workers is bounded by the memory its PPMI and SVD take (and the copy a worker gets).
+    """
+    per_task = 12 * full.nnz + memory.ppmi_svd_peak(full.shape[0], full.nnz, settings.dim)
+    return map_replicates(functools.partial(word_vectors, settings=settings), matrices, workers_for(per_task, n))
 
 
 def common_words(ws, tests: dict[str, AssociationTest], slices: list[Slice], counts: CountSettings) -> set[str]:
@@ -384,16 +399,20 @@ def _bootstrap(ws, sl, c, tests, model, counts, model_settings, settings, emb, r
     d = {t.name: [] for t in two}
     gaps = {t.name: [] for t in two}
     sds = {t.name: [] for t in two}
-    for _ in tqdm(range(settings.bootstrap), desc=f"bootstrap {sl.name}", disable=not progress, leave=False):
-        w = bootstrap_weights(sl, rng)
-        if model == "ppmi-svd":
-            rc = count_slice(ws, w, counts, slice_name=sl.name, vocab=c.vocab)
-            # the same exact truncated SVD as the full-data model (a warm-started subspace iteration
-            # was tried and dropped: see replicate_vectors)
-            reps = [Embedding(emb.words, replicate_vectors(rc.matrix, model_settings), emb.card)]
-        else:
-            reps = [train_embedding(ws, sl, model, counts, dataclasses.replace(model_settings, seed=model_settings.seed + k),
-                                    weights=w, save=False) for k in range(settings.seeds)]
+    # every resample drawn first, in order, so the results do not depend on how many workers decompose them
+    weights = [bootstrap_weights(sl, rng) for _ in range(settings.bootstrap)]
+    if model == "ppmi-svd":
+        matrices = (count_slice(ws, w, counts, slice_name=sl.name, vocab=c.vocab).matrix
+                    for w in tqdm(weights, desc=f"bootstrap {sl.name}", disable=not progress, leave=False))
+        # the same exact truncated SVD as the full-data model (a warm-started subspace iteration
+        # was tried and dropped: see replicate_vectors)
+        replicates = ([Embedding(emb.words, v, emb.card)]
+                      for v in replicate_vectors_many(matrices, model_settings, len(weights), c.matrix))
+    else:
+        replicates = ([train_embedding(ws, sl, model, counts, dataclasses.replace(model_settings, seed=model_settings.seed + k),
+                                       weights=w, save=False) for k in range(settings.seeds)]
+                      for w in tqdm(weights, desc=f"bootstrap {sl.name}", disable=not progress, leave=False))
+    for reps in replicates:
         for t in two:
             rs = [weat(unit_rows(e.vectors), e.index, t, with_p=False) for e in reps]
             d[t.name].append(float(np.nanmean([r.effect_size for r in rs])))

@@ -128,3 +128,9 @@ def ppmi_svd_vectors(counts, settings: PpmiSvdSettings) -> tuple[np.ndarray, dic
     u, s, vt = truncated_svd(ppmi, settings.dim, settings.seed)
     vectors = u * (s ** settings.eig_power)
     return vectors.astype(np.float32), {"singular_values": s, "context_vectors": vt.T.astype(np.float32)}
+
+
+def word_vectors(counts, settings: PpmiSvdSettings) -> np.ndarray:
+    """The word vectors of :func:`ppmi_svd_vectors` alone (what a bootstrap replicate keeps),
+    shape (n_words, settings.dim), float32."""
+    return ppmi_svd_vectors(counts, settings)[0]
