@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
+from typing import Callable
 
 import numpy as np
 import pandas as pd
@@ -24,7 +25,7 @@ from tracer.core.intervals import combined_interval, difference_interval
 from tracer.core.ppmi_svd import PpmiSvdSettings
 from tracer.errors import SettingError, WordNotInVocabulary
 from tracer.analysis.measure import (MeasureSettings, bootstrap_stream, bootstrap_weights, common_words, measure,
-                                     replicate_vectors_many, restricted)
+                                     restricted, start_replicate_vectors)
 from tracer.provenance.counts import count_slice
 from tracer.provenance.models import embedding_from_counts, train_embedding
 from tracer.provenance.specs import normalized_tests
@@ -207,6 +208,7 @@ class _Reweighted:
             dim=getattr(model_settings, "dim", 100))
         self._pairs: dict = {}
         self._models: dict = {}
+        self._counts: dict = {}
         self._resamples: dict = {}
 
     def pair(self, period: Slice, other: Slice):
@@ -214,7 +216,9 @@ class _Reweighted:
         by test (measured, gap), its replicate gaps by test)."""
         if (period.name, other.name) not in self._pairs:
             rw, only_p, only_o = reweight_to(self.ws, period, other)
-            self._pairs[period.name, other.name] = (rw, only_p, only_o, self._gaps(rw), self._replicates(period, other, rw))
+            replicates = self._replicates(period, other, rw)  # started first: they run beside the model's SVD
+            gaps = self._gaps(rw)
+            self._pairs[period.name, other.name] = (rw, only_p, only_o, gaps, replicates())
         return self._pairs[period.name, other.name]
 
     def _gaps(self, rw: Slice) -> pd.DataFrame:
@@ -230,31 +234,42 @@ class _Reweighted:
                          "gap": weat(unit, emb.index, t, with_p=False).gap if ok else float("nan")})
         return pd.DataFrame(rows, columns=["test", "measured", "gap"]).set_index("test")
 
-    def _replicates(self, period: Slice, other: Slice, rw: Slice) -> dict:
-        """Gaps of the reweighted period over the period's own bootstrap resamples, each reweighted to
-        ``other``'s mix (PPMI-SVD only: each replicate gets the exact SVD, as in measure, on the
-        replicate pool's workers)."""
+    def _replicates(self, period: Slice, other: Slice, rw: Slice) -> Callable[[], dict]:
+        """Start the gaps of the reweighted period over the period's own bootstrap resamples, each
+        reweighted to ``other``'s mix (PPMI-SVD only: each replicate gets the exact SVD, as in
+        measure, on the replicate pool's workers); returns the function that waits for them."""
         if self.model != "ppmi-svd" or self.settings.bootstrap < 2:
-            return {}
+            return dict
         if period.name not in self._resamples:
             rng = bootstrap_stream(self.settings.seed, period.name)
             self._resamples[period.name] = [bootstrap_weights(period, rng) for _ in range(self.settings.bootstrap)]
-        c, emb = self.counts_and_model(rw)
+        c = self.counts_of(rw)
         resamples = self._resamples[period.name]
         matrices = (count_slice(self.ws, reweight_to(self.ws, Slice(period.name, w, int((w > 0).sum()), period.n_tokens),
                                                      other)[0].weights, self.counts, slice_name=rw.name,
                                 vocab=c.vocab).matrix for w in resamples)
-        out = {name: [] for name in self.tests}
-        for vectors in replicate_vectors_many(matrices, self.svd, len(resamples), c.matrix):
-            unit = unit_rows(vectors)
-            for name, t in self.tests.items():
-                out[name].append(weat(unit, emb.index, t, with_p=False).gap)
-        return {name: np.array(v) for name, v in out.items()}
+        pending = start_replicate_vectors(matrices, self.svd, len(resamples), c.matrix)
+
+        def gaps() -> dict:
+            index = self.counts_and_model(rw)[1].index
+            out = {name: [] for name in self.tests}
+            for vectors in pending():
+                unit = unit_rows(vectors)
+                for name, t in self.tests.items():
+                    out[name].append(weat(unit, index, t, with_p=False).gap)
+            return {name: np.array(v) for name, v in out.items()}
+        return gaps
+
+    def counts_of(self, period: Slice):
+        """The counts of a period, made once."""
+        if period.name not in self._counts:
+            self._counts[period.name] = count_slice(self.ws, period.weights, self.counts, slice_name=period.name)
+        return self._counts[period.name]
 
     def counts_and_model(self, period: Slice):
         """The PPMI-SVD counts and model of a period (for trace's machinery), made once."""
         if period.name not in self._models:
-            c = count_slice(self.ws, period.weights, self.counts, slice_name=period.name)
+            c = self.counts_of(period)
             self._models[period.name] = (c, embedding_from_counts(self.ws, period, c, self.svd))
         return self._models[period.name]
 

@@ -17,7 +17,7 @@ import dataclasses
 import functools
 import hashlib
 import logging
-from typing import Iterable
+from typing import Callable, Iterable
 
 import numpy as np
 import pandas as pd
@@ -32,7 +32,7 @@ from tracer.provenance.counts import count_slice
 from tracer.corpus.slices import Slice
 from tracer.core import memory
 from tracer.core.ppmi_svd import PpmiSvdSettings, word_vectors
-from tracer.core.replicate_pool import map_replicates, workers_for
+from tracer.core.replicate_pool import submit_replicates, workers_for
 from tracer.provenance.models import embedding_from_counts, train_embedding
 from tracer.core.embedding import Embedding
 from tracer.core.word2vec import Word2VecSettings
@@ -138,15 +138,16 @@ def replicate_vectors(counts, settings: PpmiSvdSettings) -> np.ndarray:
     return word_vectors(counts, settings)
 
 
-def replicate_vectors_many(matrices: Iterable, settings: PpmiSvdSettings, n: int, full) -> list[np.ndarray]:
-    """:func:`replicate_vectors` of each of ``n`` count matrices, in order, on the replicate pool's
-    worker processes (:mod:`tracer.core.replicate_pool`; the same vectors bit for bit on one).
+def start_replicate_vectors(matrices: Iterable, settings: PpmiSvdSettings, n: int, full) -> Callable[[], list]:
+    """Start :func:`replicate_vectors` of each of ``n`` count matrices on the replicate pool's worker
+    processes (:mod:`tracer.core.replicate_pool`; the same vectors bit for bit on one); returns the
+    function that waits for them and gives them in order.
 
     ``full`` is the count matrix of the data resampled: a replicate has no more nonzeros, so the
     number of workers is bounded by the memory its PPMI and SVD take (and the copy a worker gets).
     """
     per_task = 12 * full.nnz + memory.ppmi_svd_peak(full.shape[0], full.nnz, settings.dim)
-    return map_replicates(functools.partial(word_vectors, settings=settings), matrices, workers_for(per_task, n))
+    return submit_replicates(functools.partial(word_vectors, settings=settings), matrices, workers_for(per_task, n))
 
 
 def common_words(ws, tests: dict[str, AssociationTest], slices: list[Slice], counts: CountSettings) -> set[str]:
@@ -218,11 +219,13 @@ def measure(ws, tests: dict[str, AssociationTest], model: str, slices: list[Slic
     for sl in list(slices) + ([None] if vectors is not None else []):
         slice_name = sl.name if sl is not None else "external"
         c = count_slice(ws, sl.weights, counts, slice_name=sl.name) if sl is not None else None
+        # the replicates start first: their SVDs run on the pool beside the estimate's
+        finish = _bootstrap(ws, sl, c, used, model, counts, model_settings, settings,
+                            bootstrap_stream(settings.seed, sl.name), progress) \
+            if sl is not None and settings.bootstrap > 0 else None
         embs = _embeddings(ws, sl, c, model, counts, model_settings, settings) if sl is not None else [vectors]
         model_name = model if sl is not None else "external"
-        boot = _bootstrap(ws, sl, c, used, model, counts, model_settings, settings, embs[0],
-                          bootstrap_stream(settings.seed, sl.name), progress) \
-            if sl is not None and settings.bootstrap > 0 else {}
+        boot = finish(embs[0]) if finish is not None else {}
         ppmi = ppmi_matrix(c.matrix, alpha=settings.alpha).tocsr() if c is not None else None
         for name, (ds, gaps, sds) in boot.items():
             rep_rows.extend({"test": name, "model": model, "slice": slice_name, "replicate": k, "effect_size": d,
@@ -389,33 +392,42 @@ def _leave_one_out(test, wsets, embs, summary_row) -> list[dict]:
     return out
 
 
-def _bootstrap(ws, sl, c, tests, model, counts, model_settings, settings, emb, rng, progress) -> dict:
-    """Effect sizes, gaps and score sds of every two-target test over document-bootstrap replicates."""
-    known = set(emb.index) & set(c.vocab.index)
-    two = [t for t in tests.values()
-           if t.two_target and word_sets(t, known).reason_not_measured(True, settings.min_words) is None]
-    if not two:
-        return {}
-    d = {t.name: [] for t in two}
-    gaps = {t.name: [] for t in two}
-    sds = {t.name: [] for t in two}
-    # every resample drawn first, in order, so the results do not depend on how many workers decompose them
+def _bootstrap(ws, sl, c, tests, model, counts, model_settings, settings, rng, progress) -> Callable[[Embedding], dict]:
+    """Start the document-bootstrap replicates of a slice; returns ``finish(emb)``, which gives the
+    effect sizes, gaps and score sds of every two-target test measurable with the model ``emb``.
+
+    Every resample is drawn first, in order, so the results do not depend on how many workers
+    decompose them. PPMI-SVD replicates are counted and handed to the replicate pool at once (the
+    model's words are its counts' words, so the tests measured are known before the model).
+    """
+    def measurable(known):
+        return [t for t in tests.values()
+                if t.two_target and word_sets(t, known).reason_not_measured(True, settings.min_words) is None]
+
     weights = [bootstrap_weights(sl, rng) for _ in range(settings.bootstrap)]
-    if model == "ppmi-svd":
-        matrices = (count_slice(ws, w, counts, slice_name=sl.name, vocab=c.vocab).matrix
-                    for w in tqdm(weights, desc=f"bootstrap {sl.name}", disable=not progress, leave=False))
+    bar = functools.partial(tqdm, desc=f"bootstrap {sl.name}", disable=not progress, leave=False)
+    pending = None
+    if model == "ppmi-svd" and measurable(set(c.vocab.index)):
+        matrices = (count_slice(ws, w, counts, slice_name=sl.name, vocab=c.vocab).matrix for w in bar(weights))
         # the same exact truncated SVD as the full-data model (a warm-started subspace iteration
         # was tried and dropped: see replicate_vectors)
-        replicates = ([Embedding(emb.words, v, emb.card)]
-                      for v in replicate_vectors_many(matrices, model_settings, len(weights), c.matrix))
-    else:
-        replicates = ([train_embedding(ws, sl, model, counts, dataclasses.replace(model_settings, seed=model_settings.seed + k),
-                                       weights=w, save=False) for k in range(settings.seeds)]
-                      for w in tqdm(weights, desc=f"bootstrap {sl.name}", disable=not progress, leave=False))
-    for reps in replicates:
-        for t in two:
-            rs = [weat(unit_rows(e.vectors), e.index, t, with_p=False) for e in reps]
-            d[t.name].append(float(np.nanmean([r.effect_size for r in rs])))
-            gaps[t.name].append(float(np.mean([r.gap for r in rs])))
-            sds[t.name].append(float(np.mean([score_sd(r) for r in rs])))
-    return {name: (np.array(d[name]), np.array(gaps[name]), np.array(sds[name])) for name in d}
+        pending = start_replicate_vectors(matrices, model_settings, len(weights), c.matrix)
+
+    def finish(emb: Embedding) -> dict:
+        two = measurable(set(emb.index) & set(c.vocab.index))
+        if not two:
+            return {}
+        if pending is not None:
+            replicates = ([Embedding(emb.words, v, emb.card)] for v in pending())
+        else:
+            replicates = ([train_embedding(ws, sl, model, counts, dataclasses.replace(model_settings, seed=model_settings.seed + k),
+                                           weights=w, save=False) for k in range(settings.seeds)] for w in bar(weights))
+        d, gaps, sds = ({t.name: [] for t in two} for _ in range(3))
+        for reps in replicates:
+            for t in two:
+                rs = [weat(unit_rows(e.vectors), e.index, t, with_p=False) for e in reps]
+                d[t.name].append(float(np.nanmean([r.effect_size for r in rs])))
+                gaps[t.name].append(float(np.mean([r.gap for r in rs])))
+                sds[t.name].append(float(np.mean([score_sd(r) for r in rs])))
+        return {name: (np.array(d[name]), np.array(gaps[name]), np.array(sds[name])) for name in d}
+    return finish

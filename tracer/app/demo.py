@@ -5,6 +5,7 @@ from __future__ import annotations
 import dataclasses
 import json
 import time
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 from typing import Callable
 
@@ -59,7 +60,10 @@ def run_demo(workspace: str | Path, *, progress: bool = False,
     from tracer.provenance.experiment import load_experiment
     from tracer.corpus.slices import slice_from_spec
     from tracer.corpus.workspace import Workspace
-    from tracer.provenance.models import train_embedding
+    from tracer.corpus.ingest import ingest
+    from tracer.corpus.lock import workspace_lock
+    from tracer.provenance.models import model_folder, train_embedding
+    from tracer.provenance.vectors_io import save_embedding
     from tracer.app.pipeline import run_experiment
 
     if not DEMO_CORPUS.is_file() or not DEMO_EXPERIMENT.is_file():
@@ -68,12 +72,20 @@ def run_demo(workspace: str | Path, *, progress: bool = False,
     t0 = time.perf_counter()
     workspace = Path(workspace).resolve()
     exp = dataclasses.replace(load_experiment(DEMO_EXPERIMENT), workspace=workspace)
-    result = run_experiment(exp, progress=progress, say=say, command=f"tracer demo -w {workspace}")
+    # the word2vec model the demo stores does not depend on the run: it is trained on a thread of
+    # its own beside it (gensim's training loop releases the GIL; one gensim worker, so the same
+    # vectors as alone), after the archive is ingested (the run then finds nothing new to ingest)
+    ingest(workspace, exp.inputs, fields=exp.fields, tokenizer=exp.tokenizer, progress=progress)
+    with ThreadPoolExecutor(max_workers=1, thread_name_prefix="demo-word2vec") as side:
+        w2v_job = side.submit(demo_word2vec, Workspace(workspace), exp.counts, save=False)
+        result = run_experiment(exp, progress=progress, say=say, command=f"tracer demo -w {workspace}")
+        w2v = w2v_job.result()
     ws = Workspace(workspace)
     say("storing PPMI-SVD and word2vec models of the whole archive for tracer neighbours and export")
     whole = slice_from_spec(ws, "all")
     ppmi = train_embedding(ws, whole, "ppmi-svd", exp.counts, exp.ppmi_svd, progress=progress)
-    w2v = demo_word2vec(ws, exp.counts, progress=progress)
+    with workspace_lock(ws.path, command="store the demo's word2vec model of slice all"):
+        save_embedding(w2v, model_folder(ws, "word2vec", "all"))
     export_path = workspace / "exports" / "ppmi-svd-all.txt"
     export_path.parent.mkdir(exist_ok=True)
     write_word2vec_format(ppmi, export_path)

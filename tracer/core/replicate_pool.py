@@ -4,7 +4,8 @@ The replicates of a bootstrap are independent: each is a truncated SVD (ARPACK) 
 resampled counts. ARPACK and scipy's sparse products hold the GIL much of the time, so two
 threads gave little (and :func:`tracer.core.ppmi_svd.blas_threads_for` sets a process-wide BLAS
 limit that threads would undo for each other); worker processes run them side by side.
-:func:`map_replicates` returns ``[fn(item) for item in items]`` in the order of ``items``, the
+:func:`map_replicates` returns ``[fn(item) for item in items]`` in the order of ``items`` (and
+:func:`submit_replicates` starts them and lets the caller work meanwhile), the
 same values bit for bit whatever the number of workers: every input (weights drawn, counts made)
 is made by the caller before it is handed over, and each worker runs the same single-threaded
 BLAS (tests/analysis/test_replicate_pool.py compares 1 and 2 workers).
@@ -82,18 +83,39 @@ def _pool(workers: int) -> ProcessPoolExecutor:
         return _pools[workers]
 
 
-def map_replicates(fn: Callable, items: Iterable, workers: int = 1) -> list:
-    """``[fn(item) for item in items]``, on ``workers`` processes when more than one.
+def submit_replicates(fn: Callable, items: Iterable, workers: int = 1) -> Callable[[], list]:
+    """Start ``[fn(item) for item in items]`` on ``workers`` processes (when more than one) and return
+    a function that waits for the results and returns them in order, so the caller can do other work
+    meanwhile. With one worker nothing starts until that function is called.
 
     ``fn`` must be a module-level function (or a ``functools.partial`` of one) and the items and
-    results picklable. An exception raised by ``fn`` is raised here.
+    results picklable. An exception raised by ``fn`` is raised by the returned function.
     """
     if workers <= 1:
-        return [fn(item) for item in items]
+        return lambda: [fn(item) for item in items]
     pool = _pool(workers)
     try:
-        return list(pool.map(fn, items))
+        futures = [pool.submit(fn, item) for item in items]
     except BrokenProcessPool:
-        with _lock:
-            _pools.pop(workers, None)
+        _forget(workers)
         raise
+
+    def results() -> list:
+        try:
+            return [f.result() for f in futures]
+        except BrokenProcessPool:
+            _forget(workers)
+            raise
+    return results
+
+
+def map_replicates(fn: Callable, items: Iterable, workers: int = 1) -> list:
+    """``[fn(item) for item in items]``, on ``workers`` processes when more than one (see
+    :func:`submit_replicates`)."""
+    return submit_replicates(fn, items, workers)()
+
+
+def _forget(workers: int) -> None:
+    """Drop a pool whose worker died, so the next call starts a new one."""
+    with _lock:
+        _pools.pop(workers, None)
