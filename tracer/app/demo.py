@@ -11,6 +11,7 @@ from typing import Callable
 
 import pandas as pd
 
+from tracer.core.replicate_pool import start_workers
 from tracer.core.word2vec import Word2VecSettings
 from tracer.errors import InputError
 from tracer.app.output import render, wrap
@@ -76,6 +77,7 @@ def run_demo(workspace: str | Path, *, progress: bool = False,
     # its own beside it (gensim's training loop releases the GIL; one gensim worker, so the same
     # vectors as alone), after the archive is ingested (the run then finds nothing new to ingest)
     ingest(workspace, exp.inputs, fields=exp.fields, tokenizer=exp.tokenizer, progress=progress)
+    start_workers()  # the run's bootstrap replicates will need them
     with ThreadPoolExecutor(max_workers=1, thread_name_prefix="demo-word2vec") as side:
         w2v_job = side.submit(demo_word2vec, Workspace(workspace), exp.counts, save=False)
         result = run_experiment(exp, progress=progress, say=say, command=f"tracer demo -w {workspace}")

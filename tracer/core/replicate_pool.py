@@ -83,6 +83,16 @@ def _pool(workers: int) -> ProcessPoolExecutor:
         return _pools[workers]
 
 
+def start_workers() -> None:
+    """Start the configured number of workers now, so that the first replicates need not wait the
+    second or so a spawned worker takes to start (a caller that knows replicates will follow)."""
+    workers = configured_workers()
+    if workers > 1:
+        pool = _pool(workers)
+        for _ in range(workers):  # the pool starts a process for each task it cannot give an idle one
+            pool.submit(int)
+
+
 def submit_replicates(fn: Callable, items: Iterable, workers: int = 1) -> Callable[[], list]:
     """Start ``[fn(item) for item in items]`` on ``workers`` processes (when more than one) and return
     a function that waits for the results and returns them in order, so the caller can do other work
