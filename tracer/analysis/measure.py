@@ -126,22 +126,17 @@ def bootstrap_weights(sl: Slice, rng: np.random.Generator) -> np.ndarray:
     return w
 
 
-def replicate_vectors(counts, settings: PpmiSvdSettings) -> np.ndarray:
-    """Word vectors of a bootstrap replicate: the exact truncated SVD (ARPACK) of its PPMI, as for
-    the full data, so the replicates differ from the estimate only by the resampling.
-
-    A subspace iteration warm-started from the full data's context vectors was used before; it
-    was not faster than ARPACK at 493 or 2,475 words, and at 2,475 words its 8 iterations moved d
-    by up to 0.32 and the gap by up to 0.025 from the exact SVD of the same replicate
-    (tests/benchmarks/bench_bootstrap.py measures both side by side).
-    """
-    return word_vectors(counts, settings)
-
-
 def start_replicate_vectors(matrices: Iterable, settings: PpmiSvdSettings, n: int, full) -> Callable[[], list]:
-    """Start :func:`replicate_vectors` of each of ``n`` count matrices on the replicate pool's worker
-    processes (:mod:`tracer.core.replicate_pool`; the same vectors bit for bit on one); returns the
-    function that waits for them and gives them in order.
+    """Start the word vectors of each of ``n`` count matrices (bootstrap replicates) on the replicate
+    pool's worker processes (:mod:`tracer.core.replicate_pool`; the same vectors bit for bit on
+    one); returns the function that waits for them and gives them in order.
+
+    Each replicate gets the exact truncated SVD (ARPACK) of its PPMI, as the full data does
+    (:func:`tracer.core.ppmi_svd.word_vectors`), so the replicates differ from the estimate only by
+    the resampling. A subspace iteration warm-started from the full data's context vectors was used
+    before; it was not faster than ARPACK at 493 or 2,475 words, and at 2,475 words its 8
+    iterations moved d by up to 0.32 and the gap by up to 0.025 from the exact SVD of the same
+    replicate (tests/benchmarks/bench_bootstrap.py measures both side by side).
 
     ``full`` is the count matrix of the data resampled: a replicate has no more nonzeros, so the
     number of workers is bounded by the memory its PPMI and SVD take (and the copy a worker gets).
@@ -410,7 +405,7 @@ def _bootstrap(ws, sl, c, tests, model, counts, model_settings, settings, rng, p
     if model == "ppmi-svd" and measurable(set(c.vocab.index)):
         matrices = (count_slice(ws, w, counts, slice_name=sl.name, vocab=c.vocab).matrix for w in bar(weights))
         # the same exact truncated SVD as the full-data model (a warm-started subspace iteration
-        # was tried and dropped: see replicate_vectors)
+        # was tried and dropped: see start_replicate_vectors)
         pending = start_replicate_vectors(matrices, model_settings, len(weights), c.matrix)
 
     def finish(emb: Embedding) -> dict:
