@@ -103,6 +103,7 @@ class Attribution:
         self._base_scores = self._scores(self.probe_vectors)     # kept for the gradient
         self.base = self._effect_of(self._base_scores)
         self._d_ppmi_cache: dict[str, np.ndarray] = {}
+        self._linear_cache: dict[str, np.ndarray] = {}
 
     # ---- per-document counts, built when an exact step needs them ---------------------------
     @functools.cached_property
@@ -170,12 +171,17 @@ class Attribution:
 
         ``dB(d) = -<K, C^d> + <u, r^d>`` (:func:`tracer.core.pmi.pmi_sensitivities`; only
         cells above the PPMI threshold move), summed in one pass over the tokens
-        (``tracer.core._kernels.linear_scores``) without building ``C^d`` or ``r^d``.
+        (``tracer.core._kernels.linear_scores``) without building ``C^d`` or ``r^d``. Computed once
+        per quantity (trace asks for it and for :meth:`estimate`, which builds on it); read-only.
         """
-        moving = np.where(self.probe_ppmi > 0, self.d_quantity_d_ppmi(which), 0.0)
-        per_count, per_row_sum = pmi_sensitivities(moving, self.probe_counts, self.row_sums, self.probe_ids,
-                                                   self.alpha, self.log_z)
-        return self._linear_pass(per_count, per_row_sum)
+        if which not in self._linear_cache:
+            moving = np.where(self.probe_ppmi > 0, self.d_quantity_d_ppmi(which), 0.0)
+            per_count, per_row_sum = pmi_sensitivities(moving, self.probe_counts, self.row_sums, self.probe_ids,
+                                                       self.alpha, self.log_z)
+            scores = self._linear_pass(per_count, per_row_sum)
+            scores.flags.writeable = False
+            self._linear_cache[which] = scores
+        return self._linear_cache[which]
 
     def estimate(self, which: str = "gap") -> np.ndarray:
         """Estimated change of B when each document is removed on its own, shape (n_docs,).
