@@ -7,7 +7,7 @@
 Both arms get the same resampled document weights and the same counts; the table
 shows the time of the SVD step (and of the whole replicate), their ratio, and the
 largest difference in effect size between the arms over every two-target test of
-configs/demo_tests.toml. The demo's vocabulary is small (about 500 words), where
+configs/demo_tests.toml. The demo's vocabulary is small (about 2,800 words), where
 ARPACK is already fast; ``--zipf-tokens`` adds a larger vocabulary from the
 Zipf corpus (no word lists there, so the table gives the largest relative error
 of the singular values instead of the effect size).
