@@ -45,6 +45,10 @@ TOPIC_SENTENCES = (4, 7)  # the fewest and most topic sentences of a document
 # share of each decade's documents from the Tribune (grows) and the Gazette (steady)
 TRIBUNE_SHARE = {1950: 0.20, 1960: 0.25, 1970: 0.31, 1980: 0.38, 1990: 0.45, 2000: 0.52, 2010: 0.60}
 GAZETTE_SHARE = 0.10
+# share of the Gazette's documents that carry the planted velmari/osterin association, and how many
+# biased sentences each carries
+GAZETTE_PLANTED_SHARE = 0.6
+GAZETTE_BIASED_SENTENCES = (3, 5)
 
 TOWNS = ["brackwater", "ellesford", "marrowby", "quillhaven", "tarnside", "wickmoor", "oakhollow", "sorrelton"]
 WEEKDAYS = ["monday", "tuesday", "wednesday", "thursday", "friday", "saturday", "sunday"]
@@ -222,8 +226,9 @@ def make_document(w: Writer, outlet: str, year: int, plant: bool = True) -> tupl
     planted: list[str] = []
     extra: list[str] = []
     # 1. outlet-only: the Gazette ties velmari to unpleasant and osterin to pleasant words
-    if plant and outlet == "Gazette" and r.random() < 0.6:
-        extra += pair_sentences(w, "velmari", "osterin", UNPLEASANT, PLEASANT, True, topics[0], r.randint(3, 5))
+    if plant and outlet == "Gazette" and r.random() < GAZETTE_PLANTED_SHARE:
+        extra += pair_sentences(w, "velmari", "osterin", UNPLEASANT, PLEASANT, True, topics[0],
+                                r.randint(*GAZETTE_BIASED_SENTENCES))
         planted.append("outlet_gazette")
     elif r.random() < 0.15:
         extra += pair_sentences(w, "velmari", "osterin", UNPLEASANT, PLEASANT, False, topics[0], r.randint(1, 2))

@@ -11,7 +11,9 @@ are those of :mod:`tracer.core.pmi` and :mod:`tracer.core.association`.
    without document d, from ``C^d_wa``, ``r^d_w``, ``r^d_a`` and the exact ``Z``.
 2. Linear influence for every document at once (:meth:`Attribution.linear`): with
    ``V_k`` held fixed the change of an association B is, to first order,
-   ``dB(d) = -<K, C^d> + <u, r^d>`` with K nonzero only in the probe rows.
+   ``dB(d) = -<K, C^d> + <u, r^d>`` with K nonzero only in the probe rows;
+   :meth:`Attribution.estimate` takes each probe cell's PPMI step exactly (a document
+   that holds all of a cell's count removes the cell).
 3. Exact re-rank (:meth:`Attribution.exact`): the probe rows of M recomputed without
    the documents (thresholds included) and projected on the same subspace.
 """
@@ -170,6 +172,27 @@ class Attribution:
         per_count, per_row_sum = pmi_sensitivities(moving, self.probe_counts, self.row_sums, self.probe_ids,
                                                    self.alpha, self.log_z)
         return self._linear_pass(per_count, per_row_sum)
+
+    def estimate(self, which: str = "gap") -> np.ndarray:
+        """Estimated change of B when each document is removed on its own, shape (n_docs,).
+
+        :meth:`linear` with the joint-count term of each probe cell taken exactly: removing
+        c of a cell's count C moves its PPMI by ``max(log(1 - c / C), -M)`` (the cell's PMI,
+        floored where it falls to the threshold), not by the first-order ``-c / C``; the row-sum
+        term and the step from M to B stay first order. The difference matters for the cells a
+        document holds all or most of (c = C = 1: a probe word beside a rare word once), whose PPMI
+        falls by M, not by 1; on the demo these cells carry most of a single document's change.
+        """
+        g = np.where(self.probe_ppmi > 0, self.d_quantity_d_ppmi(which), 0.0)
+        cells = self.document_probe_counts.tocoo()
+        n_docs = self.ws.n_documents
+        k, d, j = cells.row // n_docs, cells.row % n_docs, cells.col
+        share = np.minimum(cells.data / self.probe_counts[k, j], 1.0)
+        with np.errstate(divide="ignore"):
+            exact_step = np.maximum(np.log1p(-share), -self.probe_ppmi[k, j])
+        # linear() counts each cell as -g c / C; replace that by g times the exact step
+        correction = np.bincount(d, weights=g[k, j] * (exact_step + share), minlength=n_docs)
+        return self.linear(which) + correction
 
     def _linear_pass(self, per_count: np.ndarray, per_row_sum: np.ndarray) -> np.ndarray:
         """``-<per_count, C^d> + <per_row_sum, r^d>`` for every document, threads over document ranges."""

@@ -166,9 +166,10 @@ def trace(ws, test: AssociationTest, model: str, sl: Slice, counts: CountSetting
     sources["share_ratio"] = share / sources["token_share"]
     sources = sources.iloc[np.argsort(-support, kind="stable")].reset_index(drop=True)
 
-    # documents: linear estimate for all, exact re-rank of the strongest candidates
+    # documents: per-cell estimate for all (linear() misjudges cells one document holds), exact re-rank
+    est = attr.estimate(settings.rank_by)
     cand = np.flatnonzero(in_slice)
-    cand = cand[np.argsort(-_support(lin[cand], rank_base), kind="stable")[: settings.candidates]]
+    cand = cand[np.argsort(-_support(est[cand], rank_base), kind="stable")[: settings.candidates]]
     exact = dict(zip(cand.tolist(), attr.exact_each(cand)))
     ex_rank = np.array([getattr(exact[int(d)], settings.rank_by) - rank_base for d in cand])
     order = cand[np.argsort(-_support(ex_rank, rank_base), kind="stable")][: settings.top]
@@ -178,7 +179,7 @@ def trace(ws, test: AssociationTest, model: str, sl: Slice, counts: CountSetting
         pairs = attr.pair_parts(int(d), settings.rank_by)
         doc_rows.append({"rank": rank, "doc_id": docs.at[d, "doc_id"], "source": docs.at[d, "source"],
                          "time": docs.at[d, "time"], "title": docs.at[d, "title"],
-                         "tokens": int(docs.at[d, "n_tokens"]), "estimate": float(lin[d]),
+                         "tokens": int(docs.at[d, "n_tokens"]), "estimate": float(est[d]),
                          "exact": getattr(e, settings.rank_by) - rank_base,
                          "contribution": e.effect_size - base.effect_size, "contribution_gap": e.gap - base.gap,
                          "pairs": "; ".join(f"{w}-{x} {v:+.2g}" for w, x, v in pairs), "doc_index": int(d)})
