@@ -48,7 +48,10 @@ GAZETTE_SHARE = 0.10
 # share of the Gazette's documents that carry the planted velmari/osterin association, and how many
 # biased sentences each carries
 GAZETTE_PLANTED_SHARE = 0.6
-GAZETTE_BIASED_SENTENCES = (3, 5)
+GAZETTE_BIASED_SENTENCES = (5, 8)
+# the same for the Tribune's halvin/morrowick association
+TRIBUNE_PLANTED_SHARE = 0.6
+TRIBUNE_BIASED_SENTENCES = (3, 6)
 
 TOWNS = ["brackwater", "ellesford", "marrowby", "quillhaven", "tarnside", "wickmoor", "oakhollow", "sorrelton"]
 WEEKDAYS = ["monday", "tuesday", "wednesday", "thursday", "friday", "saturday", "sunday"]
@@ -240,8 +243,9 @@ def make_document(w: Writer, outlet: str, year: int, plant: bool = True) -> tupl
         if biased:
             planted.append("rise_and_fall")
     # 3. mix only: the Tribune always ties halvin to wealth and morrowick to poverty
-    if plant and outlet == "Tribune" and r.random() < 0.6:
-        extra += pair_sentences(w, "halvin", "morrowick", WEALTH, POVERTY, True, topics[0], r.randint(2, 4))
+    if plant and outlet == "Tribune" and r.random() < TRIBUNE_PLANTED_SHARE:
+        extra += pair_sentences(w, "halvin", "morrowick", WEALTH, POVERTY, True, topics[0],
+                                r.randint(*TRIBUNE_BIASED_SENTENCES))
         planted.append("tribune_mix")
     elif outlet != "Tribune" and r.random() < 0.2:
         extra += pair_sentences(w, "halvin", "morrowick", WEALTH, POVERTY, False, topics[0], r.randint(1, 2))
