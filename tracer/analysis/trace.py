@@ -3,8 +3,8 @@
 Every figure here except the verification is an estimate: the sources and documents
 tables give the change of the association if they were removed, computed from the
 counts with the model's subspace held fixed (tier 3 of the design: exact probe rows,
-same singular vectors), and for documents first ranked by the linear influence of
-tier 2. ``verify`` retrains without the top sources and document sets and sets the
+same singular vectors), and for documents first ranked by the per-cell estimate of
+tier 2 (:meth:`Attribution.estimate`). ``verify`` retrains without the top sources and document sets and sets the
 predicted changes beside the real ones; the ranking counts as confirmed only when the
 retrained changes agree with the predicted ones in order and sign (see ``CONFIRM``).
 """
