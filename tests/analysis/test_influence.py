@@ -72,8 +72,10 @@ def test_exact_removal_equals_the_sparse_ppmi_of_a_recount(demo_ws):
     assert abs(got.gap - attr.base.gap) > 1e-3  # the removal does move the gap
     assert got.gap == pytest.approx(gap, rel=1e-9)
     assert got.effect_size == pytest.approx(d, rel=1e-9)
-    # and the linear estimate points the same way as the exact change
-    assert np.sign(attr.linear("gap")[docs].sum()) == np.sign(got.gap - attr.base.gap)
+    # and the per-cell estimate trace ranks by points the same way as the exact change (measured on
+    # the demo: sum -0.0041, exact -0.0054; the first-order linear() sum is +0.0045 here, misled by
+    # cells of count 1 that a document removes whole)
+    assert np.sign(attr.estimate("gap")[docs].sum()) == np.sign(got.gap - attr.base.gap)
 
 
 def test_first_order_values_equal_a_recount_without_the_document(demo_ws):
