@@ -175,11 +175,12 @@ def test_q_values_cover_every_test_and_slice_of_the_call(demo_result):
 
 
 def test_slices_compare_the_words_known_in_every_slice(demo_ws):
-    # at min count 40, "marriage", "wedding" and "relatives" are known in the Ledger but not in the Gazette
+    # at min count 45, "marriage", "wedding" and "relatives" are known in the Ledger but not in the Gazette
+    # (occurrences on this archive, Ledger / Gazette: 81/32, 48/43, 67/42; harvest 121/181)
     t = AssociationTest("partly", ("harbour", "boat", "captain", "marriage", "wedding"),
-                        ("wheat", "children", "family", "parents", "relatives"), ("joy",), ("agony",), ())
+                        ("wheat", "harvest", "family", "parents", "relatives"), ("joy",), ("agony",), ())
     slices = [slice_from_spec(demo_ws, "source=Ledger"), slice_from_spec(demo_ws, "source=Gazette")]
-    counts, svd = CountSettings(min_count=40), PpmiSvdSettings(dim=50)
+    counts, svd = CountSettings(min_count=45), PpmiSvdSettings(dim=50)
     common = measure(demo_ws, {"partly": t}, "ppmi-svd", slices, counts, svd).summary.set_index("slice")
     own = measure(demo_ws, {"partly": t}, "ppmi-svd", slices, counts, svd,
                   MeasureSettings(per_slice_words=True)).summary.set_index("slice")
