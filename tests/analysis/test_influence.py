@@ -61,7 +61,8 @@ def test_exact_removal_equals_the_sparse_ppmi_of_a_recount(demo_ws):
     done again: a recount without the documents, the sparse PPMI matrix of tracer.core.pmi,
     the same projection, and the WEAT written out with numpy."""
     sl, c, _, attr = _attribution(demo_ws)
-    docs = np.argsort(-np.abs(attr.linear("gap")))[:3]
+    # ten documents: in the demo's 900 Gazette documents three move the gap by less than 1e-3
+    docs = np.argsort(-np.abs(attr.linear("gap")))[:10]
     w = sl.weights.copy()
     w[docs] = 0
     recount = count_slice(demo_ws, w, CountSettings(), vocab=c.vocab)
@@ -135,7 +136,9 @@ def test_batched_exact_rerank_equals_one_document_at_a_time(demo_ws):
         each = attr.exact_each(docs, max_cells=max_cells)
         np.testing.assert_allclose([e.gap for e in each], [e.gap for e in one], rtol=1e-10)
         np.testing.assert_allclose([e.effect_size for e in each], [e.effect_size for e in one], rtol=1e-10)
-    assert max(abs(e.gap - attr.base.gap) for e in one) > 1e-3  # the removals do move the gap
+    # the removals do move the gap, by far more than the 1e-10 agreement asked above (one document of
+    # the demo's 9,100 moves the whole archive's gap by well under 1e-3)
+    assert max(abs(e.gap - attr.base.gap) for e in one) > 2e-4
 
 
 @pytest.mark.parametrize("which", ["gap", "effect_size"])

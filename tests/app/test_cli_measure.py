@@ -77,6 +77,11 @@ def test_correlate_on_the_invented_occupation_table(demo_dir, tmp_path):
     # planted: "she" follows the invented share of women, so the first-order view tracks it closely
     assert pmi["n_words"] == 12 and pmi["spearman_rho"] > 0.9 and pmi["pearson_ci_low"] > 0.5
     assert pmi["pearson_ci_low"] <= pmi["pearson_r"] <= pmi["pearson_ci_high"]
+    # and the default model (PPMI-SVD, dim 100) recovers it too: each pronoun comes with its
+    # possessive and reflexive, contexts an occupation shares with the pronoun it is written with
+    emb = views["embedding"]
+    assert emb["model"] == "ppmi-svd" and emb["n_words"] == 12
+    assert emb["pearson_r"] > 0.8 and emb["pearson_ci_low"] > 0.5 and emb["spearman_rho"] > 0.8
     assert (tmp_path / "s.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     res = CliRunner().invoke(cli, ["correlate", "-w", str(demo_dir), "--tests", str(TESTS), "--test", "occupations",
                                    "--table", str(ROOT / "corpora_demo" / "occupation_shares.csv"),

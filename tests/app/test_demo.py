@@ -5,6 +5,7 @@ import importlib.util
 from pathlib import Path
 
 import numpy as np
+import pytest
 from click.testing import CliRunner
 
 from tracer.app.cli import cli
@@ -74,7 +75,7 @@ def test_planted_documents_file_matches_the_archive(demo_ws):
     ids = set(demo_ws.documents["doc_id"])
     assert all(r["doc_id"] in ids for r in rows)
     gazette = {r["doc_id"] for r in rows if r["association"] == "outlet_gazette"}
-    assert len(gazette) == 411 and all(d.startswith("gazette-") for d in gazette)
+    assert len(gazette) == 531 and all(d.startswith("gazette-") for d in gazette)
 
 
 def test_generator_is_deterministic(tmp_path):
@@ -87,33 +88,54 @@ def test_generator_is_deterministic(tmp_path):
 
 def test_demo_runs_end_to_end_and_leaves_a_usable_workspace(tmp_path):
     result = run_demo(tmp_path / "demo")
-    assert "Demo archive: 7000 documents" in result.text
+    assert "Demo archive: 9100 documents" in result.text
     assert f"Wrote the workspace to {tmp_path / 'demo'}" in result.text
     assert "not proof of discrimination" in result.text
     assert "Trace of gazette_outlet: the source that carries it most is Gazette" in result.text
     assert (result.run_folder / "report.html").is_file()
     ws = Workspace(tmp_path / "demo")
-    sea = set(gen.TOPICS["sea"]["nouns"])
+    sea = set(gen.read_topic_words()["sea"]["nouns"].words)
     for model in ("ppmi-svd", "word2vec"):
         emb = load_embedding(ws, model, "all")
         near = [w for w, _ in emb.neighbours("harbour", 6)]
         assert len(sea.intersection(near)) >= 4, (model, near)  # topic words neighbour topic words
     info = CliRunner().invoke(cli, ["info", "-w", str(tmp_path / "demo"), "--format", "json"])
-    assert info.exit_code == 0 and '"documents": 7000' in info.stdout
+    assert info.exit_code == 0 and '"documents": 9100' in info.stdout
 
 
-def test_wide_variant_adds_topic_words_and_no_probe_words():
-    # the wide variant (trace benchmark) must not put a group or attribute word into a topic,
-    # which would plant an association nobody wrote down
+def test_topic_words_hold_no_test_word_and_the_generator_refuses_one(tmp_path):
+    # a group, attribute, occupation or pronoun word inside a topic would plant an association
+    # nobody wrote down
     probe = set(sum(gen.GROUPS.values(), [])) | set(gen.PLEASANT + gen.UNPLEASANT + gen.CAREER + gen.FAMILY
                                                     + gen.WEALTH + gen.POVERTY) | set(gen.OCCUPATIONS)
-    extra = {w for table in gen.WIDE_EXTRA.values() for words in table.values() for w in words}
-    assert not extra & probe
-    topics, outlet_topics = gen.topic_tables("wide")
-    assert set(topics) == set(outlet_topics["Gazette"]) and len(extra) > 600
-    docs, planted = gen.generate(5, docs_per_year=3, vocabulary="wide")
-    words = set(" ".join(d["text"] for d in docs).lower().replace(".", " ").split())
-    assert len(words & extra) > 300 and planted
+    probe |= {"she", "her", "herself", "he", "his", "himself"}
+    topics = gen.read_topic_words()
+    words = {w for table in topics.values() for ws in table.values() for w in ws.words}
+    assert not words & probe and len(words) > 2500
+    bad = tmp_path / "topic_words.txt"
+    bad.write_text("[sea]\nnouns = harbour nurse\nverbs = sailed\nadjs = salty\n", encoding="utf-8")
+    with pytest.raises(ValueError, match="holds words of the association tests: nurse"):
+        gen.read_topic_words(bad)
+
+
+def test_topic_words_are_drawn_with_falling_frequencies():
+    """Zipf-like: the word of rank r is drawn with weight 1 / (r + 2); against a direct count of draws
+    (numpy.bincount) over 20,000 draws, the first word comes about 1 / 2 / H times (H the sum of weights)."""
+    import random
+    words = gen.Words([f"w{k}" for k in range(100)])
+    r = random.Random(0)
+    counts = np.bincount([int(words.draw(r)[1:]) for _ in range(20_000)], minlength=100)
+    share = 1 / 2 / sum(1 / (k + 2) for k in range(100))
+    assert abs(counts[0] / 20_000 - share) < 0.01
+    assert counts[0] > counts[9] > counts[99] and counts[:10].sum() > counts[50:].sum()
+
+
+def test_the_demo_vocabulary_covers_wordsim_353(demo_ws):
+    """At least 100 WordSim-353 pairs (the file gensim ships) have both words in the archive's vocabulary."""
+    from tracer.analysis.similarity import bundled_wordsim353, read_pairs
+    known = set(demo_ws.vocab.index)
+    pairs = read_pairs(bundled_wordsim353())
+    assert sum(a.lower() in known and b.lower() in known for a, b, _ in pairs) >= 100
 
 
 def test_the_demos_word2vec_is_the_same_on_every_run(demo_ws):

@@ -3,7 +3,6 @@
 
     .venv/bin/python tests/benchmarks/bench_trace.py [--test gazette_outlet] [--slice all] [--repeats 3]
     .venv/bin/python tests/benchmarks/bench_trace.py --zipf-tokens 2000000 --max-vocab 20000 --repeats 1
-    .venv/bin/python tests/benchmarks/bench_trace.py --wide-demo
 
 On the demo archive: (a) scoring every document for one test (the linear influence of
 tier 2: one pass over the probe words' positions, one over the tokens), (b) the whole
@@ -18,13 +17,11 @@ the lowest and highest ratio of single rounds: this machine's timings move by 2x
 how well the source estimates agree with the retrained changes, and what scoring every
 document by retraining would cost at the measured rate (an extrapolation, marked as one).
 
-The demo's vocabulary is small (about 500 words), so a retrain there costs a fraction
-of a second. ``--zipf-tokens N`` repeats the comparison on a workspace made from the
+The demo's vocabulary (about 2,800 words) is small beside a real archive's, so a retrain
+there costs about a second. ``--zipf-tokens N`` repeats the comparison on a workspace made from the
 first N tokens of the Zipf corpus of reference/gen_zipf_corpus.py (five invented sources, documents dealt
 round-robin; word sets of mid-frequency words), where the SVD dominates a retrain as it
 does on real corpora. The agreement figure means little there (nothing is planted).
-``--wide-demo`` uses the demo generator's wide variant: the same design and seed in about
-1,300 words (``generate_demo_corpus.py --vocabulary wide``).
 """
 
 from __future__ import annotations
@@ -63,7 +60,6 @@ def main():
     ap.add_argument("--repeats", type=int, default=3)
     ap.add_argument("--zipf-tokens", type=int, default=0)
     ap.add_argument("--max-vocab", type=int, default=None)
-    ap.add_argument("--wide-demo", action="store_true", help="the demo design in about 1,300 words")
     ap.add_argument("--dim", type=int, default=PpmiSvdSettings().dim)
     args = ap.parse_args()
     with tempfile.TemporaryDirectory() as tmp:
@@ -75,12 +71,6 @@ def main():
                                    tuple(words[22:32]), ())
         else:
             corpus = ROOT / "corpora_demo" / "archive.jsonl.gz"
-            if args.wide_demo:
-                import subprocess
-                import sys
-                subprocess.run([sys.executable, str(ROOT / "corpora_demo" / "generate_demo_corpus.py"),
-                                "--vocabulary", "wide", "--outdir", tmp], check=True, stdout=subprocess.DEVNULL)
-                corpus = Path(tmp) / "archive.jsonl.gz"
             test = load_tests(ROOT / "configs" / "demo_tests.toml")[args.test]
         t_ingest = time.perf_counter()
         ingest(Path(tmp) / "ws", [corpus])
@@ -135,7 +125,7 @@ def main():
     med = {k: statistics.median(v) for k, v in times.items()}
     n_docs = int((sl.weights > 0).sum())
     what = (f"Zipf corpus, {args.zipf_tokens:,} tokens" if args.zipf_tokens
-            else f"{'wide ' if args.wide_demo else ''}demo archive, test {args.test}")
+            else f"demo archive, test {args.test}")
     print(f"\n{what}, slice {args.slice}: {n_docs} documents, {len(sources)} sources, {len(c.vocab)} words, "
           f"dim {args.dim}; "
           f"median of {args.repeats} rounds after one warm-up round (ingest took {t_ingest:.1f} s)\n")
