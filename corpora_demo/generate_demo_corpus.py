@@ -49,9 +49,14 @@ GAZETTE_SHARE = 0.10
 # biased sentences each carries
 GAZETTE_PLANTED_SHARE = 0.6
 GAZETTE_BIASED_SENTENCES = (5, 8)
+# share of the other documents with 1-2 balanced sentences about the same two groups
+BALANCED_ELSEWHERE = 0.15
 # the same for the Tribune's halvin/morrowick association
 TRIBUNE_PLANTED_SHARE = 0.6
-TRIBUNE_BIASED_SENTENCES = (3, 6)
+TRIBUNE_BIASED_SENTENCES = (2, 3)
+# of the planted Tribune documents, this share are strongly slanted pieces with more biased sentences
+TRIBUNE_STRONG_SHARE = 0.1
+TRIBUNE_STRONG_SENTENCES = (7, 9)
 
 TOWNS = ["brackwater", "ellesford", "marrowby", "quillhaven", "tarnside", "wickmoor", "oakhollow", "sorrelton"]
 WEEKDAYS = ["monday", "tuesday", "wednesday", "thursday", "friday", "saturday", "sunday"]
@@ -233,7 +238,7 @@ def make_document(w: Writer, outlet: str, year: int, plant: bool = True) -> tupl
         extra += pair_sentences(w, "velmari", "osterin", UNPLEASANT, PLEASANT, True, topics[0],
                                 r.randint(*GAZETTE_BIASED_SENTENCES))
         planted.append("outlet_gazette")
-    elif r.random() < 0.15:
+    elif r.random() < BALANCED_ELSEWHERE:
         extra += pair_sentences(w, "velmari", "osterin", UNPLEASANT, PLEASANT, False, topics[0], r.randint(1, 2))
     # 2. rise and fall: dranik-career / coravel-family, everywhere, peaking in the 1980s
     if r.random() < 0.25:
@@ -244,8 +249,9 @@ def make_document(w: Writer, outlet: str, year: int, plant: bool = True) -> tupl
             planted.append("rise_and_fall")
     # 3. mix only: the Tribune always ties halvin to wealth and morrowick to poverty
     if plant and outlet == "Tribune" and r.random() < TRIBUNE_PLANTED_SHARE:
-        extra += pair_sentences(w, "halvin", "morrowick", WEALTH, POVERTY, True, topics[0],
-                                r.randint(*TRIBUNE_BIASED_SENTENCES))
+        strong = r.random() < TRIBUNE_STRONG_SHARE
+        n = r.randint(*(TRIBUNE_STRONG_SENTENCES if strong else TRIBUNE_BIASED_SENTENCES))
+        extra += pair_sentences(w, "halvin", "morrowick", WEALTH, POVERTY, True, topics[0], n)
         planted.append("tribune_mix")
     elif outlet != "Tribune" and r.random() < 0.2:
         extra += pair_sentences(w, "halvin", "morrowick", WEALTH, POVERTY, False, topics[0], r.randint(1, 2))

@@ -75,7 +75,7 @@ def test_planted_documents_file_matches_the_archive(demo_ws):
     ids = set(demo_ws.documents["doc_id"])
     assert all(r["doc_id"] in ids for r in rows)
     gazette = {r["doc_id"] for r in rows if r["association"] == "outlet_gazette"}
-    assert len(gazette) == 531 and all(d.startswith("gazette-") for d in gazette)
+    assert len(gazette) == 509 and all(d.startswith("gazette-") for d in gazette)
 
 
 def test_generator_is_deterministic(tmp_path):

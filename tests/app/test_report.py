@@ -36,7 +36,8 @@ def _experiment(drift_by: str) -> str:
 inputs = ["small.jsonl.gz"]
 workspace = "ws"
 [models]
-ppmi_svd = {{ dim = 50 }}
+# dim 100, the default: at dim 50 the combined hostile document below fell out of the top 20
+ppmi_svd = {{ dim = 100 }}
 [measure]
 tests = "tests.toml"
 by = ["source"]
@@ -56,14 +57,13 @@ bootstrap = 2
 @pytest.fixture(scope="module")
 def run_dir(tmp_path_factory):
     folder = tmp_path_factory.mktemp("run")
-    docs, _ = gen.generate(77, docs_per_year=12)
-    # a document whose text carries markup, right where the probe words co-occur
-    # a strongly planted document whose text carries markup inside a passage (the markup's words
-    # are too rare to be counted, so the planted pairs stay within the window)
-    body = " ".join("The velmari people spoke of agony and evil. In tarnside the market was busy on monday."
-                    for _ in range(15))
+    docs, planted = gen.generate(77, docs_per_year=12)
+    # a strongly planted document whose text carries markup inside its passages: eight of the Gazette's
+    # planted documents in one, so that it leads the trace, with the markup between its sentences
+    texts = {d["id"]: d["text"] for d in docs}
+    body = " ".join([texts[d] for d, a in planted if a == "outlet_gazette"][:16])
     docs.append({"id": "hostile-1", "source": "Gazette", "date": "1990-01-01", "title": "Hostile <b>title</b>",
-                 "text": body.replace("agony and evil", f"agony {SCRIPT} and evil", 1)})
+                 "text": body.replace(". ", f". {SCRIPT} ")})
     with gzip.open(folder / "small.jsonl.gz", "wt", encoding="utf-8") as f:
         f.writelines(json.dumps(d) + "\n" for d in docs)
     shutil.copyfile(ROOT / "configs" / "demo_tests.toml", folder / "tests.toml")
@@ -177,7 +177,7 @@ def test_other_commands_read_the_cache_and_store_nothing(run_dir, tmp_path, monk
     src = ws.documents["source"].to_numpy()
     count_slice(ws, sl.weights * ~((src == "Herald") | (src == "Ledger")), CountSettings())
     assert ws.cache.misses == 1
-    args = ["trace", "--tests", str(ws_path.parent / "tests.toml"), "--test", "gazette_outlet", "--dim", "50",
+    args = ["trace", "--tests", str(ws_path.parent / "tests.toml"), "--test", "gazette_outlet", "--dim", "100",
             "--format", "json"]
     found = []
     get = ResultCache.get_embedding

@@ -263,12 +263,13 @@ def _result(ws, sl, test, counts, settings, unit, goal, reached, chosen, steps, 
     removed = np.flatnonzero(mask)
     tokens = int(docs["n_tokens"].to_numpy()[removed].sum())
     what = "|d|" if not on_interval else "the whole interval of d"
+    items = f"{len(chosen)} {unit}" + ("" if len(chosen) == 1 else "s")
     if reached:
-        message = (f"goal reached: verified d {verified:.3f} (|d| <= {goal}) after removing {len(chosen)} {unit}s, "
+        message = (f"goal reached: verified d {verified:.3f} (|d| <= {goal}) after removing {items}, "
                    f"{tokens} tokens")
     else:
         message = (f"goal not reached: {what} <= {goal} was not verified; the best verified d was {verified:.3f} "
-                   f"after removing {len(chosen)} {unit}s, {tokens} tokens")
+                   f"after removing {items}, {tokens} tokens")
         if own is not None and (~own["implicated"]).any():
             message += ("; not dropped because the test is not significant inside them (own permutation p >= "
                         f"{SOURCE_P} or the other sign): " + ", ".join(own.loc[~own["implicated"], "source"]))
