@@ -248,7 +248,7 @@ class _Reweighted:
         matrices = (count_slice(self.ws, reweight_to(self.ws, Slice(period.name, w, int((w > 0).sum()), period.n_tokens),
                                                      other)[0].weights, self.counts, slice_name=rw.name,
                                 vocab=c.vocab).matrix for w in resamples)
-        pending = start_replicate_vectors(matrices, self.svd, len(resamples), c.matrix)
+        pending = start_replicate_vectors(self.ws, matrices, self.svd, len(resamples), c.matrix)
 
         def gaps() -> dict:
             index = self.counts_and_model(rw)[1].index

@@ -32,7 +32,7 @@ from tracer.provenance.counts import count_slice
 from tracer.corpus.slices import Slice
 from tracer.core import memory
 from tracer.core.ppmi_svd import PpmiSvdSettings, word_vectors
-from tracer.core.replicate_pool import submit_replicates, workers_for
+from tracer.provenance.cluster import tasks_for
 from tracer.provenance.models import embedding_from_counts, train_embedding
 from tracer.core.embedding import Embedding
 from tracer.core.word2vec import Word2VecSettings
@@ -126,10 +126,12 @@ def bootstrap_weights(sl: Slice, rng: np.random.Generator) -> np.ndarray:
     return w
 
 
-def start_replicate_vectors(matrices: Iterable, settings: PpmiSvdSettings, n: int, full) -> Callable[[], list]:
+def start_replicate_vectors(ws, matrices: Iterable, settings: PpmiSvdSettings, n: int, full) -> Callable[[], list]:
     """Start the word vectors of each of ``n`` count matrices (bootstrap replicates) on the replicate
     pool's worker processes (:mod:`tracer.core.replicate_pool`; the same vectors bit for bit on
-    one); returns the function that waits for them and gives them in order.
+    one), or on the cluster of a workspace opened with a scheduler (``ws.scheduler``,
+    :func:`tracer.provenance.cluster.tasks_for`); returns the function that waits for them and
+    gives them in order.
 
     Each replicate gets the exact truncated SVD (ARPACK) of its PPMI, as the full data does
     (:func:`tracer.core.ppmi_svd.word_vectors`), so the replicates differ from the estimate only by
@@ -139,10 +141,10 @@ def start_replicate_vectors(matrices: Iterable, settings: PpmiSvdSettings, n: in
     replicate (tests/benchmarks/bench_bootstrap.py measures both side by side).
 
     ``full`` is the count matrix of the data resampled: a replicate has no more nonzeros, so the
-    number of workers is bounded by the memory its PPMI and SVD take (and the copy a worker gets).
+    number of local workers is bounded by the memory its PPMI and SVD take (and the copy a worker gets).
     """
     per_task = 12 * full.nnz + memory.ppmi_svd_peak(full.shape[0], full.nnz, settings.dim)
-    return submit_replicates(functools.partial(word_vectors, settings=settings), matrices, workers_for(per_task, n))
+    return tasks_for(ws, per_task, n).submit(functools.partial(word_vectors, settings=settings), matrices)
 
 
 def common_words(ws, tests: dict[str, AssociationTest], slices: list[Slice], counts: CountSettings) -> set[str]:
@@ -406,7 +408,7 @@ def _bootstrap(ws, sl, c, tests, model, counts, model_settings, settings, rng, p
         matrices = (count_slice(ws, w, counts, slice_name=sl.name, vocab=c.vocab).matrix for w in bar(weights))
         # the same exact truncated SVD as the full-data model (a warm-started subspace iteration
         # was tried and dropped: see start_replicate_vectors)
-        pending = start_replicate_vectors(matrices, model_settings, len(weights), c.matrix)
+        pending = start_replicate_vectors(ws, matrices, model_settings, len(weights), c.matrix)
 
     def finish(emb: Embedding) -> dict:
         two = measurable(set(emb.index) & set(c.vocab.index))

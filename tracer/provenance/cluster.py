@@ -10,18 +10,29 @@ existing cluster's address) or pass a ``distributed.Client``. Needs the ``dask``
 With whole-number document weights (slices, bootstrap counts) the result equals the local
 count bit for bit: every cell is a sum of whole numbers, exact in float64 in any order.
 Other weights agree to rounding.
+
+Other independent tasks (bootstrap replicates' SVDs, verification retrains) go to the same
+cluster through :class:`ClusterTasks`, the cluster's :class:`tracer.core.replicate_pool.Tasks`;
+:func:`tasks_for` picks it for a workspace opened with a scheduler and the local replicate pool
+otherwise. Each task runs the same function on the same inputs as the local path, made by the
+caller, so the results are the same bit for bit as long as the workers run the SVD's BLAS on one
+thread as the local pool does: below 5,000 rows the SVD sets that itself
+(:func:`tracer.core.ppmi_svd.blas_threads_for`), and a worker started by ``dask worker`` or a
+``LocalCluster`` with processes has ``OPENBLAS_NUM_THREADS=1`` and the like set by its nanny.
 """
 
 from __future__ import annotations
 
 import operator
 from pathlib import Path
+from typing import Callable, Iterable
 
 import numpy as np
 import scipy.sparse as sp
 
 from tracer.core.count_engine import split_by_tokens
 from tracer.core.counting import CountSettings, ModelVocab, build_vocab, count_matrix
+from tracer.core.replicate_pool import LocalTasks, Tasks, workers_for
 from tracer.errors import SettingError
 
 
@@ -33,7 +44,55 @@ def _client(scheduler):
                            "pip install 'corpus-tracer[dask]'") from None
     if isinstance(scheduler, Client):
         return scheduler, False
-    return Client(scheduler), True
+    # not the process's default client: a library user's own client stays theirs
+    return Client(scheduler, set_as_default=False), True
+
+
+class ClusterTasks:
+    """:class:`tracer.core.replicate_pool.Tasks` on a dask.distributed cluster.
+
+    Parameters
+    ----------
+    scheduler : str or distributed.Client
+        The scheduler's address (a client is opened per ``submit`` and closed when its results
+        are in) or a connected client (left open).
+
+    Each item is sent to a worker on its own (``scatter``, round robin over the workers) and
+    ``fn`` runs there on it; ``fn`` and the results must be picklable, and ``fn`` importable on
+    the workers (a module-level function or a ``functools.partial`` of one, as for the local pool).
+    The items are consumed as they come, so a generator can make the next one while the cluster
+    works on those before.
+    """
+
+    def __init__(self, scheduler):
+        self.scheduler = scheduler
+
+    def submit(self, fn: Callable, items: Iterable) -> Callable[[], list]:
+        client, owned = _client(self.scheduler)
+        try:
+            futures = [client.submit(fn, client.scatter(item, hash=False), pure=False) for item in items]
+        except BaseException:
+            if owned:
+                client.close()
+            raise
+
+        def results() -> list:
+            try:
+                return client.gather(futures)  # in the order of the futures; a task's error is raised here
+            finally:
+                if owned:
+                    client.close()
+        return results
+
+
+def tasks_for(ws, per_task_bytes: int, n_tasks: int) -> Tasks:
+    """Where to run ``n_tasks`` independent tasks for ``ws``: its scheduler's cluster when it was
+    opened with one (``ws.scheduler``), else the local replicate pool with as many workers as the
+    memory allows for tasks of ``per_task_bytes`` at their peak (:func:`workers_for`)."""
+    scheduler = getattr(ws, "scheduler", None)
+    if scheduler:
+        return ClusterTasks(scheduler)
+    return LocalTasks(workers_for(per_task_bytes, n_tasks))
 
 
 def _count_part(ws_path: str, weights: np.ndarray, docs: np.ndarray, vocab: ModelVocab,

@@ -3,14 +3,19 @@
 from __future__ import annotations
 
 import datetime as dt
+import functools
 import hashlib
 import re
 from pathlib import Path
+from typing import Callable
 
 import numpy as np
 import pandas as pd
 
-from tracer.core.counting import CountSettings, build_vocab
+from tracer.core import memory
+from tracer.core.counting import Counts, CountSettings, ModelVocab, build_vocab
+from tracer.corpus.workspace import Workspace
+from tracer.provenance.cluster import tasks_for
 from tracer.provenance.counts import count_slice
 from tracer.versions import package_versions
 from tracer.corpus.lock import workspace_lock
@@ -124,22 +129,81 @@ def embedding_from_counts(ws, sl: Slice, c, settings: PpmiSvdSettings, *,
     cache key holds them and a digest of the counts themselves, so a model is never found
     under the key of other counts.
     """
+    key, hit = _cached_embedding(ws, sl, c, settings, weights)
+    if hit is not None:
+        return hit
+    vectors, extras = ppmi_svd_vectors(c.matrix, settings)
+    return _made_embedding(ws, sl, c, settings, key, vectors, extras)
+
+
+def _cached_embedding(ws, sl: Slice, c, settings: PpmiSvdSettings, weights) -> tuple[str | None, Embedding | None]:
+    """The cache key of the PPMI-SVD of ``c`` (None when not cached) and the cached embedding, if any;
+    checks the dimension first."""
     if settings.dim >= len(c.vocab):
         raise SettingError(f"slice {sl.name} has {len(c.vocab)} words at min count {c.settings.min_count}; "
                            f"--dim {settings.dim} must be below that (lower --dim or --min-count)")
     cache = getattr(ws, "cache", None)
-    key = None
     counted = sl.weights if weights is None else weights
-    if cache is not None and cacheable(counted):
-        key = cache.key(ws.corpus_hash, counted, "ppmi-svd", c.settings.to_dict(), settings.to_dict(),
-                        c.vocab.ids.tolist(), counts_digest(c))
-        hit = cache.get_embedding(key)
-        if hit is not None:
-            return Embedding(hit.words, hit.vectors, {**hit.card, "slice": sl.name}, hit.extras)
-    vectors, extras = ppmi_svd_vectors(c.matrix, settings)
+    if cache is None or not cacheable(counted):
+        return None, None
+    key = cache.key(ws.corpus_hash, counted, "ppmi-svd", c.settings.to_dict(), settings.to_dict(),
+                    c.vocab.ids.tolist(), counts_digest(c))
+    hit = cache.get_embedding(key)
+    if hit is None:
+        return key, None
+    return key, Embedding(hit.words, hit.vectors, {**hit.card, "slice": sl.name}, hit.extras)
+
+
+def _made_embedding(ws, sl: Slice, c, settings: PpmiSvdSettings, key, vectors, extras) -> Embedding:
     card = {"model": "ppmi-svd", "slice": sl.name, "settings": settings.to_dict(), "counts": c.settings.to_dict(),
             "corpus_hash": ws.corpus_hash, "n_words": len(c.vocab), "dim": int(vectors.shape[1])}
     emb = Embedding(list(c.vocab.words), vectors, card, extras)
     if key is not None:
-        cache.put_embedding(key, emb, ws.corpus_hash)
+        ws.cache.put_embedding(key, emb, ws.corpus_hash)
     return emb
+
+
+def start_embeddings_from_counts(ws, made: list[tuple[Slice, Counts]], settings: PpmiSvdSettings) -> Callable[[], list]:
+    """:func:`embedding_from_counts` of each (slice, counts) pair, its weights the slice's; the SVDs the
+    cache does not hold run as independent tasks (:func:`tracer.provenance.cluster.tasks_for`: the
+    workspace's cluster or the local replicate pool, the same vectors bit for bit). Returns the
+    function that waits for them and gives the embeddings in the order of ``made``."""
+    found = [_cached_embedding(ws, sl, c, settings, None) for sl, c in made]
+    todo = [c.matrix for (sl, c), (_, hit) in zip(made, found) if hit is None]
+    if not todo:
+        return lambda: [hit for _, hit in found]
+    per_task = max(12 * m.nnz + memory.ppmi_svd_peak(m.shape[0], m.nnz, settings.dim) for m in todo)
+    pending = tasks_for(ws, per_task, len(todo)).submit(functools.partial(ppmi_svd_vectors, settings=settings), todo)
+
+    def embeddings() -> list:
+        done = iter(pending())
+        return [hit if hit is not None else _made_embedding(ws, sl, c, settings, key, *next(done))
+                for (sl, c), (key, hit) in zip(made, found)]
+    return embeddings
+
+
+def _word2vec_task(path: str, corpus_hash: str, job: tuple) -> np.ndarray:
+    """One word2vec training in a task: the workspace opened by its path (the same folder on every
+    machine), refused when it holds another corpus than the caller's."""
+    weights, vocab, window, settings = job
+    ws = Workspace(path)
+    if ws.corpus_hash != corpus_hash:
+        raise SettingError(f"the workspace {path} changed while its models were being trained; run again")
+    return word2vec_vectors(ws.tokens, ws.doc_offsets, weights, vocab, ws.vocab.words, window, settings)
+
+
+def start_word2vec(ws, jobs: list[tuple[np.ndarray, ModelVocab, Word2VecSettings]],
+                   counts: CountSettings) -> Callable[[], list]:
+    """The word2vec vectors of each (document weights, vocabulary, settings) job, as
+    :func:`train_embedding` trains them, run as independent tasks (:func:`tasks_for`); returns the
+    function that waits for them and gives the vectors, shape (len(vocab), dim) each, in order.
+
+    A task's peak is taken as four float32 tables of n_words x dim (gensim's input and output
+    vectors, their locks and the copy returned) and the weights; the text itself is read from the
+    memory-mapped tokens.
+    """
+    if not jobs:
+        return list
+    per_task = max(16 * len(v) * s.dim + 8 * len(w) for w, v, s in jobs)
+    task = functools.partial(_word2vec_task, str(Path(ws.path).resolve()), ws.corpus_hash)
+    return tasks_for(ws, per_task, len(jobs)).submit(task, [(w, v, counts.window, s) for w, v, s in jobs])
