@@ -39,7 +39,7 @@ COUNTS, SVD = CountSettings(window=5, min_count=5), PpmiSvdSettings(dim=50)
 def address():
     from distributed import LocalCluster
     # worker processes, as a real cluster has: every task's function and inputs travel pickled
-    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None) as cluster:
+    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=":0") as cluster:
         yield cluster.scheduler_address
 
 
@@ -140,3 +140,27 @@ def test_word2vec_retrains_on_the_cluster_equal_the_local_ones(demo_ws, address,
     assert rows["seed_spread"].gt(0).all()  # two seeds, two different models each
     pd.testing.assert_frame_equal(rows, remote.verification.rows, check_exact=True)
     assert (local.effect_size, local.gap) == (remote.effect_size, remote.gap)
+
+
+def test_one_local_worker_makes_each_counts_after_the_svd_before(demo_ws, monkeypatch):
+    """With one local worker the retrains' counts are made one at a time, between the SVDs (not all
+    held at once), and each embedding is the one embedding_from_counts makes of the same counts."""
+    from tracer.provenance import models
+    from tracer.provenance.counts import count_slice
+    from tracer.provenance.models import embedding_from_counts, start_embeddings_from_counts
+    monkeypatch.setenv(WORKERS_ENV, "1")
+    events, real = [], models.ppmi_svd_vectors
+    monkeypatch.setattr(models, "ppmi_svd_vectors", lambda m, settings: events.append("svd") or real(m, settings))
+    specs = ("all", "time=1960..1969", "time=1970..1979")
+
+    def made():
+        for spec in specs:
+            sl = slice_from_spec(demo_ws, spec)
+            events.append("count")
+            yield sl, count_slice(demo_ws, sl.weights, COUNTS, slice_name=sl.name)
+
+    got = start_embeddings_from_counts(demo_ws, made(), SVD, len(specs))()
+    assert events == ["count", "svd"] * len(specs)
+    for emb, (sl, c) in zip(got, made()):
+        want = embedding_from_counts(demo_ws, sl, c, SVD)
+        assert emb.words == want.words and np.array_equal(emb.vectors, want.vectors)

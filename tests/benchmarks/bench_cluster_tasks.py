@@ -72,8 +72,8 @@ def main():
         ingest(Path(tmp) / "ws", [args.corpus])
         path = Path(tmp) / "ws"
         local = {kind: fn(open_workspace(path)) for kind, fn in runs.items()}
-        with LocalCluster(n_workers=1, threads_per_worker=1, processes=True, dashboard_address=None) as one, \
-                LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None) as two:
+        with LocalCluster(n_workers=1, threads_per_worker=1, processes=True, dashboard_address=":0") as one, \
+                LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=":0") as two:
             arms = {"1 worker": one.scheduler_address, "2 workers": two.scheduler_address}
             for address in arms.values():  # warm-up, untimed
                 for fn in runs.values():

@@ -4,6 +4,7 @@ changes beside the retrained ones, and say whether the ranking holds (``CONFIRM`
 from __future__ import annotations
 
 import dataclasses
+import functools
 
 import numpy as np
 import pandas as pd
@@ -95,19 +96,22 @@ def _reduced(sl: Slice, removed_mask: np.ndarray) -> Slice:
     return Slice(f"{sl.name} (reduced)", w, int((w > 0).sum()), 0)
 
 
-def _retrained(ws, test, model, sl, counts, model_settings, masks: list, seeds: int) -> list[tuple[float, float, float]]:
+def _retrained(ws, test, model, sl, counts, model_settings, masks: list, seeds: int,
+               progress: bool = False) -> list[tuple[float, float, float]]:
     """Retrain without the documents of each mask, the trainings as independent tasks (on the
     workspace's cluster or the local replicate pool, :func:`tracer.provenance.cluster.tasks_for`):
     the models :func:`train_embedding` trains, bit for bit. Each mask's counts (PPMI-SVD) are made
-    here first; a word2vec retrain runs ``seeds`` seeds. Returns (effect size, gap, seed spread of
-    the gap) per mask, in order."""
+    here as the tasks are handed over; a word2vec retrain runs ``seeds`` seeds. Returns (effect
+    size, gap, seed spread of the gap) per mask, in order."""
     subs = [_reduced(sl, m) for m in masks]
-    vocabs = [slice_vocab(ws, sub.weights, counts, sub.name) for sub in subs]
+    bar = functools.partial(tqdm, desc="verify", total=len(subs), disable=not progress, leave=False)
     if model == "ppmi-svd":
-        made = [(sub, count_slice(ws, sub.weights, counts, slice_name=sub.name, vocab=v)) for sub, v in zip(subs, vocabs)]
+        made = ((sub, count_slice(ws, sub.weights, counts, slice_name=sub.name,
+                                  vocab=slice_vocab(ws, sub.weights, counts, sub.name))) for sub in bar(subs))
         results = [weat(e.unit_vectors, e.index, test, with_p=False)
-                   for e in start_embeddings_from_counts(ws, made, model_settings)()]
+                   for e in start_embeddings_from_counts(ws, made, model_settings, len(subs))()]
         return [(r.effect_size, r.gap, 0.0) for r in results]
+    vocabs = [slice_vocab(ws, sub.weights, counts, sub.name) for sub in bar(subs)]
     runs = [dataclasses.replace(model_settings, seed=model_settings.seed + k) for k in range(seeds)]
     vectors = start_word2vec(ws, [(sub.weights, v, s) for sub, v in zip(subs, vocabs) for s in runs], counts)()
     out = []
@@ -146,10 +150,10 @@ def verify(ws, test, model, sl, counts, model_settings, attr, sources, order, li
 
     # every retrain at once, as independent tasks; the whole slice's model first when not given
     masks = ([] if full is not None else [np.zeros(len(src), bool)]) + [mask for _, mask in items]
-    retrained = _retrained(ws, test, model, sl, counts, model_settings, masks, settings.seeds)
+    retrained = _retrained(ws, test, model, sl, counts, model_settings, masks, settings.seeds, progress)
     full_d, full_gap, _ = full if full is not None else retrained.pop(0)
     rows = []
-    for (name, mask), (d, gap, sd) in zip(tqdm(items, desc="verify", disable=not progress, leave=False), retrained):
+    for (name, mask), (d, gap, sd) in zip(items, retrained):
         removed = np.flatnonzero(mask)
         ex = attr.exact(removed)
         rows.append({"removed": name, "documents": len(removed),

@@ -23,6 +23,7 @@ thread as the local pool does: below 5,000 rows the SVD sets that itself
 
 from __future__ import annotations
 
+import contextlib
 import operator
 from pathlib import Path
 from typing import Callable, Iterable
@@ -33,7 +34,7 @@ import scipy.sparse as sp
 from tracer.core.count_engine import split_by_tokens
 from tracer.core.counting import CountSettings, ModelVocab, build_vocab, count_matrix
 from tracer.core.replicate_pool import LocalTasks, Tasks, workers_for
-from tracer.errors import SettingError
+from tracer.errors import ClusterError, SettingError, TracerError, WorkspaceNotFound
 
 
 def _client(scheduler):
@@ -44,8 +45,44 @@ def _client(scheduler):
                            "pip install 'corpus-tracer[dask]'") from None
     if isinstance(scheduler, Client):
         return scheduler, False
-    # not the process's default client: a library user's own client stays theirs
-    return Client(scheduler, set_as_default=False), True
+    try:
+        # not the process's default client: a library user's own client stays theirs
+        return Client(scheduler, set_as_default=False), True
+    except (OSError, ValueError) as e:  # nothing answers there (OSError), not an address (ValueError)
+        raise ClusterError(f"cannot connect to the dask scheduler {scheduler}: {e} "
+                           "(check --scheduler or [compute] scheduler)") from None
+
+
+def _cluster_failure(e: BaseException, scheduler) -> ClusterError | None:
+    """``e`` as a :class:`ClusterError` when it is the cluster's own failure rather than a task's:
+    a connection lost, a worker lost, workers without the package or the workspace's files."""
+    from distributed import KilledWorker
+    where = f"the dask scheduler {scheduler}" if isinstance(scheduler, str) else "the dask client's scheduler"
+    if isinstance(e, KilledWorker):
+        return ClusterError(f"a worker of {where} died while running a task ({e}); "
+                            "check the workers' memory and logs, then run again")
+    if isinstance(e, ImportError) and (e.name or "").split(".")[0] == "tracer":
+        return ClusterError(f"the workers of {where} cannot import tracer ({e}); "
+                            "install corpus-tracer, this version, where the workers run")
+    if isinstance(e, OSError):  # the connection lost (CommClosedError), or a worker's files
+        return ClusterError(f"running on {where} failed: {e}; the workers must reach the scheduler and "
+                            "see the workspace at the same path")
+    return None
+
+
+@contextlib.contextmanager
+def _cluster_errors(scheduler):
+    """Raise the cluster's own failures inside as one :class:`ClusterError` (see
+    :func:`_cluster_failure`); a task's named error, or a bug in it, passes as it is."""
+    try:
+        yield
+    except TracerError:
+        raise
+    except Exception as e:
+        named = _cluster_failure(e, scheduler)
+        if named is None:
+            raise
+        raise named from e
 
 
 class ClusterTasks:
@@ -70,7 +107,9 @@ class ClusterTasks:
     def submit(self, fn: Callable, items: Iterable) -> Callable[[], list]:
         client, owned = _client(self.scheduler)
         try:
-            futures = [client.submit(fn, client.scatter(item, hash=False), pure=False) for item in items]
+            with _cluster_errors(self.scheduler):
+                # each item scattered whole (a tuple or list would be scattered element by element)
+                futures = [client.submit(fn, client.scatter([item], hash=False)[0], pure=False) for item in items]
         except BaseException:
             if owned:
                 client.close()
@@ -78,7 +117,8 @@ class ClusterTasks:
 
         def results() -> list:
             try:
-                return client.gather(futures)  # in the order of the futures; a task's error is raised here
+                with _cluster_errors(self.scheduler):
+                    return client.gather(futures)  # in the order of the futures; a task's error is raised here
             finally:
                 if owned:
                     client.close()
@@ -95,11 +135,21 @@ def tasks_for(ws, per_task_bytes: int, n_tasks: int) -> Tasks:
     return LocalTasks(workers_for(per_task_bytes, n_tasks))
 
 
+def task_workspace(path: str):
+    """The workspace at ``path``, opened by a task (on a worker, the same folder as the caller's: a
+    shared file system); a worker that does not see it says so."""
+    from tracer.corpus.workspace import Workspace
+    try:
+        return Workspace(path)
+    except WorkspaceNotFound as e:
+        raise ClusterError(f"a task cannot open the workspace {path} ({e}); the workers must see it "
+                           "at the same path as this machine") from None
+
+
 def _count_part(ws_path: str, weights: np.ndarray, docs: np.ndarray, vocab: ModelVocab,
                 settings: CountSettings) -> sp.csr_array:
     """One task: the count of ``docs`` (their weights kept, every other document 0)."""
-    from tracer.corpus.workspace import Workspace
-    ws = Workspace(ws_path)
+    ws = task_workspace(ws_path)
     part = np.zeros_like(weights)
     part[docs] = weights[docs]
     return count_matrix(ws.tokens, ws.doc_offsets, part, vocab, len(ws.vocab), settings, workers=1)
@@ -144,11 +194,12 @@ def count_on_cluster(ws, weights: np.ndarray, settings: CountSettings, *, schedu
     parts = split_by_tokens(ws.doc_offsets, docs, partition_tokens)
     client, owned = _client(scheduler)
     try:
-        path = str(Path(ws.path).resolve())
-        w_future, v_future = client.scatter([weights, vocab], broadcast=True)
-        futures = [client.submit(_count_part, path, w_future, part, v_future, settings, pure=False)
-                   for part in parts]
-        total = _tree_sum(client, futures)
+        with _cluster_errors(scheduler):
+            path = str(Path(ws.path).resolve())
+            w_future, v_future = client.scatter([weights, vocab], broadcast=True)
+            futures = [client.submit(_count_part, path, w_future, part, v_future, settings, pure=False)
+                       for part in parts]
+            total = _tree_sum(client, futures)
     finally:
         if owned:
             client.close()

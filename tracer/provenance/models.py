@@ -5,17 +5,17 @@ from __future__ import annotations
 import datetime as dt
 import functools
 import hashlib
+import itertools
 import re
 from pathlib import Path
-from typing import Callable
+from typing import Callable, Iterable
 
 import numpy as np
 import pandas as pd
 
 from tracer.core import memory
 from tracer.core.counting import Counts, CountSettings, ModelVocab, build_vocab
-from tracer.corpus.workspace import Workspace
-from tracer.provenance.cluster import tasks_for
+from tracer.provenance.cluster import task_workspace, tasks_for
 from tracer.provenance.counts import count_slice
 from tracer.versions import package_versions
 from tracer.corpus.lock import workspace_lock
@@ -133,7 +133,7 @@ def embedding_from_counts(ws, sl: Slice, c, settings: PpmiSvdSettings, *,
     if hit is not None:
         return hit
     vectors, extras = ppmi_svd_vectors(c.matrix, settings)
-    return _made_embedding(ws, sl, c, settings, key, vectors, extras)
+    return _made_embedding(ws, sl, c.vocab, c.settings, settings, key, vectors, extras)
 
 
 def _cached_embedding(ws, sl: Slice, c, settings: PpmiSvdSettings, weights) -> tuple[str | None, Embedding | None]:
@@ -154,31 +154,50 @@ def _cached_embedding(ws, sl: Slice, c, settings: PpmiSvdSettings, weights) -> t
     return key, Embedding(hit.words, hit.vectors, {**hit.card, "slice": sl.name}, hit.extras)
 
 
-def _made_embedding(ws, sl: Slice, c, settings: PpmiSvdSettings, key, vectors, extras) -> Embedding:
-    card = {"model": "ppmi-svd", "slice": sl.name, "settings": settings.to_dict(), "counts": c.settings.to_dict(),
-            "corpus_hash": ws.corpus_hash, "n_words": len(c.vocab), "dim": int(vectors.shape[1])}
-    emb = Embedding(list(c.vocab.words), vectors, card, extras)
+def _made_embedding(ws, sl: Slice, vocab: ModelVocab, count_settings: CountSettings, settings: PpmiSvdSettings,
+                    key, vectors, extras) -> Embedding:
+    card = {"model": "ppmi-svd", "slice": sl.name, "settings": settings.to_dict(), "counts": count_settings.to_dict(),
+            "corpus_hash": ws.corpus_hash, "n_words": len(vocab), "dim": int(vectors.shape[1])}
+    emb = Embedding(list(vocab.words), vectors, card, extras)
     if key is not None:
         ws.cache.put_embedding(key, emb, ws.corpus_hash)
     return emb
 
 
-def start_embeddings_from_counts(ws, made: list[tuple[Slice, Counts]], settings: PpmiSvdSettings) -> Callable[[], list]:
-    """:func:`embedding_from_counts` of each (slice, counts) pair, its weights the slice's; the SVDs the
-    cache does not hold run as independent tasks (:func:`tracer.provenance.cluster.tasks_for`: the
-    workspace's cluster or the local replicate pool, the same vectors bit for bit). Returns the
-    function that waits for them and gives the embeddings in the order of ``made``."""
-    found = [_cached_embedding(ws, sl, c, settings, None) for sl, c in made]
-    todo = [c.matrix for (sl, c), (_, hit) in zip(made, found) if hit is None]
-    if not todo:
-        return lambda: [hit for _, hit in found]
-    per_task = max(12 * m.nnz + memory.ppmi_svd_peak(m.shape[0], m.nnz, settings.dim) for m in todo)
-    pending = tasks_for(ws, per_task, len(todo)).submit(functools.partial(ppmi_svd_vectors, settings=settings), todo)
+def start_embeddings_from_counts(ws, made: Iterable[tuple[Slice, Counts]], settings: PpmiSvdSettings,
+                                 n: int) -> Callable[[], list]:
+    """:func:`embedding_from_counts` of each of the ``n`` (slice, counts) pairs of ``made``, its weights
+    the slice's; the SVDs the cache does not hold run as independent tasks
+    (:func:`tracer.provenance.cluster.tasks_for`: the workspace's cluster or the local replicate pool,
+    the same vectors bit for bit). Returns the function that waits for them and gives the embeddings
+    in the order of ``made``.
+
+    ``made`` is consumed as the tasks are handed over (in this process with one local worker: one
+    pair at a time, so a generator of counts holds one matrix, not all), and no counts are kept
+    beside their vocabulary. The workers are bounded by the memory of the first pair's PPMI and SVD.
+    """
+    if n == 0:
+        return list
+    made = iter(made)
+    first = next(made)
+    m = first[1].matrix
+    pairs = itertools.chain([first], made)
+    per_task = 12 * m.nnz + memory.ppmi_svd_peak(m.shape[0], m.nnz, settings.dim)
+    found = []  # (slice, vocab, count settings, cache key, cached embedding or None), in order
+
+    def todo():
+        for sl, c in pairs:
+            key, hit = _cached_embedding(ws, sl, c, settings, None)
+            found.append((sl, c.vocab, c.settings, key, hit))
+            if hit is None:
+                yield c.matrix
+
+    pending = tasks_for(ws, per_task, n).submit(functools.partial(ppmi_svd_vectors, settings=settings), todo())
 
     def embeddings() -> list:
-        done = iter(pending())
-        return [hit if hit is not None else _made_embedding(ws, sl, c, settings, key, *next(done))
-                for (sl, c), (key, hit) in zip(made, found)]
+        done = iter(pending())  # every pair is in ``found`` once the tasks are all in
+        return [hit if hit is not None else _made_embedding(ws, sl, vocab, cs, settings, key, *next(done))
+                for sl, vocab, cs, key, hit in found]
     return embeddings
 
 
@@ -186,7 +205,7 @@ def _word2vec_task(path: str, corpus_hash: str, job: tuple) -> np.ndarray:
     """One word2vec training in a task: the workspace opened by its path (the same folder on every
     machine), refused when it holds another corpus than the caller's."""
     weights, vocab, window, settings = job
-    ws = Workspace(path)
+    ws = task_workspace(path)
     if ws.corpus_hash != corpus_hash:
         raise SettingError(f"the workspace {path} changed while its models were being trained; run again")
     return word2vec_vectors(ws.tokens, ws.doc_offsets, weights, vocab, ws.vocab.words, window, settings)
