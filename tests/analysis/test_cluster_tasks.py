@@ -164,3 +164,28 @@ def test_one_local_worker_makes_each_counts_after_the_svd_before(demo_ws, monkey
     for emb, (sl, c) in zip(got, made()):
         want = embedding_from_counts(demo_ws, sl, c, SVD)
         assert emb.words == want.words and np.array_equal(emb.vectors, want.vectors)
+
+
+def test_word2vec_bootstrap_replicates_on_the_cluster_equal_the_local_ones(demo_ws, address, monkeypatch):
+    """word2vec replicates are tasks too (one per seed); the first one against a model trained here
+    by train_embedding on the same resample (the path the replicates took before they were tasks)."""
+    from tracer.analysis.measure import bootstrap_stream, bootstrap_weights
+    from tracer.provenance.models import train_embedding
+    w2v = Word2VecSettings(dim=16, epochs=1, seed=4)
+    sl = slice_from_spec(demo_ws, "time=1960..1969")
+    tests = {"tribune_mix": TESTS["tribune_mix"]}
+    settings = MeasureSettings(bootstrap=3, seeds=2)
+
+    def run(ws):
+        return measure(ws, tests, "word2vec", [sl], COUNTS, w2v, settings).replicates
+
+    monkeypatch.setattr(replicate_pool, "submit_replicates", _in_this_process)
+    local = run(demo_ws)
+    monkeypatch.setattr(replicate_pool, "submit_replicates", _refuse)
+    pd.testing.assert_frame_equal(local, run(open_workspace(demo_ws.path, scheduler=address)), check_exact=True)
+    assert len(local) == 3 and local["gap"].nunique() == 3
+    first = bootstrap_weights(sl, bootstrap_stream(settings.seed, sl.name))
+    gaps = [weat(e.unit_vectors, e.index, TESTS["tribune_mix"], with_p=False).gap
+            for e in (train_embedding(demo_ws, sl, "word2vec", COUNTS, Word2VecSettings(dim=16, epochs=1, seed=4 + k),
+                                      weights=first, save=False) for k in range(2))]
+    assert local["gap"].iloc[0] == pytest.approx(np.mean(gaps), abs=0, rel=1e-12)

@@ -25,9 +25,9 @@ from tracer.core.intervals import combined_interval, difference_interval
 from tracer.core.ppmi_svd import PpmiSvdSettings
 from tracer.errors import SettingError, WordNotInVocabulary
 from tracer.analysis.measure import (MeasureSettings, bootstrap_stream, bootstrap_weights, common_words, measure,
-                                     restricted, start_replicate_vectors)
+                                     restricted)
 from tracer.provenance.counts import count_slice
-from tracer.provenance.models import embedding_from_counts, train_embedding
+from tracer.provenance.models import embedding_from_counts, start_replicate_vectors, train_embedding
 from tracer.provenance.specs import normalized_tests
 
 DEFAULT_MIN_TOKENS = 20_000

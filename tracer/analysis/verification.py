@@ -104,16 +104,16 @@ def _retrained(ws, test, model, sl, counts, model_settings, masks: list, seeds: 
     here as the tasks are handed over; a word2vec retrain runs ``seeds`` seeds. Returns (effect
     size, gap, seed spread of the gap) per mask, in order."""
     subs = [_reduced(sl, m) for m in masks]
-    bar = functools.partial(tqdm, desc="verify", total=len(subs), disable=not progress, leave=False)
+    bar = functools.partial(tqdm, desc="verify", disable=not progress, leave=False)  # over the tasks handed over
     if model == "ppmi-svd":
         made = ((sub, count_slice(ws, sub.weights, counts, slice_name=sub.name,
                                   vocab=slice_vocab(ws, sub.weights, counts, sub.name))) for sub in bar(subs))
         results = [weat(e.unit_vectors, e.index, test, with_p=False)
                    for e in start_embeddings_from_counts(ws, made, model_settings, len(subs))()]
         return [(r.effect_size, r.gap, 0.0) for r in results]
-    vocabs = [slice_vocab(ws, sub.weights, counts, sub.name) for sub in bar(subs)]
+    vocabs = [slice_vocab(ws, sub.weights, counts, sub.name) for sub in subs]
     runs = [dataclasses.replace(model_settings, seed=model_settings.seed + k) for k in range(seeds)]
-    vectors = start_word2vec(ws, [(sub.weights, v, s) for sub, v in zip(subs, vocabs) for s in runs], counts)()
+    vectors = start_word2vec(ws, [(sub.weights, v, s) for sub, v in zip(subs, vocabs) for s in runs], counts, bar)()
     out = []
     for i, v in enumerate(vocabs):
         embs = [Embedding(list(v.words), vec, {}) for vec in vectors[i * seeds:(i + 1) * seeds]]
