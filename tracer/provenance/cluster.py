@@ -11,14 +11,17 @@ With whole-number document weights (slices, bootstrap counts) the result equals 
 count bit for bit: every cell is a sum of whole numbers, exact in float64 in any order.
 Other weights agree to rounding.
 
-Other independent tasks (bootstrap replicates' SVDs, verification retrains) go to the same
+Other independent tasks (bootstrap replicates and verification retrains, PPMI-SVD or word2vec) go to the same
 cluster through :class:`ClusterTasks`, the cluster's :class:`tracer.core.replicate_pool.Tasks`;
 :func:`tasks_for` picks it for a workspace opened with a scheduler and the local replicate pool
 otherwise. Each task runs the same function on the same inputs as the local path, made by the
-caller, so the results are the same bit for bit as long as the workers run the SVD's BLAS on one
-thread as the local pool does: below 5,000 rows the SVD sets that itself
-(:func:`tracer.core.ppmi_svd.blas_threads_for`), and a worker started by ``dask worker`` or a
-``LocalCluster`` with processes has ``OPENBLAS_NUM_THREADS=1`` and the like set by its nanny.
+caller, so the results are the same bit for bit where BLAS runs on one thread on both sides: below
+5,000 rows the SVD sets that itself (:func:`tracer.core.ppmi_svd.blas_threads_for`); above it a
+worker started by ``dask worker`` (or a ``LocalCluster`` with processes) runs one BLAS thread, its
+nanny setting ``OPENBLAS_NUM_THREADS=1`` and the like, while this process uses the library's own
+number, so the SVD of a larger vocabulary may agree to rounding only. The cluster's own failures
+(no scheduler at the address, a worker lost, workers without the package or the workspace) are
+raised as one :class:`tracer.errors.ClusterError`.
 """
 
 from __future__ import annotations
