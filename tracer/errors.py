@@ -50,3 +50,8 @@ class GoalNotReached(TracerError):
 
 class NotEnoughMemory(TracerError):
     """A step's estimated peak memory is more than the memory available (tracer.core.memory)."""
+
+
+class ClusterError(TracerError):
+    """The dask.distributed cluster asked for (``--scheduler``, ``[compute] scheduler``) cannot be
+    reached, lost a worker, or has workers that cannot run the package's tasks."""

@@ -85,3 +85,65 @@ def test_the_scheduler_option_and_the_experiment_key(small_ws, address, tmp_path
     f.write_text(f'[corpus]\ninputs = ["a.jsonl"]\nworkspace = "w"\n[measure]\ntests = "t.toml"\n'
                  f'[compute]\nscheduler = "{address}"\n', encoding="utf-8")
     assert load_experiment(f).scheduler == address
+
+
+def _free_address() -> str:
+    """A local port nothing listens on (bound, read, released)."""
+    import socket
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return f"tcp://127.0.0.1:{s.getsockname()[1]}"
+
+
+def test_no_scheduler_at_the_address_is_one_named_error_on_the_command_line(small_ws, monkeypatch):
+    import dask
+    from click.testing import CliRunner
+    from tracer.app.cli import cli
+    from tracer.errors import ClusterError
+    from tracer.provenance.cluster import ClusterTasks
+    nowhere = _free_address()
+    with dask.config.set({"distributed.comm.timeouts.connect": "1s"}):
+        with pytest.raises(ClusterError, match=r"cannot connect to the dask scheduler tcp://127\.0\.0\.1:\d+"):
+            ClusterTasks(nowhere).submit(abs, [1])()
+        with pytest.raises(ClusterError, match="cannot connect to the dask scheduler nonsense://x"):
+            ClusterTasks("nonsense://x").submit(abs, [1])()
+        result = CliRunner().invoke(cli, ["--scheduler", nowhere, "train", "-w", str(small_ws.path), "--model",
+                                          "ppmi-svd", "--dim", "2", "--min-count", "1"])
+    assert result.exit_code == 1
+    # the status line before it, then one error line, no traceback
+    lines = result.output.strip().splitlines()
+    assert lines[-1].startswith(f"Error: cannot connect to the dask scheduler {nowhere}: "), lines
+    assert "Traceback" not in result.output and sum(line.startswith("Error") for line in lines) == 1
+
+
+def test_a_worker_without_the_workspace_says_so(address):
+    """A named error raised by a task on a worker reaches the caller as itself."""
+    from tracer.errors import ClusterError
+    from tracer.provenance.cluster import ClusterTasks, task_workspace
+    with pytest.raises(ClusterError, match="cannot open the workspace /no/such/folder.*workers must see it"):
+        ClusterTasks(address).submit(task_workspace, ["/no/such/folder"])()
+
+
+def test_a_worker_that_dies_is_one_named_error():
+    import functools
+    import os
+    import dask
+    from distributed import LocalCluster
+    from tracer.errors import ClusterError
+    from tracer.provenance.cluster import ClusterTasks
+    # the scheduler (in this process) gives up on a task after the first worker it kills
+    with dask.config.set({"distributed.scheduler.allowed-failures": 0}), \
+            LocalCluster(n_workers=1, threads_per_worker=1, processes=True, dashboard_address=":0") as cluster:
+        with pytest.raises(ClusterError, match="a worker of the dask scheduler tcp://.* died while running a task"):
+            ClusterTasks(cluster.scheduler_address).submit(functools.partial(os._exit), [3])()
+
+
+def test_which_failures_are_the_clusters():
+    from tracer.errors import ClusterError
+    from tracer.provenance.cluster import _cluster_failure
+    missing = ModuleNotFoundError("No module named 'tracer'", name="tracer")
+    assert isinstance(_cluster_failure(missing, "tcp://h:1"), ClusterError)
+    assert "install corpus-tracer" in str(_cluster_failure(missing, "tcp://h:1"))
+    # a task's own bug stays itself, with its traceback
+    assert _cluster_failure(ZeroDivisionError("x"), "tcp://h:1") is None
+    assert _cluster_failure(ModuleNotFoundError("No module named 'other'", name="other"), "tcp://h:1") is None

@@ -25,9 +25,9 @@ from tracer.core.intervals import combined_interval, difference_interval
 from tracer.core.ppmi_svd import PpmiSvdSettings
 from tracer.errors import SettingError, WordNotInVocabulary
 from tracer.analysis.measure import (MeasureSettings, bootstrap_stream, bootstrap_weights, common_words, measure,
-                                     restricted, start_replicate_vectors)
+                                     restricted)
 from tracer.provenance.counts import count_slice
-from tracer.provenance.models import embedding_from_counts, train_embedding
+from tracer.provenance.models import embedding_from_counts, start_replicate_vectors, train_embedding
 from tracer.provenance.specs import normalized_tests
 
 DEFAULT_MIN_TOKENS = 20_000
@@ -248,7 +248,7 @@ class _Reweighted:
         matrices = (count_slice(self.ws, reweight_to(self.ws, Slice(period.name, w, int((w > 0).sum()), period.n_tokens),
                                                      other)[0].weights, self.counts, slice_name=rw.name,
                                 vocab=c.vocab).matrix for w in resamples)
-        pending = start_replicate_vectors(matrices, self.svd, len(resamples), c.matrix)
+        pending = start_replicate_vectors(self.ws, matrices, self.svd, len(resamples), c.matrix)
 
         def gaps() -> dict:
             index = self.counts_and_model(rw)[1].index

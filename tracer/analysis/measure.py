@@ -17,7 +17,7 @@ import dataclasses
 import functools
 import hashlib
 import logging
-from typing import Callable, Iterable
+from typing import Callable
 
 import numpy as np
 import pandas as pd
@@ -30,10 +30,8 @@ from tracer.core.counting import CountSettings, Counts, build_vocab
 from tracer.core.intervals import METHOD, RATIO_METHOD, bootstrap_interval, q_values, ratio_interval
 from tracer.provenance.counts import count_slice
 from tracer.corpus.slices import Slice
-from tracer.core import memory
-from tracer.core.ppmi_svd import PpmiSvdSettings, word_vectors
-from tracer.core.replicate_pool import submit_replicates, workers_for
-from tracer.provenance.models import embedding_from_counts, train_embedding
+from tracer.core.ppmi_svd import PpmiSvdSettings
+from tracer.provenance.models import embedding_from_counts, start_replicate_vectors, start_word2vec, train_embedding
 from tracer.core.embedding import Embedding
 from tracer.core.word2vec import Word2VecSettings
 from tracer.errors import SettingError
@@ -124,25 +122,6 @@ def bootstrap_weights(sl: Slice, rng: np.random.Generator) -> np.ndarray:
     w = np.zeros_like(sl.weights)
     w[members] = rng.multinomial(len(members), np.full(len(members), 1.0 / len(members))) * sl.weights[members]
     return w
-
-
-def start_replicate_vectors(matrices: Iterable, settings: PpmiSvdSettings, n: int, full) -> Callable[[], list]:
-    """Start the word vectors of each of ``n`` count matrices (bootstrap replicates) on the replicate
-    pool's worker processes (:mod:`tracer.core.replicate_pool`; the same vectors bit for bit on
-    one); returns the function that waits for them and gives them in order.
-
-    Each replicate gets the exact truncated SVD (ARPACK) of its PPMI, as the full data does
-    (:func:`tracer.core.ppmi_svd.word_vectors`), so the replicates differ from the estimate only by
-    the resampling. A subspace iteration warm-started from the full data's context vectors was used
-    before; it was not faster than ARPACK at 493 or 2,475 words, and at 2,475 words its 8
-    iterations moved d by up to 0.32 and the gap by up to 0.025 from the exact SVD of the same
-    replicate (tests/benchmarks/bench_bootstrap.py measures both side by side).
-
-    ``full`` is the count matrix of the data resampled: a replicate has no more nonzeros, so the
-    number of workers is bounded by the memory its PPMI and SVD take (and the copy a worker gets).
-    """
-    per_task = 12 * full.nnz + memory.ppmi_svd_peak(full.shape[0], full.nnz, settings.dim)
-    return submit_replicates(functools.partial(word_vectors, settings=settings), matrices, workers_for(per_task, n))
 
 
 def common_words(ws, tests: dict[str, AssociationTest], slices: list[Slice], counts: CountSettings) -> set[str]:
@@ -392,8 +371,10 @@ def _bootstrap(ws, sl, c, tests, model, counts, model_settings, settings, rng, p
     effect sizes, gaps and score sds of every two-target test measurable with the model ``emb``.
 
     Every resample is drawn first, in order, so the results do not depend on how many workers
-    decompose them. PPMI-SVD replicates are counted and handed to the replicate pool at once (the
-    model's words are its counts' words, so the tests measured are known before the model).
+    decompose them. The replicates are handed to the replicate pool or the workspace's cluster at
+    once (:func:`tracer.provenance.cluster.tasks_for`), PPMI-SVD ones counted here as they go, word2vec
+    ones one task per seed; the model's words are its counts' words (the slice's vocabulary), so the
+    tests measured are known before the model.
     """
     def measurable(known):
         return [t for t in tests.values()
@@ -405,18 +386,21 @@ def _bootstrap(ws, sl, c, tests, model, counts, model_settings, settings, rng, p
     if model == "ppmi-svd" and measurable(set(c.vocab.index)):
         matrices = (count_slice(ws, w, counts, slice_name=sl.name, vocab=c.vocab).matrix for w in bar(weights))
         # the same exact truncated SVD as the full-data model (a warm-started subspace iteration
-        # was tried and dropped: see start_replicate_vectors)
-        pending = start_replicate_vectors(matrices, model_settings, len(weights), c.matrix)
+        # was tried and dropped: see tracer.provenance.models.start_replicate_vectors)
+        pending = start_replicate_vectors(ws, matrices, model_settings, len(weights), c.matrix)
+    elif model != "ppmi-svd" and measurable(set(c.vocab.index)):
+        # word2vec on the slice's words (c.vocab), each replicate's seeds one task each, as
+        # train_embedding(weights=w) trains them
+        runs = [dataclasses.replace(model_settings, seed=model_settings.seed + k) for k in range(settings.seeds)]
+        pending = start_word2vec(ws, [(w, c.vocab, s) for w in weights for s in runs], counts, bar)
 
     def finish(emb: Embedding) -> dict:
         two = measurable(set(emb.index) & set(c.vocab.index))
         if not two:
             return {}
-        if pending is not None:
-            replicates = ([Embedding(emb.words, v, emb.card)] for v in pending())
-        else:
-            replicates = ([train_embedding(ws, sl, model, counts, dataclasses.replace(model_settings, seed=model_settings.seed + k),
-                                           weights=w, save=False) for k in range(settings.seeds)] for w in bar(weights))
+        # the estimate's words are its counts' (PPMI-SVD) or the slice's, as the replicates' (word2vec)
+        per, vectors = (1 if model == "ppmi-svd" else settings.seeds), pending()
+        replicates = ([Embedding(emb.words, v, emb.card) for v in vectors[i:i + per]] for i in range(0, len(vectors), per))
         d, gaps, sds = ({t.name: [] for t in two} for _ in range(3))
         for reps in replicates:
             for t in two:

@@ -4,6 +4,7 @@ changes beside the retrained ones, and say whether the ranking holds (``CONFIRM`
 from __future__ import annotations
 
 import dataclasses
+import functools
 
 import numpy as np
 import pandas as pd
@@ -13,7 +14,9 @@ from tqdm.auto import tqdm
 from tracer.core.association import weat
 from tracer.corpus.slices import Slice
 from tracer.errors import SettingError
-from tracer.provenance.models import train_embedding
+from tracer.core.embedding import Embedding
+from tracer.provenance.counts import count_slice, slice_vocab
+from tracer.provenance.models import start_embeddings_from_counts, start_word2vec
 
 # Thresholds of a confirmed verification. Pearson r alone can be carried by one large removal
 # (the owning source) while the rest are in the wrong order, so the verdict rests on the rank
@@ -83,22 +86,42 @@ def agreement_of(table: pd.DataFrame, quantity: str) -> Verification:
 
 def _measure_without(ws, test, model, sl, counts, model_settings, removed_mask, seeds: int) -> tuple[float, float, float]:
     """Retrain without the removed documents; (effect size, gap, seed spread of the gap)."""
+    return _retrained(ws, test, model, sl, counts, model_settings, [removed_mask], seeds)[0]
+
+
+def _reduced(sl: Slice, removed_mask: np.ndarray) -> Slice:
     w = sl.weights * ~removed_mask
     if not (w > 0).any():
         raise SettingError(f"removing these documents leaves slice {sl.name} empty")
-    sub = Slice(f"{sl.name} (reduced)", w, int((w > 0).sum()), 0)
+    return Slice(f"{sl.name} (reduced)", w, int((w > 0).sum()), 0)
+
+
+def _retrained(ws, test, model, sl, counts, model_settings, masks: list, seeds: int,
+               progress: bool = False) -> list[tuple[float, float, float]]:
+    """Retrain without the documents of each mask, the trainings as independent tasks (on the
+    workspace's cluster or the local replicate pool, :func:`tracer.provenance.cluster.tasks_for`):
+    the models :func:`train_embedding` trains, bit for bit. Each mask's counts (PPMI-SVD) are made
+    here as the tasks are handed over; a word2vec retrain runs ``seeds`` seeds. Returns (effect
+    size, gap, seed spread of the gap) per mask, in order."""
+    subs = [_reduced(sl, m) for m in masks]
+    bar = functools.partial(tqdm, desc="verify", disable=not progress, leave=False)  # over the tasks handed over
     if model == "ppmi-svd":
-        e = train_embedding(ws, sub, model, counts, model_settings, save=False)
-        r = weat(e.unit_vectors, e.index, test, with_p=False)
-        return r.effect_size, r.gap, 0.0
-    ds, gaps = [], []
-    for k in range(seeds):
-        e = train_embedding(ws, sub, model, counts, dataclasses.replace(model_settings, seed=model_settings.seed + k),
-                            save=False)
-        r = weat(e.unit_vectors, e.index, test, with_p=False)
-        ds.append(r.effect_size)
-        gaps.append(r.gap)
-    return float(np.mean(ds)), float(np.mean(gaps)), float(np.std(gaps, ddof=1)) if seeds > 1 else 0.0
+        made = ((sub, count_slice(ws, sub.weights, counts, slice_name=sub.name,
+                                  vocab=slice_vocab(ws, sub.weights, counts, sub.name))) for sub in bar(subs))
+        results = [weat(e.unit_vectors, e.index, test, with_p=False)
+                   for e in start_embeddings_from_counts(ws, made, model_settings, len(subs))()]
+        return [(r.effect_size, r.gap, 0.0) for r in results]
+    vocabs = [slice_vocab(ws, sub.weights, counts, sub.name) for sub in subs]
+    runs = [dataclasses.replace(model_settings, seed=model_settings.seed + k) for k in range(seeds)]
+    vectors = start_word2vec(ws, [(sub.weights, v, s) for sub, v in zip(subs, vocabs) for s in runs], counts, bar)()
+    out = []
+    for i, v in enumerate(vocabs):
+        embs = [Embedding(list(v.words), vec, {}) for vec in vectors[i * seeds:(i + 1) * seeds]]
+        rs = [weat(e.unit_vectors, e.index, test, with_p=False) for e in embs]
+        gaps = [r.gap for r in rs]
+        out.append((float(np.mean([r.effect_size for r in rs])), float(np.mean(gaps)),
+                    float(np.std(gaps, ddof=1)) if seeds > 1 else 0.0))
+    return out
 
 
 def verify(ws, test, model, sl, counts, model_settings, attr, sources, order, lin,
@@ -125,13 +148,14 @@ def verify(ws, test, model, sl, counts, model_settings, attr, sources, order, li
     randoms = rng.choice(np.flatnonzero(in_slice), size=min(k, int(in_slice.sum())), replace=False)
     items.append((f"{len(randoms)} random documents", np.isin(np.arange(len(src)), randoms)))
 
-    full_d, full_gap, _ = full if full is not None else _measure_without(
-        ws, test, model, sl, counts, model_settings, np.zeros(len(src), bool), settings.seeds)
+    # every retrain at once, as independent tasks; the whole slice's model first when not given
+    masks = ([] if full is not None else [np.zeros(len(src), bool)]) + [mask for _, mask in items]
+    retrained = _retrained(ws, test, model, sl, counts, model_settings, masks, settings.seeds, progress)
+    full_d, full_gap, _ = full if full is not None else retrained.pop(0)
     rows = []
-    for name, mask in tqdm(items, desc="verify", disable=not progress, leave=False):
+    for (name, mask), (d, gap, sd) in zip(items, retrained):
         removed = np.flatnonzero(mask)
         ex = attr.exact(removed)
-        d, gap, sd = _measure_without(ws, test, model, sl, counts, model_settings, mask, settings.seeds)
         rows.append({"removed": name, "documents": len(removed),
                      "predicted": (ex.gap - attr.base.gap) if q == "gap" else (ex.effect_size - attr.base.effect_size),
                      "predicted_linear": float(lin[removed].sum()),

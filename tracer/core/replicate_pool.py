@@ -19,10 +19,15 @@ process handles it) and exit when the process that started them is gone.
 The number of workers is the environment variable ``TRACER_REPLICATE_WORKERS`` if set, else the
 cores this process may use (:func:`tracer.core.threads.default_workers`); the caller lowers it
 to what memory allows (:func:`workers_for`).
+
+:class:`Tasks` is what a caller hands independent tasks to: :class:`LocalTasks` (this pool) and
+the dask.distributed cluster's ``ClusterTasks`` (:mod:`tracer.provenance.cluster`) both give the
+results of ``submit`` in the order of the items, so a caller need not know where they ran.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import multiprocessing
 import os
 import signal
@@ -30,7 +35,7 @@ import threading
 import time
 from concurrent.futures import ProcessPoolExecutor
 from concurrent.futures.process import BrokenProcessPool
-from typing import Callable, Iterable
+from typing import Callable, Iterable, Protocol
 
 from tracer.core import memory
 from tracer.core.threads import default_workers
@@ -123,6 +128,23 @@ def map_replicates(fn: Callable, items: Iterable, workers: int = 1) -> list:
     """``[fn(item) for item in items]``, on ``workers`` processes when more than one (see
     :func:`submit_replicates`)."""
     return submit_replicates(fn, items, workers)()
+
+
+class Tasks(Protocol):
+    """Somewhere to run independent tasks: ``submit(fn, items)`` starts ``fn(item)`` for every item and
+    returns the function that waits for the results and gives them in the order of ``items``."""
+
+    def submit(self, fn: Callable, items: Iterable) -> Callable[[], list]: ...
+
+
+@dataclasses.dataclass(frozen=True)
+class LocalTasks:
+    """The replicate pool's :class:`Tasks`: ``workers`` spawned processes, this process when 1."""
+
+    workers: int = 1
+
+    def submit(self, fn: Callable, items: Iterable) -> Callable[[], list]:
+        return submit_replicates(fn, items, self.workers)
 
 
 def _forget(workers: int) -> None:

@@ -118,7 +118,7 @@ class Experiment:
     drift_words: tuple[str, ...]
     drift_per_slice_words: bool
     text: str
-    scheduler: str | None = None  # a dask.distributed scheduler to count on ([compute] scheduler)
+    scheduler: str | None = None  # a dask.distributed scheduler to count and run replicates on ([compute] scheduler)
 
     @property
     def hash(self) -> str:

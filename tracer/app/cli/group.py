@@ -101,7 +101,8 @@ def _show_raw(caught) -> None:
 @click.option("--progress", is_flag=True, help="Show progress bars even when standard error is not a terminal.")
 @click.option("--debug", is_flag=True, help="Show the full traceback of an error, and warnings as they came.")
 @click.option("--scheduler", metavar="ADDRESS", default=None,
-              help="Count on this dask.distributed scheduler (e.g. tcp://host:8786; needs the dask extra).")
+              help="Count, and run bootstrap replicates and verification retrains, on this dask.distributed "
+                   "scheduler (e.g. tcp://host:8786; needs the dask extra).")
 @click.pass_context
 def cli(ctx, quiet, verbose, progress, debug, scheduler):
     """Trace associations in word embeddings back to the corpus that made them.
