@@ -148,6 +148,9 @@ class Tokenizer:
         return self.normalize(word.strip())
 
     def tokenize(self, text: str) -> list[str]:
+        """The whole matches of the pattern in the normalised text, in order."""
+        if not self._regexp.groups:  # findall gives the whole matches then, without a Match object each
+            return self._regexp.findall(self.normalize(text))
         return [m.group() for m in self._regexp.finditer(self.normalize(text))]
 
     def spans(self, text: str) -> list[tuple[int, int]] | None:

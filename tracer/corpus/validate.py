@@ -109,6 +109,19 @@ class FieldUse:
             if k in self.found or len(self.found) < _MAX_FIELD_NAMES:
                 self.found[k] = self.found.get(k, 0) + 1
 
+    def merge(self, records: int, found: dict[str, int]) -> None:
+        """Add the counts of a later run of records, counted by a :class:`FieldUse` of their own.
+
+        Gives the counts :meth:`add` gives record by record: the names kept are the first
+        ``_MAX_FIELD_NAMES`` by first appearance (``found`` lists its names in that order and
+        holds the first ``_MAX_FIELD_NAMES`` of its run, the only ones that can still be new
+        here), each with every record that has it.
+        """
+        self.records += records
+        for k, c in found.items():
+            if k in self.found or len(self.found) < _MAX_FIELD_NAMES:
+                self.found[k] = self.found.get(k, 0) + c
+
     def _present(self, *names: str) -> int:
         if len(names) == 1:
             return self.found.get(names[0], 0)

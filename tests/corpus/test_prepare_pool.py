@@ -1,4 +1,4 @@
-"""Tokenizing on worker processes stores the corpus the serial path stores, and stays crash-safe."""
+"""Preparing records on worker processes stores the corpus the serial path stores, and stays crash-safe."""
 
 import multiprocessing
 import os
@@ -8,7 +8,7 @@ import sqlite3
 import numpy as np
 import pytest
 
-import tracer.corpus.tokenize_pool as tokenize_pool
+import tracer.corpus.prepare_pool as prepare_pool
 from tests.conftest import lee_documents, write_jsonl
 from tracer.corpus.ingest import ingest
 from tracer.corpus.tokenize import TokenizerSettings
@@ -42,10 +42,10 @@ def stored(ws_path):
 @pytest.mark.parametrize("settings", [None, TokenizerSettings(lowercase=False, normalization="NFC"),
                                       TokenizerSettings(case_rule="turkish")])
 def test_workers_store_what_the_serial_path_stores(tmp_path, lee_input, monkeypatch, settings):
-    monkeypatch.setattr(tokenize_pool, "CHUNK_CHARS", 5_000)  # about 30 chunks: the workers start
+    monkeypatch.setattr(prepare_pool, "CHUNK_CHARS", 5_000)  # about 30 chunks: the workers start
     started = []
-    real = tokenize_pool.multiprocessing.get_context
-    monkeypatch.setattr(tokenize_pool.multiprocessing, "get_context", lambda m: started.append(m) or real(m))
+    real = prepare_pool.multiprocessing.get_context
+    monkeypatch.setattr(prepare_pool.multiprocessing, "get_context", lambda m: started.append(m) or real(m))
     serial = ingest(tmp_path / "one", [lee_input], tokenizer=settings, jobs=1)
     assert started == []
     parallel = ingest(tmp_path / "two", [lee_input], tokenizer=settings, jobs=2)
@@ -60,13 +60,13 @@ def test_workers_store_what_the_serial_path_stores(tmp_path, lee_input, monkeypa
 
 
 def test_one_chunk_never_starts_workers(tmp_path, small_jsonl, monkeypatch):
-    monkeypatch.setattr(tokenize_pool.multiprocessing, "get_context",
+    monkeypatch.setattr(prepare_pool.multiprocessing, "get_context",
                         lambda m: pytest.fail("workers started for a small input"))
     assert ingest(tmp_path / "ws", [small_jsonl], jobs=4).documents_total == 4
 
 
 def _ingest_killed_while_tokenizing(ws, path):
-    tokenize_pool.CHUNK_CHARS = 5_000  # the parent's chunks (the workers need no setting)
+    prepare_pool.CHUNK_CHARS = 5_000  # the parent's chunks (the workers need no setting)
     os.environ["TRACER_TEST_KILL_AT"] = "tokenizing"
     ingest(ws, [path], jobs=2)
 
@@ -92,7 +92,7 @@ def test_workers_print_nothing_on_the_terminal(capfd):
     # (found by the outside probe's kill trials): workers are started with stderr on /dev/null
     import multiprocessing
     import sys
-    with tokenize_pool.children_without_stderr():
+    with prepare_pool.children_without_stderr():
         p = multiprocessing.get_context("spawn").Process(target=os.write, args=(2, b"Traceback from a worker\n"))
         p.start()
     p.join()
