@@ -10,9 +10,11 @@ import pytest
 
 import tracer.corpus.prepare_pool as prepare_pool
 from tests.conftest import lee_documents, write_jsonl
+import tracer.corpus.ingest as ingest_module
 from tracer.corpus.ingest import ingest
 from tracer.corpus.tokenize import TokenizerSettings
 from tracer.corpus.workspace import Workspace
+from tracer.errors import InputError
 
 FORK = multiprocessing.get_context("fork")
 
@@ -98,3 +100,32 @@ def test_workers_print_nothing_on_the_terminal(capfd):
     p.join()
     print("the parent's own line", file=sys.stderr)
     assert p.exitcode == 0 and capfd.readouterr().err == "the parent's own line\n"
+
+
+def test_one_pool_serves_every_input_and_is_gone_after_an_error(tmp_path, lee_input, monkeypatch):
+    # the workers started for the first input prepare the second one too (its own settings reach
+    # them with each chunk), and a --strict stop in the second input terminates them
+    monkeypatch.setattr(prepare_pool, "CHUNK_CHARS", 5_000)
+    started = []
+    real = prepare_pool.multiprocessing.get_context
+    monkeypatch.setattr(prepare_pool.multiprocessing, "get_context", lambda m: started.append(m) or real(m))
+    pools = []  # the test holds each pool, so that only the ingest's own cleanup can end the workers
+
+    class Held(prepare_pool.PreparePool):
+        def __init__(self, jobs):
+            super().__init__(jobs)
+            pools.append(self)
+
+    monkeypatch.setattr(ingest_module, "PreparePool", Held)
+    docs = [t for t in lee_documents() if t.strip()]
+    second = write_jsonl(tmp_path / "second.jsonl", [{"id": f"x{i}", "text": t} for i, t in enumerate(docs)])
+    both = ingest(tmp_path / "both", [lee_input, second], jobs=2)
+    assert started == ["spawn"] and multiprocessing.active_children() == [] and pools[0].pool is None
+    alone = ingest(tmp_path / "alone", [second], jobs=1)
+    assert Workspace(tmp_path / "both").n_documents == both.documents_total
+    assert both.documents_total == alone.documents_total + ingest(tmp_path / "first", [lee_input], jobs=1).documents_total
+    bad = write_jsonl(tmp_path / "bad.jsonl", [{"id": f"y{i}", "text": t} for i, t in enumerate(docs[:-1])]
+                      + [{"id": "y0", "text": "a duplicate at the end"}])
+    with pytest.raises(InputError, match=r"bad.jsonl, line \d+: duplicate id 'y0' \(--strict"):
+        ingest(tmp_path / "strict", [second, bad], jobs=2, strict=True)
+    assert len(started) == 2 and multiprocessing.active_children() == [] and pools[-1].pool is None

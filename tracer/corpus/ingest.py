@@ -28,7 +28,7 @@ from tracer.errors import InputError, WorkspaceError
 from tracer.versions import package_versions
 from tracer.corpus.lock import workspace_lock
 from tracer.corpus.prepare import PrepareSettings, Prepared
-from tracer.corpus.prepare_pool import prepared
+from tracer.corpus.prepare_pool import PreparePool
 from tracer.corpus.readers import ReadLimits, Reject, detect_format, read_items, shown_path, txt_entries
 from tracer.corpus.store import StoreWriter, remove_abandoned
 from tracer.corpus.tokenize import ENGINE, TokenizerSettings
@@ -125,7 +125,7 @@ class _Run:
     writer: StoreWriter
     strict: bool
     limits: ReadLimits = ReadLimits()
-    jobs: int = 1
+    pool: PreparePool = dataclasses.field(default_factory=lambda: PreparePool(1))
     reasons: dict[str, int] = dataclasses.field(default_factory=dict)
     first_reject: Reject | None = None
 
@@ -257,9 +257,9 @@ def _ingest_locked(ws_path: Path, inputs: list[Path], fields: FieldMap, tokenize
     writer = StoreWriter(ws_path, old, settings, previous=current_name)
     committed = False
     try:
-        run = _Run(writer, strict, limits, jobs)
+        run = _Run(writer, strict, limits, PreparePool(jobs))
         summaries = []
-        with tqdm(desc="ingest", unit=" docs", disable=not progress, leave=False) as bar:
+        with run.pool, tqdm(desc="ingest", unit=" docs", disable=not progress, leave=False) as bar:
             for path, sha in zip(inputs, input_hashes):
                 if sha in known:
                     summaries.append(InputSummary(shown_path(path), sha, "already ingested", 0, 0, 0, 0))
@@ -291,7 +291,7 @@ def _read_input(run: _Run, path: Path, sha: str, input_format: str | None, field
     content = hashlib.sha256()
     n_rec = n_doc = n_tok = n_rej = 0
     settings = PrepareSettings(run.writer.settings, fields, default_source, run.limits, name)
-    for chunk in prepared(read_items(path, input_format, run.limits), settings, run.jobs):
+    for chunk in run.pool.prepared(read_items(path, input_format, run.limits), settings):
         use.merge(chunk.records, chunk.found)
         stored = _checked_rows(run, chunk)
         n_rec += len(chunk.outcomes)

@@ -154,12 +154,9 @@ def _bad_tokens(words: list[str], local: np.ndarray, lengths: np.ndarray) -> dic
 _worker: Preparer | None = None
 
 
-def start_worker(settings: PrepareSettings) -> None:
-    """The initializer of a worker process."""
+def prepare_chunk(settings: PrepareSettings, items: list) -> Prepared:
+    """A worker's task: one chunk (the worker keeps its :class:`Preparer` while the input is the same)."""
     global _worker
-    _worker = Preparer(settings)
-
-
-def prepare_chunk(items: list) -> Prepared:
-    """A worker's task: one chunk."""
+    if _worker is None or _worker.settings != settings:
+        _worker = Preparer(settings)
     return _worker(items)

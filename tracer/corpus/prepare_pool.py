@@ -27,7 +27,7 @@ import os
 import sys
 from typing import Iterable, Iterator
 
-from tracer.corpus.prepare import PrepareSettings, Prepared, Preparer, prepare_chunk, start_worker
+from tracer.corpus.prepare import PrepareSettings, Prepared, Preparer, prepare_chunk
 from tracer.corpus.readers import RawRecord
 from tracer.corpus.store import checkpoint
 
@@ -59,27 +59,40 @@ def _chunks(items: Iterable) -> Iterator[list]:
         yield chunk
 
 
-def prepared(items: Iterable, settings: PrepareSettings, jobs: int) -> Iterator[Prepared]:
-    """Each chunk of ``items`` (of :func:`tracer.corpus.readers.read_items`) prepared, in order.
+class PreparePool:
+    """The worker processes of one ingest: started when an input first needs them (more than one
+    chunk and ``jobs`` > 1), kept for the inputs after it, terminated when the block is left (the
+    end, an error, or the consumer stopping early)."""
 
-    With ``jobs`` > 1 and more than one chunk, ``jobs`` worker processes prepare the chunks.
-    """
-    chunks = _chunks(items)
-    head = list(itertools.islice(chunks, 2))
-    if jobs <= 1 or len(head) < 2:
-        prepare = Preparer(settings)
-        for chunk in itertools.chain(head, chunks):
-            yield prepare(chunk)
-        return
-    ctx = multiprocessing.get_context("spawn")
-    # leaving the block (the end, an error, or the consumer stopping early) terminates the workers
-    with children_without_stderr():
-        pool = ctx.Pool(jobs, initializer=start_worker, initargs=(settings,))
-    with pool:
+    def __init__(self, jobs: int):
+        self.jobs = jobs
+        self.pool = None
+
+    def __enter__(self) -> "PreparePool":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        if self.pool is not None:
+            self.pool.terminate()
+            self.pool.join()
+            self.pool = None
+
+    def prepared(self, items: Iterable, settings: PrepareSettings) -> Iterator[Prepared]:
+        """Each chunk of ``items`` (of :func:`tracer.corpus.readers.read_items`) prepared, in order."""
+        chunks = _chunks(items)
+        head = list(itertools.islice(chunks, 2))
+        if self.jobs <= 1 or len(head) < 2:
+            prepare = Preparer(settings)
+            for chunk in itertools.chain(head, chunks):
+                yield prepare(chunk)
+            return
+        if self.pool is None:
+            with children_without_stderr():
+                self.pool = multiprocessing.get_context("spawn").Pool(self.jobs)
         pending: collections.deque = collections.deque()
         for chunk in itertools.chain(head, chunks):
-            pending.append(pool.apply_async(prepare_chunk, (chunk,)))
-            if len(pending) >= 2 * jobs:
+            pending.append(self.pool.apply_async(prepare_chunk, (settings, chunk)))
+            if len(pending) >= 2 * self.jobs:
                 yield pending.popleft().get()
                 checkpoint("tokenizing")  # the workers busy with the next chunks
         while pending:
