@@ -18,13 +18,14 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from hypothesis import given, settings
+from hypothesis import example, given, settings
 from hypothesis import strategies as st
 
 import tracer.corpus.prepare_pool as prepare_pool
 from tests.conftest import lee_documents, write_jsonl
 from tracer.corpus.ingest import FieldMap, ingest
-from tracer.corpus.readers import RawRecord
+from tracer.corpus.prepare import PrepareSettings, Preparer
+from tracer.corpus.readers import RawRecord, ReadLimits
 from tracer.corpus.tokenize import TokenizerSettings
 from tracer.corpus.validate import FieldUse
 from tracer.corpus.workspace import Workspace
@@ -166,17 +167,29 @@ def test_a_token_with_a_tab_stops_the_ingest_where_one_process_would(tmp_path, m
 @given(st.lists(st.dictionaries(st.integers(0, 260).map(lambda k: f"k{k}"), st.sampled_from(["", None, "v", 1]),
                                 min_size=20, max_size=60), min_size=8, max_size=30),
        st.lists(st.integers(0, 30), max_size=5))
+# a name kept from the first run comes after 200 new names in the second: still counted
+@example([{"k0": "v"}, {f"k{k}": "v" for k in range(1, 201)}, {"k0": 1}], [1])
 def test_field_counts_merged_chunk_by_chunk_are_those_counted_record_by_record(records, cuts):
     # more distinct names than FieldUse keeps (200): which ones are kept depends on the order
     recs = [RawRecord(d, "in.jsonl", i + 1) for i, d in enumerate(records)]
     whole = FieldUse(FieldMap(), None, "in.jsonl")
     for r in recs:
         whole.add(r)
+    # each run counted as ingest counts a chunk (the Preparer a worker runs), then merged in order
     merged = FieldUse(FieldMap(), None, "in.jsonl")
+    prepare = Preparer(PrepareSettings(TokenizerSettings(), FieldMap(), None, ReadLimits(), "in.jsonl"))
     bounds = [0, *sorted(cuts), len(recs)]
     for a, b in zip(bounds, bounds[1:]):
-        part = FieldUse(FieldMap(), None, "in.jsonl")
-        for r in recs[a:b]:
-            part.add(r)
+        part = prepare(recs[a:b])
         merged.merge(part.records, part.found)
     assert list(merged.found.items()) == list(whole.found.items()) and merged.records == whole.records
+
+
+@settings(max_examples=50, deadline=None)
+@given(st.lists(st.integers(0, 40), max_size=300) | st.lists(st.sampled_from([0, 2**32 - 1, 7]), max_size=50))
+def test_postings_are_a_stable_argsort_of_the_tokens(tokens):
+    # outside reference: numpy's stable argsort (each word's positions ascending)
+    from tracer.corpus.store import postings_positions
+    t = np.asarray(tokens, dtype="<u4")
+    got = postings_positions(t)
+    assert got.dtype == np.dtype("<i8") and np.array_equal(got, np.argsort(t, kind="stable"))

@@ -107,8 +107,13 @@ class Preparer:
 
     def __call__(self, items: list) -> Prepared:
         s = self.settings
-        use = FieldUse(s.fields, s.default_source, s.input_name)
-        outcomes, rows, lengths, content, tokens = [], [], [], [], []
+        # every name of the chunk (bounded by its size): which ones the input keeps is decided
+        # when the chunks are merged in order (FieldUse.merge)
+        use = FieldUse(s.fields, s.default_source, s.input_name, max_names=None)
+        outcomes, rows, lengths, content, local = [], [], [], [], []
+        # the rows' distinct words in order of first appearance, and each token's index among them
+        index = _FirstSeen()
+        index_of = index.__getitem__
         for item in items:
             rec = self._record(item)
             if isinstance(rec, Reject):
@@ -127,15 +132,22 @@ class Preparer:
             rows.append(tuple(row[k] for k in ROW_FIELDS))
             lengths.append(len(toks))
             content.append(content_line(row))
-            tokens += toks
-        # the distinct words in order of first appearance, and each token's index among them
-        words = list(dict.fromkeys(tokens))
-        index = {w: i for i, w in enumerate(words)}
-        local = np.fromiter(map(index.__getitem__, tokens), dtype=np.uint32, count=len(tokens))
+            local += map(index_of, toks)
+        words = list(index)
+        local = np.fromiter(local, dtype=np.uint32, count=len(local))
         lengths = np.array(lengths, dtype=np.int64)
         return Prepared(outcomes, rows, lengths, words, local, b"".join(content),
                         np.cumsum([len(c) for c in content], dtype=np.int64), use.records, use.found,
                         _bad_tokens(words, local, lengths))
+
+
+class _FirstSeen(dict):
+    """Word -> its index in order of first appearance; a word not met before gets the next one
+    (a lookup of a known word stays in C)."""
+
+    def __missing__(self, word: str) -> int:
+        i = self[word] = len(self)
+        return i
 
 
 def _bad_tokens(words: list[str], local: np.ndarray, lengths: np.ndarray) -> dict[int, str]:

@@ -275,5 +275,28 @@ def write_postings(store: Path, tokens: np.ndarray, counts: np.ndarray) -> None:
     ptr = np.zeros(len(counts) + 1, dtype="<i8")
     np.cumsum(counts, out=ptr[1:])
     ptr.tofile(store / POSTINGS_PTR_FILE)
-    # a stable sort by word keeps each word's positions ascending
-    np.argsort(tokens, kind="stable").astype("<i8").tofile(store / POSTINGS_POS_FILE)
+    postings_positions(tokens).tofile(store / POSTINGS_POS_FILE)
+
+
+def postings_positions(tokens: np.ndarray) -> np.ndarray:
+    """Every position of the corpus, ordered by its word id and, within a word, ascending.
+
+    Parameters
+    ----------
+    tokens : numpy.ndarray of uint32, shape (n_tokens,)
+
+    Returns
+    -------
+    numpy.ndarray of little-endian int64, shape (n_tokens,)
+        What a stable argsort of ``tokens`` gives. Below 2**32 tokens, each position is packed
+        with its word into one 64-bit key (word in the high half), so the keys are distinct and an
+        unstable sort of them (several times faster than a stable argsort) gives the same order.
+    """
+    n = len(tokens)
+    if n >= 1 << 32:
+        return np.argsort(tokens, kind="stable").astype("<i8")
+    keys = tokens.astype(np.uint64) << np.uint64(32)
+    keys |= np.arange(n, dtype=np.uint64)
+    keys.sort()
+    keys &= np.uint64(0xFFFFFFFF)
+    return keys.view(np.int64).astype("<i8", copy=False)
