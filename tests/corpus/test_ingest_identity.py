@@ -191,5 +191,7 @@ def test_postings_are_a_stable_argsort_of_the_tokens(tokens):
     # outside reference: numpy's stable argsort (each word's positions ascending)
     from tracer.corpus.store import postings_positions
     t = np.asarray(tokens, dtype="<u4")
-    got = postings_positions(t)
-    assert got.dtype == np.dtype("<i8") and np.array_equal(got, np.argsort(t, kind="stable"))
+    expected = np.argsort(t, kind="stable")
+    for block in (1 << 22, 7):  # one block, and positions added in several
+        got = postings_positions(t, block)
+        assert got.dtype == np.dtype("<i8") and np.array_equal(got, expected)

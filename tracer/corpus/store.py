@@ -278,12 +278,14 @@ def write_postings(store: Path, tokens: np.ndarray, counts: np.ndarray) -> None:
     postings_positions(tokens).tofile(store / POSTINGS_POS_FILE)
 
 
-def postings_positions(tokens: np.ndarray) -> np.ndarray:
+def postings_positions(tokens: np.ndarray, block: int = 1 << 22) -> np.ndarray:
     """Every position of the corpus, ordered by its word id and, within a word, ascending.
 
     Parameters
     ----------
     tokens : numpy.ndarray of uint32, shape (n_tokens,)
+    block : int
+        Positions added to the keys this many at a time (no second array of the corpus's length).
 
     Returns
     -------
@@ -295,8 +297,10 @@ def postings_positions(tokens: np.ndarray) -> np.ndarray:
     n = len(tokens)
     if n >= 1 << 32:
         return np.argsort(tokens, kind="stable").astype("<i8")
-    keys = tokens.astype(np.uint64) << np.uint64(32)
-    keys |= np.arange(n, dtype=np.uint64)
+    keys = tokens.astype(np.uint64)
+    keys <<= np.uint64(32)
+    for start in range(0, n, block):
+        keys[start:start + block] |= np.arange(start, min(start + block, n), dtype=np.uint64)
     keys.sort()
     keys &= np.uint64(0xFFFFFFFF)
     return keys.view(np.int64).astype("<i8", copy=False)
