@@ -117,10 +117,12 @@ def test_one_pool_serves_every_input_and_is_gone_after_an_error(tmp_path, lee_in
             pools.append(self)
 
     monkeypatch.setattr(ingest_module, "PreparePool", Held)
+    earlier = set(multiprocessing.active_children())  # other tests' processes, still running in the suite
+    left = lambda: set(multiprocessing.active_children()) - earlier  # noqa: E731
     docs = [t for t in lee_documents() if t.strip()]
     second = write_jsonl(tmp_path / "second.jsonl", [{"id": f"x{i}", "text": t} for i, t in enumerate(docs)])
     both = ingest(tmp_path / "both", [lee_input, second], jobs=2)
-    assert started == ["spawn"] and multiprocessing.active_children() == [] and pools[0].pool is None
+    assert started == ["spawn"] and left() == set() and pools[0].pool is None
     alone = ingest(tmp_path / "alone", [second], jobs=1)
     assert Workspace(tmp_path / "both").n_documents == both.documents_total
     assert both.documents_total == alone.documents_total + ingest(tmp_path / "first", [lee_input], jobs=1).documents_total
@@ -128,4 +130,4 @@ def test_one_pool_serves_every_input_and_is_gone_after_an_error(tmp_path, lee_in
                       + [{"id": "y0", "text": "a duplicate at the end"}])
     with pytest.raises(InputError, match=r"bad.jsonl, line \d+: duplicate id 'y0' \(--strict"):
         ingest(tmp_path / "strict", [second, bad], jobs=2, strict=True)
-    assert len(started) == 2 and multiprocessing.active_children() == [] and pools[-1].pool is None
+    assert len(started) == 2 and left() == set() and pools[-1].pool is None
