@@ -21,7 +21,12 @@ counts). ``--only NAME`` runs the ingest and the named steps or comparisons only
     .venv/bin/python tests/benchmarks/bench_scale.py --tokens 2000000 --only pmi --repeats 5
     .venv/bin/python tests/benchmarks/bench_scale.py --tokens 2000000 --only ingest-jobs --repeats 3
 
-(``ingest-jobs``: ingest with one and two tokenizing processes, wall and CPU seconds). A step that runs past ``--step-timeout`` is stopped and reported as such,
+(``ingest-jobs``: ingest with one and two worker processes, wall and CPU seconds; with
+``--baseline DIR`` also the ``tracer`` package in DIR, side by side:
+
+    git archive main tracer | tar -x -C /tmp/base
+    .venv/bin/python tests/benchmarks/bench_scale.py --tokens 2000000 --only ingest-jobs --baseline /tmp/base
+). A step that runs past ``--step-timeout`` is stopped and reported as such,
 so the benchmark always finishes. Nothing here is a pass/fail test: read the ratios.
 """
 
@@ -100,14 +105,24 @@ print(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024, time.perf_count
 """
 
 
-# one ingest in this process: wall time, CPU of the ingesting process and of its workers
+# one ingest in this process: wall time, CPU of the ingesting process and of its workers, and
+# what it stored (corpus hash, the token file's and the documents table's digests) for the identity check
 _INGEST = """
-import resource, sys, time
+import hashlib, json, resource, sqlite3, sys, time
+from pathlib import Path
 from tracer.corpus.ingest import ingest
+cpu = lambda who: (lambda r: r.ru_utime + r.ru_stime)(resource.getrusage(who))
+before = cpu(resource.RUSAGE_SELF)  # the imports above are not the ingest's
 t = time.perf_counter()
 ingest(sys.argv[1], [sys.argv[2]], jobs=int(sys.argv[3]))
-me, kids = resource.getrusage(resource.RUSAGE_SELF), resource.getrusage(resource.RUSAGE_CHILDREN)
-print(time.perf_counter() - t, me.ru_utime + me.ru_stime, kids.ru_utime + kids.ru_stime)
+wall = time.perf_counter() - t
+me, kids = cpu(resource.RUSAGE_SELF) - before, cpu(resource.RUSAGE_CHILDREN)
+store = Path(sys.argv[1]) / Path(sys.argv[1], "CURRENT").read_text().strip()
+with sqlite3.connect(store / "corpus.sqlite") as con:
+    rows = hashlib.sha256(repr(con.execute("SELECT * FROM documents ORDER BY doc_index").fetchall()).encode())
+stored = [json.loads((store / "manifest.json").read_text())["corpus_hash"], rows.hexdigest()] + [
+    hashlib.sha256((store / f).read_bytes()).hexdigest() for f in ("tokens.u32", "vocab.tsv", "doc_offsets.i64")]
+print(hashlib.sha256(" ".join(stored).encode()).hexdigest()[:16], wall, me, kids)
 """
 
 
@@ -125,6 +140,8 @@ def main() -> None:
     ap.add_argument("--only", action="append", default=[], help="run only the steps named so (repeatable; "
                     "ingest always runs)")
     ap.add_argument("--repeats", type=int, default=3, help="rounds of the side-by-side comparisons")
+    ap.add_argument("--baseline", type=Path, help="ingest-jobs: a folder holding another version's tracer "
+                    "package, timed beside this one")
     args = ap.parse_args()
 
     data = args.cache / f"realistic-{args.tokens}"
@@ -161,7 +178,7 @@ def main() -> None:
         if name == "ingest" and r["rc"] != 0:
             sys.exit("ingest failed; nothing else can run")
     if "ingest-jobs" in args.only:
-        compare_ingest_jobs(data, meta["tokens"], args.repeats)
+        compare_ingest_jobs(data, meta["tokens"], args.repeats, args.baseline)
     if probe and "pmi" not in args.skip and (not args.only or "pmi" in args.only):
         compare_pmi_tables(ws, probe, args.repeats)
         full = float(subprocess.run([PY, "-c", _PROBE_ROW, str(ws), "full", probe], capture_output=True,
@@ -172,26 +189,44 @@ def main() -> None:
               f"the probe's windows only {rows:.2f} s ({full / rows:.1f}x)")
 
 
-def compare_ingest_jobs(data: Path, tokens: int, repeats: int) -> None:
+def compare_ingest_jobs(data: Path, tokens: int, repeats: int, baseline: Path | None = None) -> None:
     """ingest with jobs 1 and 2, interleaved, each into a new workspace in a fresh process. Besides
     the wall time, the CPU seconds of the ingesting process (its part cannot be shared out) and of
     its workers: on a machine with a core free per worker the wall time nears the larger of the
-    ingesting process's CPU and the workers' CPU divided by the jobs."""
-    runs = {1: [], 2: []}
+    ingesting process's CPU and the workers' CPU divided by the jobs. With ``baseline`` (the
+    ``tracer`` package of another checkout, e.g. ``git archive main tracer | tar -x -C DIR``) the
+    same ingests run on that code too, interleaved with these, and every stored corpus (corpus hash,
+    documents table, tokens, vocabulary, offsets) must be identical across versions and jobs."""
+    versions = {"now": None} if baseline is None else {"before": baseline, "now": None}
+    runs = {(v, j): [] for v in versions for j in (1, 2)}
+    digests = set()
     for r in range(repeats):
-        for jobs in runs:
-            ws = data / f"ws-jobs-{os.getpid()}-{r}-{jobs}"
+        for v, jobs in runs:
+            ws = data / f"ws-jobs-{os.getpid()}-{r}-{v}-{jobs}"
+            env = dict(os.environ)
+            if versions[v] is not None:
+                env["PYTHONPATH"] = str(versions[v])
+            # run outside any checkout, so that the package comes from PYTHONPATH or the installed one
             out = subprocess.run([PY, "-c", _INGEST, str(ws), str(data / "corpus.jsonl.gz"), str(jobs)],
-                                 capture_output=True, text=True, check=True)
+                                 capture_output=True, text=True, check=True, env=env, cwd=data)
             subprocess.run(["rm", "-rf", str(ws)], check=True)
-            runs[jobs].append(tuple(map(float, out.stdout.split()[-3:])))
-    for jobs, v in runs.items():
-        wall, me, kids = (sorted(x[k] for x in v)[len(v) // 2] for k in range(3))
-        print(f"ingest --jobs {jobs}: {wall:.1f} s wall ({tokens / wall / 1e6:.2f}M tokens/s), CPU s: ingesting "
-              f"process {me:.1f}, workers {kids:.1f} (medians of {repeats}; walls {' '.join(f'{x[0]:.1f}' for x in v)})")
-    w1, w2 = (sorted(x[0] for x in runs[j])[repeats // 2] for j in (1, 2))
-    print(f"ingest wall time, jobs 1 / jobs 2: {w1 / w2:.2f}x (load average {os.getloadavg()[0]:.1f} on "
-          f"{os.cpu_count()} cores)")
+            digest, *values = out.stdout.split()[-4:]
+            digests.add(digest)
+            runs[v, jobs].append(tuple(map(float, values)))
+    med = {}
+    for (v, jobs), x in runs.items():
+        wall, me, kids = med[v, jobs] = tuple(sorted(y[k] for y in x)[len(x) // 2] for k in range(3))
+        print(f"ingest {v:6} --jobs {jobs}: {wall:5.2f} s wall ({tokens / wall / 1e6:.2f}M tokens/s), CPU s: "
+              f"ingesting process {me:.2f} (imports excluded), workers {kids:.2f} (medians of {repeats}; walls "
+              f"{' '.join(f'{y[0]:.2f}' for y in x)})")
+    for v in versions:
+        print(f"ingest {v}: wall jobs 1 / jobs 2 = {med[v, 1][0] / med[v, 2][0]:.2f}x")
+    if baseline is not None:
+        for jobs in (1, 2):
+            print(f"ingest --jobs {jobs}: wall before / now = {med['before', jobs][0] / med['now', jobs][0]:.2f}x, "
+                  f"ingesting process CPU before / now = {med['before', jobs][1] / med['now', jobs][1]:.2f}x")
+    print(f"stored corpora identical across {'versions and ' if baseline else ''}jobs: {len(digests) == 1} "
+          f"(load average {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores)")
 
 
 def compare_pmi_tables(ws: Path, probe: str, repeats: int) -> None:

@@ -1,6 +1,8 @@
 import unicodedata
 
 import pytest
+from hypothesis import given
+from hypothesis import strategies as st
 
 from tests.conftest import lee_documents
 from tracer.corpus.tokenize import (DEFAULT_PATTERN, LEGACY_PATTERN, Tokenizer, TokenizerSettings,
@@ -87,3 +89,32 @@ def test_spans_point_at_the_original_text():
     spans = tok.spans(text)
     assert [text[a:b] for a, b in spans] == ["Die", "STRASSE", "und", "die", "Straße", "İstanbul", "don’t"]
     assert tok.tokenize(text) == ["die", "strasse", "und", "die", "strasse", "istanbul", "don't"]
+
+
+def test_both_engines_agree_on_every_ascii_word_character():
+    # the ASCII fast path of the built-in patterns rests on this: for every ASCII character the
+    # regex engine with NLTK's flags and the standard engine with re.ASCII agree on \w
+    import re
+    import regex
+    for c in map(chr, range(128)):
+        assert bool(regex.fullmatch(r"\w", c, regex.UNICODE | regex.MULTILINE | regex.DOTALL)) == bool(
+            re.fullmatch(r"\w", c, re.ASCII)), repr(c)
+
+
+@given(st.text(alphabet=st.characters(max_codepoint=127), max_size=200)
+       | st.lists(st.sampled_from(["well-known", "o'brien", "a_b", "x--y", "-", "'", "9-5", " ", "\n", "q'"]))
+       .map("".join))
+@pytest.mark.parametrize("pattern", [DEFAULT_PATTERN, LEGACY_PATTERN])
+def test_ascii_text_gives_the_tokens_of_nltks_tokenizer(pattern, text):
+    # outside reference: NLTK's RegexpTokenizer on the normalised text, as above, for ASCII texts,
+    # which the built-in patterns tokenize with the standard engine
+    from nltk.tokenize import RegexpTokenizer
+    settings = TokenizerSettings(pattern=pattern)
+    assert Tokenizer(settings).tokenize(text) == RegexpTokenizer(pattern).tokenize(normalize_text(text, settings))
+
+
+def test_text_that_is_not_ascii_keeps_the_regex_engine():
+    # a combining accent is a word character for the regex engine, not for the standard one:
+    # without normalisation "e" + U+0301 is one token, not "e" alone
+    tok = Tokenizer(TokenizerSettings(normalization="none"))
+    assert tok.tokenize("cafe\u0301 x") == ["cafe\u0301", "x"]

@@ -1,4 +1,4 @@
-"""The tokenize step of ingest: text to tokens to vocabulary ids, appended to the token file.
+"""The encode step of ingest: a chunk's tokens to vocabulary ids, appended to the token file.
 
 Ids are given in order of first appearance and never change, so appending
 documents keeps every earlier id valid. Tokens are buffered and written in
@@ -7,93 +7,70 @@ blocks of about a million, so a corpus of any size streams through.
 
 from __future__ import annotations
 
+import itertools
 from typing import BinaryIO
 
 import numpy as np
 
 from tracer.errors import InputError
-from tracer.corpus.tokenize import Tokenizer, TokenizerSettings
 
 _FLUSH_TOKENS = 1 << 20
 
 
-class ChunkWords:
-    """The distinct words of a chunk of records tokenized elsewhere, in order of first appearance,
-    and (filled as the chunk is stored) each one's id in the store's vocabulary (-1: none yet)."""
-
-    __slots__ = ("words", "ids")
-
-    def __init__(self, words: list[str]):
-        self.words = words
-        self.ids = np.full(len(words), -1, dtype=np.int64)
-
-
-class LocalTokens:
-    """One record's tokens as indices into its chunk's :class:`ChunkWords`, shape (n_tokens,)."""
-
-    __slots__ = ("local", "chunk")
-
-    def __init__(self, local: np.ndarray, chunk: ChunkWords):
-        self.local, self.chunk = local, chunk
-
-    def __len__(self) -> int:
-        return len(self.local)
-
-
 class TokenEncoder:
-    """Tokenize documents and append their ids (little-endian uint32) to an open token file.
+    """Give tokens their ids and append them (little-endian uint32) to an open token file.
 
     Parameters
     ----------
-    settings : TokenizerSettings
     words : list of str
         The vocabulary so far (of the store being appended to), extended in place.
     out : binary file
         The token file, open for appending.
     """
 
-    def __init__(self, settings: TokenizerSettings, words: list[str], out: BinaryIO):
-        self.tokenizer = Tokenizer(settings)
+    def __init__(self, words: list[str], out: BinaryIO):
         self.words = words
         self.word_ids = {w: i for i, w in enumerate(words)}
         self.out = out
         self._buffer: list[np.ndarray] = []
         self._buffered = 0
 
-    def tokenize(self, text: str) -> list[str]:
-        return self.tokenizer.tokenize(text)
-
-    def _new_id(self, s: str) -> int:
-        if "\t" in s or "\n" in s:
+    def _new_ids(self, new: list[str]) -> range:
+        """Give words not in the vocabulary the next ids, in the order given."""
+        bad = next((s for s in new if "\t" in s or "\n" in s), None)
+        if bad is not None:  # ingest stops before (tracer.corpus.prepare finds them); a library caller may not
             raise InputError(f"the tokenizer pattern produced a token with a tab or "
-                             f"newline ({s!r}); use a pattern that cannot")
-        i = self.word_ids[s] = len(self.words)
-        self.words.append(s)
-        return i
+                             f"newline ({bad!r}); use a pattern that cannot")
+        ids = range(len(self.words), len(self.words) + len(new))
+        self.words.extend(new)
+        self.word_ids.update(zip(new, ids))
+        return ids
 
-    def _append_local(self, tokens: LocalTokens) -> np.ndarray:
-        """Ids of a record tokenized elsewhere. The chunk's words not met before in this chunk are
-        looked up (or given the next ids) in the order they first appear in this record, which is the
-        order a token-by-token pass would meet them: the ids are the same."""
-        chunk = tokens.chunk
-        unseen = tokens.local[chunk.ids[tokens.local] < 0]
-        if len(unseen):
-            words, first = np.unique(unseen, return_index=True)
-            order = words[np.argsort(first)].tolist()
-            get, new = self.word_ids.get, self._new_id
-            found = [get(chunk.words[w]) for w in order]
-            chunk.ids[order] = [new(chunk.words[w]) if i is None else i for w, i in zip(order, found)]
-        return chunk.ids[tokens.local].astype(np.uint32)
+    def append(self, words: list[str], local: np.ndarray, *, in_order: bool = False) -> int:
+        """Append tokens given as indices into ``words`` (a chunk's distinct words); return their count.
 
-    def append(self, tokens: list[str] | LocalTokens) -> int:
-        """Give each token its id (new words get the next ids) and buffer them; return the count."""
-        if isinstance(tokens, LocalTokens):
-            return self._buffer_ids(self._append_local(tokens))
-        ids = np.empty(len(tokens), dtype=np.uint32)
-        for k, s in enumerate(tokens):
-            i = self.word_ids.get(s)
-            ids[k] = self._new_id(s) if i is None else i
-        return self._buffer_ids(ids)
+        Parameters
+        ----------
+        words : list of str, length n_words
+        local : numpy.ndarray of uint32, shape (n_tokens,)
+            The tokens in order, as indices into ``words``.
+        in_order : bool
+            ``words`` are in the order they first appear in ``local`` (when ``local`` holds every
+            token of the chunk), so the first appearances need not be looked for.
+
+        Words not in the vocabulary get the next ids in the order they first appear in
+        ``local``, the order a token-by-token pass would meet them, so the ids are the same.
+        """
+        get = self.word_ids.get
+        ids = np.fromiter(map(get, words, itertools.repeat(-1)), dtype=np.int64, count=len(words))
+        if in_order:
+            order = np.flatnonzero(ids < 0)
+        else:
+            new, first = np.unique(local[ids[local] < 0], return_index=True)
+            order = new[np.argsort(first)]
+        if len(order):
+            ids[order] = self._new_ids([words[w] for w in order.tolist()])
+        return self._buffer_ids(ids[local].astype(np.uint32))
 
     def _buffer_ids(self, ids: np.ndarray) -> int:
         self._buffer.append(ids)

@@ -21,17 +21,18 @@ import os
 from pathlib import Path
 from typing import Iterable
 
+import numpy as np
 from tqdm.auto import tqdm
 
 from tracer.errors import InputError, WorkspaceError
 from tracer.versions import package_versions
 from tracer.corpus.lock import workspace_lock
-from tracer.corpus.readers import (RawRecord, ReadLimits, Reject, detect_format, read_records, shown_path,
-                                   txt_entries)
+from tracer.corpus.prepare import PrepareSettings, Prepared
+from tracer.corpus.prepare_pool import PreparePool
+from tracer.corpus.readers import ReadLimits, Reject, detect_format, read_items, shown_path, txt_entries
 from tracer.corpus.store import StoreWriter, remove_abandoned
 from tracer.corpus.tokenize import ENGINE, TokenizerSettings
-from tracer.corpus.tokenize_pool import tokenized
-from tracer.corpus.validate import FieldMap, FieldUse, RecordValidator, reason_kind
+from tracer.corpus.validate import FieldMap, FieldUse, reason_kind
 from tracer.corpus.workspace import Workspace, mapping_text
 
 __all__ = ["FieldMap", "IngestSummary", "InputSummary", "corpus_hash", "hash_input", "ingest"]
@@ -122,10 +123,9 @@ class _Run:
     """What one ingest carries from input to input."""
 
     writer: StoreWriter
-    validate: RecordValidator
     strict: bool
     limits: ReadLimits = ReadLimits()
-    jobs: int = 1
+    pool: PreparePool = dataclasses.field(default_factory=lambda: PreparePool(1))
     reasons: dict[str, int] = dataclasses.field(default_factory=dict)
     first_reject: Reject | None = None
 
@@ -176,8 +176,9 @@ def ingest(workspace: str | os.PathLike, inputs: Iterable[str | os.PathLike], *,
     limits : ReadLimits
         Bounds on one record (size, line length, nesting, gzip ratio); beyond them a reject.
     jobs : int, optional
-        Worker processes that tokenize (default: the cores available; 1: in this process).
-        The stored corpus is the same for any number (:mod:`tracer.corpus.tokenize_pool`).
+        Worker processes that parse, validate and tokenize the records (default: the cores
+        available; 1: all in this process). The stored corpus is the same for any number
+        (:mod:`tracer.corpus.prepare_pool`).
 
     Returns
     -------
@@ -256,9 +257,9 @@ def _ingest_locked(ws_path: Path, inputs: list[Path], fields: FieldMap, tokenize
     writer = StoreWriter(ws_path, old, settings, previous=current_name)
     committed = False
     try:
-        run = _Run(writer, RecordValidator(fields, default_source), strict, limits, jobs)
+        run = _Run(writer, strict, limits, PreparePool(jobs))
         summaries = []
-        with tqdm(desc="ingest", unit=" docs", disable=not progress, leave=False) as bar:
+        with run.pool, tqdm(desc="ingest", unit=" docs", disable=not progress, leave=False) as bar:
             for path, sha in zip(inputs, input_hashes):
                 if sha in known:
                     summaries.append(InputSummary(shown_path(path), sha, "already ingested", 0, 0, 0, 0))
@@ -285,56 +286,59 @@ def _ingest_locked(ws_path: Path, inputs: list[Path], fields: FieldMap, tokenize
 def _read_input(run: _Run, path: Path, sha: str, input_format: str | None, fields: FieldMap,
                 default_source: str | None, bar) -> tuple[InputSummary, dict]:
     """Read, validate, tokenize and store the records of one input; its summary and manifest entry."""
-    use = FieldUse(fields, default_source, shown_path(path))
+    name = shown_path(path)
+    use = FieldUse(fields, default_source, name)
     content = hashlib.sha256()
     n_rec = n_doc = n_tok = n_rej = 0
-    records = _validated(run, read_records(path, input_format, run.limits), use)
-    for (rec, row), tokens in tokenized(records, run.writer.encoder.tokenizer.settings, run.jobs):
-        n_rec += 1
-        stored = _store_record(run, rec, row, tokens, content)
-        if isinstance(stored, Reject):
-            run.reject(stored)
-            n_rej += 1
+    settings = PrepareSettings(run.writer.settings, fields, default_source, run.limits, name)
+    for chunk in run.pool.prepared(read_items(path, input_format, run.limits), settings):
+        use.merge(chunk.records, chunk.found)
+        stored = _checked_rows(run, chunk)
+        n_rec += len(chunk.outcomes)
+        n_rej += len(chunk.outcomes) - len(stored)
+        if not stored:
             continue
-        n_doc += 1
-        n_tok += stored
-        bar.update()
+        rows, lengths, local = chunk.rows, chunk.lengths, chunk.local
+        if len(stored) < len(rows):
+            keep = np.zeros(len(rows), dtype=bool)
+            keep[stored] = True
+            rows, lengths, local = [rows[k] for k in stored], lengths[keep], local[np.repeat(keep, lengths)]
+            lines, ends = memoryview(chunk.content), chunk.content_ends
+            for k in stored:
+                content.update(lines[ends[k - 1] if k else 0:ends[k]])
+        else:
+            content.update(chunk.content)
+        run.writer.add_rows(rows, lengths, chunk.words, local, whole=len(rows) == len(chunk.rows))
+        n_doc += len(rows)
+        n_tok += int(lengths.sum())
+        bar.update(len(rows))
     warnings = tuple(use.warnings())
-    entry = {"path": shown_path(path), "sha256": sha, "format": input_format or detect_format(path),
+    entry = {"path": name, "sha256": sha, "format": input_format or detect_format(path),
              "records": n_rec, "documents": n_doc, "tokens": n_tok, "rejects": n_rej,
              "fields": fields.to_dict(), "default_source": default_source, "fields_found": dict(use.found),
              "field_warnings": list(warnings), "content_sha256": content.hexdigest(),
              "ingested_at": dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds")}
-    return InputSummary(shown_path(path), sha, "added", n_rec, n_doc, n_tok, n_rej, use.fields_found(), warnings), entry
+    return InputSummary(name, sha, "added", n_rec, n_doc, n_tok, n_rej, use.fields_found(), warnings), entry
 
 
-def _validated(run: _Run, records, use: FieldUse):
-    """``((record, row or reject), text to tokenize or None)`` for each record read, in order."""
-    for rec in records:
-        if isinstance(rec, Reject):
-            yield (rec, rec), None
-            continue
-        use.add(rec)
-        row = run.validate(rec)
-        if isinstance(row, str):
-            yield (rec, Reject(rec.file, rec.line, row, "")), None
-        else:
-            yield (rec, row), row["text"]
-
-
-def _store_record(run: _Run, rec: RawRecord | Reject, row: dict | Reject, tokens: list[str] | None,
-                  content) -> int | Reject:
-    """One validated and tokenized record into the store: its token count, or why it was rejected."""
-    if isinstance(row, Reject):
-        return row
-    if not tokens:
-        return Reject(rec.file, rec.line, "the text has no tokens", "")
-    taken = run.writer.add(row, tokens)
-    if taken:
-        return Reject(rec.file, rec.line, taken, "")
-    doc = [row["doc_id"], row["source"], row["time"], row["title"], row["text"]]
-    content.update(json.dumps(doc, ensure_ascii=False).encode("utf-8", "surrogatepass") + b"\n")
-    return len(tokens)
+def _checked_rows(run: _Run, chunk: Prepared) -> list[int]:
+    """The rows of a chunk to store; every other item is rejected here, in order, as one process
+    storing record by record would reject it (``--strict`` stops at the first)."""
+    taken = run.writer.duplicates([r[0] for r in chunk.rows])
+    stored, k = [], 0
+    for out in chunk.outcomes:
+        if out is None:
+            if taken[k] is None:
+                if k in chunk.bad_tokens:
+                    raise InputError(f"the tokenizer pattern produced a token with a tab or newline "
+                                     f"({chunk.bad_tokens[k]!r}); use a pattern that cannot")
+                stored.append(k)
+            else:
+                out = Reject(*Prepared.row_place(chunk.rows[k]), taken[k], "")
+            k += 1
+        if out is not None:
+            run.reject(out)
+    return stored
 
 
 def _manifest(settings: TokenizerSettings, inputs: list[dict], writer: StoreWriter) -> dict:

@@ -31,8 +31,8 @@ from typing import Iterator
 from tracer.corpus.streams import ReadLimits, StopFile, chunks, csv_line_ends_in_quotes, lines
 from tracer.errors import InputError
 
-__all__ = ["FORMATS", "RawRecord", "ReadLimits", "Reject", "detect_format", "read_records", "shown_path",
-           "txt_entries"]
+__all__ = ["FORMATS", "RawRecord", "ReadLimits", "Reject", "detect_format", "json_record", "jsonl_lines",
+           "read_items", "read_records", "shown_path", "txt_entries"]
 
 FORMATS = ("jsonl", "csv", "txt", "parquet")
 
@@ -116,7 +116,8 @@ def _value_problem(obj, limits: ReadLimits) -> str | None:
     return None
 
 
-def _json_record(raw: bytes, name: str, line_no: int, limits: ReadLimits) -> RawRecord | Reject:
+def json_record(raw: bytes, name: str, line_no: int, limits: ReadLimits) -> RawRecord | Reject:
+    """One line of a JSONL file as a record, or why it is rejected."""
     try:
         line = raw.decode("utf-8")
     except UnicodeDecodeError as e:
@@ -145,6 +146,14 @@ def _too_long(limits: ReadLimits) -> str:
 
 def read_jsonl(path: Path, limits: ReadLimits = ReadLimits()) -> Iterator[RawRecord | Reject]:
     name = shown_path(path)
+    for item in jsonl_lines(path, limits):
+        yield item if isinstance(item, Reject) else json_record(item[1], name, item[0], limits)
+
+
+def jsonl_lines(path: Path, limits: ReadLimits = ReadLimits()) -> Iterator[tuple[int, bytes] | Reject]:
+    """The first half of :func:`read_jsonl`: ``(line number, bytes)`` of each non-blank line, or a
+    reject (a line over the limit, a file that stops); :func:`json_record` makes the record."""
+    name = shown_path(path)
     max_line = min(limits.max_line_bytes, limits.max_record_bytes)
     line_no = 0
     try:
@@ -152,7 +161,7 @@ def read_jsonl(path: Path, limits: ReadLimits = ReadLimits()) -> Iterator[RawRec
             if raw is None:
                 yield Reject(name, line_no, _too_long(dataclasses.replace(limits, max_line_bytes=max_line)), "")
             elif raw.strip():
-                yield _json_record(raw, name, line_no, limits)
+                yield line_no, raw
     except StopFile as e:
         yield Reject(name, line_no + 1, str(e), "")
 
@@ -370,6 +379,20 @@ _READERS = {"jsonl": read_jsonl, "csv": read_csv, "txt": read_txt, "parquet": re
 def read_records(path: str | os.PathLike, fmt: str | None = None,
                  limits: ReadLimits = ReadLimits()) -> Iterator[RawRecord | Reject]:
     """Yield the records of one input, whatever its format."""
+    path, fmt = _checked(path, fmt)
+    return _READERS[fmt](path, limits)
+
+
+def read_items(path: str | os.PathLike, fmt: str | None = None,
+               limits: ReadLimits = ReadLimits()) -> Iterator[RawRecord | Reject | tuple[int, bytes]]:
+    """:func:`read_records`, except that a JSONL input gives its lines unparsed (:func:`jsonl_lines`),
+    so that the parsing can happen elsewhere (ingest's worker processes): records and rejects in the
+    same order once each line goes through :func:`json_record`."""
+    path, fmt = _checked(path, fmt)
+    return jsonl_lines(path, limits) if fmt == "jsonl" else _READERS[fmt](path, limits)
+
+
+def _checked(path: str | os.PathLike, fmt: str | None) -> tuple[Path, str]:
     path = Path(path)
     if not path.exists():
         raise InputError(f"{shown_path(path)}: no such file or folder")
@@ -377,4 +400,4 @@ def read_records(path: str | os.PathLike, fmt: str | None = None,
         fmt = detect_format(path)
     if fmt not in _READERS:
         raise InputError(f"unknown input format {fmt!r}; use one of {', '.join(FORMATS)}")
-    return _READERS[fmt](path, limits)
+    return path, fmt

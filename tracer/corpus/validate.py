@@ -94,10 +94,12 @@ class RecordValidator:
 class FieldUse:
     """How many records of one input have each field, and what that means for the mapping."""
 
-    def __init__(self, fields: FieldMap, default_source: str | None, input_name: str):
+    def __init__(self, fields: FieldMap, default_source: str | None, input_name: str, *,
+                 max_names: int | None = _MAX_FIELD_NAMES):
         self.f = fields
         self.default_source = default_source
         self.input_name = input_name
+        self.max_names = max_names if max_names is not None else float("inf")
         self.records = 0
         self.found: dict[str, int] = {}
 
@@ -106,8 +108,22 @@ class FieldUse:
         for k, v in rec.fields.items():
             if v is None or v == "":
                 continue
-            if k in self.found or len(self.found) < _MAX_FIELD_NAMES:
+            if k in self.found or len(self.found) < self.max_names:
                 self.found[k] = self.found.get(k, 0) + 1
+
+    def merge(self, records: int, found: dict[str, int]) -> None:
+        """Add the counts of a later run of records, counted by a :class:`FieldUse` of their own
+        made with ``max_names=None``.
+
+        Gives the counts :meth:`add` gives record by record: the names kept are the first
+        ``max_names`` by first appearance (``found`` lists its names in that order), each with
+        every record that has it. The run's own count must keep every name: one that is not
+        among the run's first ``max_names`` may be kept here already, from an earlier run.
+        """
+        self.records += records
+        for k, c in found.items():
+            if k in self.found or len(self.found) < self.max_names:
+                self.found[k] = self.found.get(k, 0) + c
 
     def _present(self, *names: str) -> int:
         if len(names) == 1:

@@ -1,4 +1,4 @@
-"""Tokenizing on worker processes stores the corpus the serial path stores, and stays crash-safe."""
+"""Preparing records on worker processes stores the corpus the serial path stores, and stays crash-safe."""
 
 import multiprocessing
 import os
@@ -8,11 +8,13 @@ import sqlite3
 import numpy as np
 import pytest
 
-import tracer.corpus.tokenize_pool as tokenize_pool
+import tracer.corpus.prepare_pool as prepare_pool
 from tests.conftest import lee_documents, write_jsonl
+import tracer.corpus.ingest as ingest_module
 from tracer.corpus.ingest import ingest
 from tracer.corpus.tokenize import TokenizerSettings
 from tracer.corpus.workspace import Workspace
+from tracer.errors import InputError
 
 FORK = multiprocessing.get_context("fork")
 
@@ -42,10 +44,10 @@ def stored(ws_path):
 @pytest.mark.parametrize("settings", [None, TokenizerSettings(lowercase=False, normalization="NFC"),
                                       TokenizerSettings(case_rule="turkish")])
 def test_workers_store_what_the_serial_path_stores(tmp_path, lee_input, monkeypatch, settings):
-    monkeypatch.setattr(tokenize_pool, "CHUNK_CHARS", 5_000)  # about 30 chunks: the workers start
+    monkeypatch.setattr(prepare_pool, "CHUNK_CHARS", 5_000)  # about 30 chunks: the workers start
     started = []
-    real = tokenize_pool.multiprocessing.get_context
-    monkeypatch.setattr(tokenize_pool.multiprocessing, "get_context", lambda m: started.append(m) or real(m))
+    real = prepare_pool.multiprocessing.get_context
+    monkeypatch.setattr(prepare_pool.multiprocessing, "get_context", lambda m: started.append(m) or real(m))
     serial = ingest(tmp_path / "one", [lee_input], tokenizer=settings, jobs=1)
     assert started == []
     parallel = ingest(tmp_path / "two", [lee_input], tokenizer=settings, jobs=2)
@@ -60,13 +62,13 @@ def test_workers_store_what_the_serial_path_stores(tmp_path, lee_input, monkeypa
 
 
 def test_one_chunk_never_starts_workers(tmp_path, small_jsonl, monkeypatch):
-    monkeypatch.setattr(tokenize_pool.multiprocessing, "get_context",
+    monkeypatch.setattr(prepare_pool.multiprocessing, "get_context",
                         lambda m: pytest.fail("workers started for a small input"))
     assert ingest(tmp_path / "ws", [small_jsonl], jobs=4).documents_total == 4
 
 
 def _ingest_killed_while_tokenizing(ws, path):
-    tokenize_pool.CHUNK_CHARS = 5_000  # the parent's chunks (the workers need no setting)
+    prepare_pool.CHUNK_CHARS = 5_000  # the parent's chunks (the workers need no setting)
     os.environ["TRACER_TEST_KILL_AT"] = "tokenizing"
     ingest(ws, [path], jobs=2)
 
@@ -92,9 +94,40 @@ def test_workers_print_nothing_on_the_terminal(capfd):
     # (found by the outside probe's kill trials): workers are started with stderr on /dev/null
     import multiprocessing
     import sys
-    with tokenize_pool.children_without_stderr():
+    with prepare_pool.children_without_stderr():
         p = multiprocessing.get_context("spawn").Process(target=os.write, args=(2, b"Traceback from a worker\n"))
         p.start()
     p.join()
     print("the parent's own line", file=sys.stderr)
     assert p.exitcode == 0 and capfd.readouterr().err == "the parent's own line\n"
+
+
+def test_one_pool_serves_every_input_and_is_gone_after_an_error(tmp_path, lee_input, monkeypatch):
+    # the workers started for the first input prepare the second one too (its own settings reach
+    # them with each chunk), and a --strict stop in the second input terminates them
+    monkeypatch.setattr(prepare_pool, "CHUNK_CHARS", 5_000)
+    started = []
+    real = prepare_pool.multiprocessing.get_context
+    monkeypatch.setattr(prepare_pool.multiprocessing, "get_context", lambda m: started.append(m) or real(m))
+    pools = []  # the test holds each pool, so that only the ingest's own cleanup can end the workers
+
+    class Held(prepare_pool.PreparePool):
+        def __init__(self, jobs):
+            super().__init__(jobs)
+            pools.append(self)
+
+    monkeypatch.setattr(ingest_module, "PreparePool", Held)
+    earlier = set(multiprocessing.active_children())  # other tests' processes, still running in the suite
+    left = lambda: set(multiprocessing.active_children()) - earlier  # noqa: E731
+    docs = [t for t in lee_documents() if t.strip()]
+    second = write_jsonl(tmp_path / "second.jsonl", [{"id": f"x{i}", "text": t} for i, t in enumerate(docs)])
+    both = ingest(tmp_path / "both", [lee_input, second], jobs=2)
+    assert started == ["spawn"] and left() == set() and pools[0].pool is None
+    alone = ingest(tmp_path / "alone", [second], jobs=1)
+    assert Workspace(tmp_path / "both").n_documents == both.documents_total
+    assert both.documents_total == alone.documents_total + ingest(tmp_path / "first", [lee_input], jobs=1).documents_total
+    bad = write_jsonl(tmp_path / "bad.jsonl", [{"id": f"y{i}", "text": t} for i, t in enumerate(docs[:-1])]
+                      + [{"id": "y0", "text": "a duplicate at the end"}])
+    with pytest.raises(InputError, match=r"bad.jsonl, line \d+: duplicate id 'y0' \(--strict"):
+        ingest(tmp_path / "strict", [second, bad], jobs=2, strict=True)
+    assert len(started) == 2 and left() == set() and pools[-1].pool is None
