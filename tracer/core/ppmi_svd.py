@@ -19,6 +19,7 @@ from threadpoolctl import ThreadpoolController
 
 from tracer.core import memory
 from tracer.core.pmi import DEFAULT_ALPHA, ppmi_matrix
+from tracer.core.sparse_products import CsrOperator
 from tracer.errors import SettingError
 
 SVD_FIX = "lower --dim, or raise --min-count / set --max-vocab (fewer words)"
@@ -99,8 +100,26 @@ def fix_signs(u: np.ndarray, vt: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return u * flip, vt * flip[:, None]
 
 
-def truncated_svd(matrix, k: int, seed: int = 0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def truncated_svd(matrix, k: int, seed: int = 0, *, threads: int | None = None, ncv: int | None = None,
+                  products: str = "threads") -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """The k largest singular triplets, in descending order, with fixed signs.
+
+    ARPACK (scipy's ``svds``) on ``A^T A``; its sparse products run on ``threads`` threads
+    (:class:`tracer.core.sparse_products.CsrOperator`; default: 1 in a replicate worker
+    process, else the cores this process may use). They equal scipy's own products bit for
+    bit, so the result does not depend on the number of threads, and ``products="scipy"``
+    (scipy's single-threaded products on the CSR matrix, for comparison) gives the same arrays.
+
+    Parameters
+    ----------
+    matrix : scipy sparse matrix, shape (n_rows, n_cols)
+    k : int
+    seed : int
+        Seeds ARPACK's start vector.
+    threads : int, optional
+    ncv : int, optional
+        ARPACK's number of Lanczos vectors (scipy's default ``max(2k + 1, 20)``).
+    products : {"threads", "scipy"}
 
     Returns
     -------
@@ -113,8 +132,10 @@ def truncated_svd(matrix, k: int, seed: int = 0) -> tuple[np.ndarray, np.ndarray
         raise SettingError(f"dim {k} is too large for a vocabulary of {n} words; use a dim below {n}")
     rng = np.random.default_rng(seed)
     v0 = rng.standard_normal(n)
+    csr = sp.csr_array(matrix, dtype=np.float64)
+    operator = csr if products == "scipy" else CsrOperator(csr, threads=threads)
     with blas_threads_for(matrix.shape[0]):
-        u, s, vt = svds(sp.csr_array(matrix, dtype=np.float64), k=k, v0=v0, solver="arpack")
+        u, s, vt = svds(operator, k=k, v0=v0, ncv=ncv, solver="arpack")
     order = np.argsort(-s, kind="stable")
     u, s, vt = u[:, order], s[order], vt[order]
     u, vt = fix_signs(u, vt)
