@@ -1,0 +1,127 @@
+#!/usr/bin/env python3
+"""The full model's ARPACK SVD with scipy's sparse products against the threaded ones, side by side.
+
+    .venv/bin/python tests/benchmarks/bench_svd_threads.py --tokens 2000000 6000000
+    .venv/bin/python tests/benchmarks/bench_svd_threads.py --tokens 6000000 --variants scipy t2
+
+For each size, generates a news-like corpus (``gen_realistic_corpus.py``: invented words, Zipf
+vocabulary, a planted test and a control) into ``--data`` unless it is there, ingests and counts
+it (window 5, min count 5), then runs ``truncated_svd`` on the same PPMI matrix (dim 100) once per
+variant, in this order:
+
+    scipy      scipy's single-threaded products on the CSR matrix (the old default)
+    t1, t2     tracer.core.sparse_products.CsrOperator on 1 and 2 threads
+    f32        the operator on 2 threads with float32 values
+    ncv3k      the operator on 2 threads with ARPACK's ncv = 3 dim (default: 2 dim + 1)
+
+and prints wall time, the ratio to ``scipy``, the number of operator products, the 1-minute load
+average at the start and end (the machine may be shared), whether u and s equal scipy's bit for
+bit (else the largest differences), and the WEAT effect size d and gap of both tests with their
+differences from ``scipy``'s (tolerance: |delta d| <= 0.02, |delta gap| <= 0.002).
+Nothing here is a pass/fail test: read the figures.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+HERE = Path(__file__).resolve().parent
+VARIANTS = {"scipy": {"products": "scipy"}, "t1": {"threads": 1}, "t2": {"threads": 2},
+            "f32": {"threads": 2, "values": np.float32}, "ncv3k": {"threads": 2, "ncv": 3}}
+
+
+def corpus(data: Path, tokens: int, vocab: int) -> Path:
+    out = data / f"svd-{tokens}-{vocab}"
+    if not (out / "meta.json").is_file():
+        subprocess.run([sys.executable, str(HERE / "gen_realistic_corpus.py"), "--outdir", str(out),
+                        "--tokens", str(tokens), "--vocab", str(vocab)], check=True, stdout=subprocess.DEVNULL)
+    return out
+
+
+def ppmi_of(out: Path):
+    from tracer.core.counting import CountSettings
+    from tracer.core.pmi import ppmi_matrix
+    from tracer.corpus.ingest import ingest
+    from tracer.corpus.workspace import Workspace
+    from tracer.provenance.counts import count_slice
+    if not (out / "ws").is_dir():
+        ingest(out / "ws", [out / "corpus.jsonl.gz"], jobs=1)
+    ws = Workspace(out / "ws")
+    c = count_slice(ws, np.ones(ws.n_documents), CountSettings())
+    return ppmi_matrix(c.matrix), c.vocab.index
+
+
+def scores(u, s, index, tests):
+    from tracer.core.association import unit_rows, weat
+    unit = unit_rows(u * s ** 0.5)
+    return {name: weat(unit, index, t, with_p=False) for name, t in tests.items()}
+
+
+def run(m, dim: int, spec: dict):
+    """truncated_svd with one variant's settings; also the number of operator products."""
+    import tracer.core.ppmi_svd as ppmi_svd
+    from tracer.core.sparse_products import CsrOperator
+    calls = [0]
+
+    class Counting(CsrOperator):
+        def __init__(self, matrix, threads=None):
+            super().__init__(matrix, threads=threads, values=spec.get("values", np.float64))
+
+        def _matvec(self, x):
+            calls[0] += 1
+            return super()._matvec(x)
+
+        def _rmatvec(self, x):
+            calls[0] += 1
+            return super()._rmatvec(x)
+
+    ppmi_svd.CsrOperator = Counting
+    try:
+        ncv = spec["ncv"] * dim if "ncv" in spec else None
+        t = time.perf_counter()
+        u, s, _ = ppmi_svd.truncated_svd(m, dim, threads=spec.get("threads"), ncv=ncv,
+                                         products=spec.get("products", "threads"))
+        return u, s, time.perf_counter() - t, calls[0]
+    finally:
+        ppmi_svd.CsrOperator = CsrOperator
+
+
+def main() -> None:
+    from tracer.provenance.specs import load_tests
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--tokens", type=int, nargs="+", default=[2_000_000])
+    ap.add_argument("--vocab", type=int, default=80_000, help="Zipf types of the generator")
+    ap.add_argument("--data", type=Path, default=Path("bench-data"))
+    ap.add_argument("--dim", type=int, default=100)
+    ap.add_argument("--variants", nargs="+", default=list(VARIANTS), choices=list(VARIANTS))
+    args = ap.parse_args()
+    for tokens in args.tokens:
+        out = corpus(args.data, tokens, args.vocab)
+        m, index = ppmi_of(out)
+        tests = load_tests(out / "tests.toml")
+        print(f"\n{tokens:,} tokens: {m.shape[0]:,} words, {m.nnz:,} nonzeros, dim {args.dim}", flush=True)
+        ref = None
+        for name in args.variants:
+            load0 = os.getloadavg()[0]
+            u, s, secs, calls = run(m, args.dim, VARIANTS[name])
+            got = scores(u, s, index, tests)
+            if ref is None:
+                ref = (u, s, secs, got)
+            same = np.array_equal(u, ref[0]) and np.array_equal(s, ref[1])
+            diff = "bit-identical" if same else (f"max|du*s| {np.abs(u * s - ref[0] * ref[1]).max():.1e} "
+                                                 f"max rel ds {np.max(np.abs(s - ref[1]) / ref[1]):.1e}")
+            line = "  ".join(f"{n}: d {r.effect_size:.4f} |dd| {abs(r.effect_size - ref[3][n].effect_size):.4f} "
+                             f"gap {r.gap:.5f} |dgap| {abs(r.gap - ref[3][n].gap):.5f}" for n, r in got.items())
+            print(f"  {name:6} {secs:7.1f} s  x{ref[2] / secs:4.2f}  {calls:5d} products  "
+                  f"load {load0:.1f}-{os.getloadavg()[0]:.1f}  {diff}  {line}", flush=True)
+
+
+if __name__ == "__main__":
+    main()
