@@ -10,13 +10,18 @@ it (window 5, min count 5), then runs ``truncated_svd`` on the same PPMI matrix 
 variant, in this order:
 
     scipy      scipy's single-threaded products on the CSR matrix (the old default)
-    t1, t2     tracer.core.sparse_products.CsrOperator on 1 and 2 threads
+    gram       A^T A x in one pass over A (CsrOperator.gram; the default)
+    gram32     the same with float32 values
+    gramblas1  the same, ARPACK's dense (BLAS) work on 1 thread
+    t1, t2     A x and A^T y as separate row-parallel products (CsrOperator) on 1 and 2 threads
     f32        the operator on 2 threads with float32 values
     ncv3k      the operator on 2 threads with ARPACK's ncv = 3 dim (default: 2 dim + 1)
+    t2blas1    the operator on 2 threads, ARPACK's dense (BLAS) work on 1 thread
+    t1blas1    the operator on 1 thread, BLAS on 1 thread (what one replicate worker runs)
 
 and prints wall time, the ratio to ``scipy``, the number of operator products, the 1-minute load
 average at the start and end (the machine may be shared), whether u and s equal scipy's bit for
-bit (else the largest differences), and the WEAT effect size d and gap of both tests with their
+bit (else the largest differences), the time spent in the operator's products (scipy's own are not timed), and the WEAT effect size d and gap of both tests with their
 differences from ``scipy``'s (tolerance: |delta d| <= 0.02, |delta gap| <= 0.002).
 Nothing here is a pass/fail test: read the figures.
 """
@@ -28,13 +33,18 @@ import os
 import subprocess
 import sys
 import time
+from contextlib import nullcontext
 from pathlib import Path
 
 import numpy as np
+from threadpoolctl import ThreadpoolController
 
 HERE = Path(__file__).resolve().parent
-VARIANTS = {"scipy": {"products": "scipy"}, "t1": {"threads": 1}, "t2": {"threads": 2},
-            "f32": {"threads": 2, "values": np.float32}, "ncv3k": {"threads": 2, "ncv": 3}}
+SEP = {"products": "separate"}
+VARIANTS = {"scipy": {"products": "scipy"}, "gram": {}, "t1": {**SEP, "threads": 1}, "t2": {**SEP, "threads": 2},
+            "f32": {**SEP, "threads": 2, "values": np.float32}, "ncv3k": {**SEP, "threads": 2, "ncv": 3},
+            "t2blas1": {**SEP, "threads": 2, "blas": 1}, "t1blas1": {**SEP, "threads": 1, "blas": 1},
+            "gram32": {"values": np.float32}, "gramblas1": {"blas": 1}}
 
 
 def corpus(data: Path, tokens: int, vocab: int) -> Path:
@@ -67,28 +77,46 @@ def scores(u, s, index, tests):
 def run(m, dim: int, spec: dict):
     """truncated_svd with one variant's settings; also the number of operator products."""
     import tracer.core.ppmi_svd as ppmi_svd
-    from tracer.core.sparse_products import CsrOperator
-    calls = [0]
+    from scipy.sparse.linalg import LinearOperator
 
-    class Counting(CsrOperator):
+    from tracer.core.sparse_products import CsrOperator
+    calls = [0, 0.0]
+
+    class Counting(CsrOperator):  # counts and times A x, A^T y and A^T A x (one gram product counts 2)
         def __init__(self, matrix, threads=None):
             super().__init__(matrix, threads=threads, values=spec.get("values", np.float64))
 
         def _matvec(self, x):
-            calls[0] += 1
-            return super()._matvec(x)
+            t = time.perf_counter()
+            y = super()._matvec(x)
+            calls[0], calls[1] = calls[0] + 1, calls[1] + time.perf_counter() - t
+            return y
 
         def _rmatvec(self, x):
-            calls[0] += 1
-            return super()._rmatvec(x)
+            t = time.perf_counter()
+            y = super()._rmatvec(x)
+            calls[0], calls[1] = calls[0] + 1, calls[1] + time.perf_counter() - t
+            return y
+
+        def gram(self):
+            inner = super().gram()
+
+            def matvec(x):
+                t = time.perf_counter()
+                y = inner.matvec(x)
+                calls[0], calls[1] = calls[0] + 2, calls[1] + time.perf_counter() - t
+                return y
+            return LinearOperator(inner.shape, matvec=matvec, dtype=inner.dtype)
 
     ppmi_svd.CsrOperator = Counting
     try:
         ncv = spec["ncv"] * dim if "ncv" in spec else None
+        limit = ThreadpoolController().limit(limits=spec["blas"], user_api="blas") if "blas" in spec else nullcontext()
         t = time.perf_counter()
-        u, s, _ = ppmi_svd.truncated_svd(m, dim, threads=spec.get("threads"), ncv=ncv,
-                                         products=spec.get("products", "threads"))
-        return u, s, time.perf_counter() - t, calls[0]
+        with limit:
+            u, s, _ = ppmi_svd.truncated_svd(m, dim, threads=spec.get("threads"), ncv=ncv,
+                                             products=spec.get("products", "gram"))
+        return u, s, time.perf_counter() - t, calls
     finally:
         ppmi_svd.CsrOperator = CsrOperator
 
@@ -110,7 +138,7 @@ def main() -> None:
         ref = None
         for name in args.variants:
             load0 = os.getloadavg()[0]
-            u, s, secs, calls = run(m, args.dim, VARIANTS[name])
+            u, s, secs, (calls, in_products) = run(m, args.dim, VARIANTS[name])
             got = scores(u, s, index, tests)
             if ref is None:
                 ref = (u, s, secs, got)
@@ -119,7 +147,7 @@ def main() -> None:
                                                  f"max rel ds {np.max(np.abs(s - ref[1]) / ref[1]):.1e}")
             line = "  ".join(f"{n}: d {r.effect_size:.4f} |dd| {abs(r.effect_size - ref[3][n].effect_size):.4f} "
                              f"gap {r.gap:.5f} |dgap| {abs(r.gap - ref[3][n].gap):.5f}" for n, r in got.items())
-            print(f"  {name:6} {secs:7.1f} s  x{ref[2] / secs:4.2f}  {calls:5d} products  "
+            print(f"  {name:6} {secs:7.1f} s  x{ref[2] / secs:4.2f}  {calls:5d} products {in_products:5.1f} s  "
                   f"load {load0:.1f}-{os.getloadavg()[0]:.1f}  {diff}  {line}", flush=True)
 
 

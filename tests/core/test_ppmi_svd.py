@@ -93,3 +93,15 @@ def test_truncated_svd_equals_scipy_svds_on_the_matrix(monkeypatch, threads):
     old = truncated_svd(m, 12, seed=4, products="scipy")
     for a, b in zip((u, s, vt), old):
         np.testing.assert_array_equal(a, b)  # the products are scipy's bit for bit, so is the answer
+
+
+def test_separate_products_give_the_same_svd(monkeypatch):
+    from tracer.core import sparse_products
+    monkeypatch.setattr(sparse_products, "THREADS_FROM_NNZ", 0)
+    rng = np.random.default_rng(5)
+    m = sp.random_array((300, 300), density=0.1, rng=rng, format="csr")
+    m.data = rng.exponential(size=m.nnz)
+    gram = truncated_svd(m, 10, seed=1)
+    for products in ("separate", "scipy"):
+        for a, b in zip(gram, truncated_svd(m, 10, seed=1, threads=2, products=products)):
+            np.testing.assert_array_equal(a, b)

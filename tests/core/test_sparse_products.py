@@ -58,11 +58,14 @@ def check_products(m, threads, seed, n_vec):
     np.testing.assert_array_equal(op.rmatvec(y), ref.rmatvec(y))
     np.testing.assert_array_equal(op.matmat(xs), ref.matmat(xs))
     np.testing.assert_array_equal(op.rmatmat(ys), ref.rmatmat(ys))
+    np.testing.assert_array_equal(op.gram().matvec(x), ref.rmatvec(ref.matvec(x)))  # what svds computes
     # and the dense products (numpy) to rounding, so equal-to-scipy is not equal-and-wrong
     dense = m.toarray()
     scale = np.abs(dense).sum() * 1e-13 + 1e-300
     np.testing.assert_allclose(op.matvec(x), dense @ x, rtol=0, atol=scale * np.abs(x).max())
     np.testing.assert_allclose(op.rmatmat(ys), dense.T @ ys, rtol=0, atol=scale * np.abs(ys).max())
+    gram_scale = np.abs(dense).sum(axis=0).max() * np.abs(dense).sum(axis=1).max() * np.abs(x).max() * 1e-13 + 1e-300
+    np.testing.assert_allclose(op.gram().matvec(x), dense.T @ (dense @ x), rtol=0, atol=gram_scale)
 
 
 def test_blocks_cover_the_rows_once_with_even_nonzeros():

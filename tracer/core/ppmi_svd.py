@@ -14,7 +14,8 @@ import functools
 
 import numpy as np
 import scipy.sparse as sp
-from scipy.sparse.linalg import svds
+import scipy.linalg
+from scipy.sparse.linalg import eigsh, svds
 from threadpoolctl import ThreadpoolController
 
 from tracer.core import memory
@@ -101,14 +102,15 @@ def fix_signs(u: np.ndarray, vt: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 def truncated_svd(matrix, k: int, seed: int = 0, *, threads: int | None = None, ncv: int | None = None,
-                  products: str = "threads") -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+                  products: str = "gram") -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """The k largest singular triplets, in descending order, with fixed signs.
 
-    ARPACK (scipy's ``svds``) on ``A^T A``; its sparse products run on ``threads`` threads
-    (:class:`tracer.core.sparse_products.CsrOperator`; default: 1 in a replicate worker
-    process, else the cores this process may use). They equal scipy's own products bit for
-    bit, so the result does not depend on the number of threads, and ``products="scipy"``
-    (scipy's single-threaded products on the CSR matrix, for comparison) gives the same arrays.
+    ARPACK (scipy's ``svds``) on ``A^T A``. By default (``products="gram"``) each ``A^T A x`` is
+    one pass over ``A`` (:meth:`tracer.core.sparse_products.CsrOperator.gram`) instead of scipy's
+    two; ``"separate"`` runs ``A x`` and ``A^T y`` as row-parallel products on ``threads``
+    threads (default: 1 in a replicate worker process, else the cores this process may use);
+    ``"scipy"`` uses scipy's single-threaded products on the CSR matrix. All three compute the
+    same sums in the same order, so they give the same arrays bit for bit, whatever the threads.
 
     Parameters
     ----------
@@ -117,9 +119,10 @@ def truncated_svd(matrix, k: int, seed: int = 0, *, threads: int | None = None, 
     seed : int
         Seeds ARPACK's start vector.
     threads : int, optional
+        Threads of the row-parallel products (``"separate"``, and the final ``A V``).
     ncv : int, optional
         ARPACK's number of Lanczos vectors (scipy's default ``max(2k + 1, 20)``).
-    products : {"threads", "scipy"}
+    products : {"gram", "separate", "scipy"}
 
     Returns
     -------
@@ -133,13 +136,29 @@ def truncated_svd(matrix, k: int, seed: int = 0, *, threads: int | None = None, 
     rng = np.random.default_rng(seed)
     v0 = rng.standard_normal(n)
     csr = sp.csr_array(matrix, dtype=np.float64)
-    operator = csr if products == "scipy" else CsrOperator(csr, threads=threads)
     with blas_threads_for(matrix.shape[0]):
-        u, s, vt = svds(operator, k=k, v0=v0, ncv=ncv, solver="arpack")
+        if products == "scipy":
+            u, s, vt = svds(csr, k=k, v0=v0, ncv=ncv, solver="arpack")
+        elif products == "separate" or csr.shape[0] < csr.shape[1]:
+            u, s, vt = svds(CsrOperator(csr, threads=threads), k=k, v0=v0, ncv=ncv, solver="arpack")
+        else:
+            u, s, vt = _gram_svds(CsrOperator(csr, threads=threads), k, v0, ncv)
     order = np.argsort(-s, kind="stable")
     u, s, vt = u[:, order], s[order], vt[order]
     u, vt = fix_signs(u, vt)
     return u, s, vt
+
+
+def _gram_svds(op: CsrOperator, k: int, v0: np.ndarray, ncv: int | None):
+    """scipy's ``svds(A, k, v0=v0, ncv=ncv, solver="arpack")`` step by step (scipy 1.17's
+    ``_svds.py``, for n_rows >= n_cols), with ``A^T A x`` as one pass over ``A`` (:meth:`CsrOperator.gram`):
+    ARPACK's eigenvectors of ``A^T A``, orthonormalized, then the SVD of ``A V``. The same
+    operations on the same values, so the same arrays bit for bit
+    (tests/core/test_ppmi_svd.py compares them with ``svds``)."""
+    _, eigvec = eigsh(op.gram(), k=k, tol=0, ncv=ncv, which="LM", v0=v0)
+    eigvec, _ = np.linalg.qr(eigvec)
+    u, s, vh = scipy.linalg.svd(op.matmat(eigvec), full_matrices=False, overwrite_a=True)
+    return u[:, ::-1], s[::-1], vh[::-1] @ eigvec.T.conj()
 
 
 def ppmi_svd_vectors(counts, settings: PpmiSvdSettings) -> tuple[np.ndarray, dict]:

@@ -86,6 +86,21 @@ class CsrOperator(LinearOperator):
         self._a = _Csr(m, values, threads)
         self._at = _Csr(m.T.tocsr(), values, threads)  # rows sorted: the order scipy's A^T y sums in
 
+    def gram(self) -> LinearOperator:
+        """``A^T A`` as an operator of shape (n_cols, n_cols): one pass over ``A`` a product, on
+        one thread (:func:`tracer.core._kernels.csr_gram_matvec`), equal bit for bit to
+        scipy's ``A^T (A x)``. A product reads the matrix once instead of twice; the products
+        are limited by memory bandwidth, not by arithmetic (one thread was as fast as two on
+        the machines measured; tests/benchmarks/bench_svd_threads.py)."""
+        a, n = self._a, self.shape[1]
+
+        def matvec(x):
+            out = np.empty(n)
+            _kernels.csr_gram_matvec(a.indptr, a.indices, a.data, np.ascontiguousarray(np.ravel(x), dtype=np.float64),
+                                     out)
+            return out
+        return LinearOperator((n, n), matvec=matvec, dtype=np.float64)
+
     def _matvec(self, x):
         return self._a.times(np.ravel(x))
 
