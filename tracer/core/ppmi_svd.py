@@ -130,6 +130,8 @@ def truncated_svd(matrix, k: int, seed: int = 0, *, threads: int | None = None, 
     s : numpy.ndarray, shape (k,)
     vt : numpy.ndarray, shape (k, n_cols)
     """
+    if products not in ("gram", "separate", "scipy"):
+        raise SettingError(f"products must be gram, separate or scipy; got {products!r}")
     n = min(matrix.shape)
     if k >= n:
         raise SettingError(f"dim {k} is too large for a vocabulary of {n} words; use a dim below {n}")

@@ -1,6 +1,6 @@
 """Row-parallel products with a sparse matrix, for ARPACK (:func:`tracer.core.ppmi_svd.truncated_svd`).
 
-scipy's sparse products run on one thread, and ARPACK spends nearly all of a large SVD in
+scipy's sparse products run on one thread, and ARPACK spends most of a large SVD in
 them (two per Lanczos step: ``A x`` and ``A^T y``). :class:`CsrOperator` computes both as
 row-wise CSR products (:func:`tracer.core._kernels.csr_matvec_rows`) in blocks of rows on the
 threads of :class:`tracer.core.threads.ThreadPool`: ``A`` and, as its own CSR, ``A^T`` (so the
@@ -9,8 +9,10 @@ transposed product needs no scatter and threads never write the same place).
 The results are those of scipy's products on the matrix, bit for bit: every output element is
 summed from 0.0 in the order scipy sums it (``csr_matvec`` for ``A x``; for ``A^T y`` scipy's
 ``csc_matvec`` adds the rows of ``A`` in ascending order, which is the sorted order of the rows of
-the transposed CSR), whatever the number of threads or blocks. The memory is that of scipy's own
-operator, which also keeps a copy of the transpose: 12 bytes a nonzero more.
+the transposed CSR), whatever the number of threads or blocks. :meth:`CsrOperator.gram` gives
+``A^T A`` with each product one pass over ``A``, the same sums again. The memory is that of scipy's own
+operator, which also keeps a copy of the transpose (12 bytes a nonzero more), made here only
+when a transposed product is asked for.
 """
 
 from __future__ import annotations
@@ -83,8 +85,16 @@ class CsrOperator(LinearOperator):
             raise TypeError("CsrOperator takes real matrices only")
         super().__init__(np.dtype(np.float64), m.shape)
         self.threads = threads
+        self._m, self._values = m, values
         self._a = _Csr(m, values, threads)
-        self._at = _Csr(m.T.tocsr(), values, threads)  # rows sorted: the order scipy's A^T y sums in
+        self._at_csr = None
+
+    @property
+    def _at(self) -> _Csr:
+        """``A^T`` as its own CSR, made at the first transposed product (``gram`` needs none)."""
+        if self._at_csr is None:
+            self._at_csr = _Csr(self._m.T.tocsr(), self._values, self.threads)  # rows sorted: scipy's order
+        return self._at_csr
 
     def gram(self) -> LinearOperator:
         """``A^T A`` as an operator of shape (n_cols, n_cols): one pass over ``A`` a product, on
