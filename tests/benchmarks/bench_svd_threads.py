@@ -7,7 +7,7 @@
 For each size, generates a news-like corpus (``gen_realistic_corpus.py``: invented words, Zipf
 vocabulary, a planted test and a control) into ``--data`` unless it is there, ingests and counts
 it (window 5, min count 5), then runs ``truncated_svd`` on the same PPMI matrix (dim 100) once per
-variant, in this order:
+variant named by ``--variants`` (default: all), compared with the first one run (put ``scipy`` first):
 
     scipy      scipy's single-threaded products on the CSR matrix (the old default)
     gram       A^T A x in one pass over A (CsrOperator.gram; the default)
@@ -19,10 +19,10 @@ variant, in this order:
     t2blas1    the operator on 2 threads, ARPACK's dense (BLAS) work on 1 thread
     t1blas1    the operator on 1 thread, BLAS on 1 thread (what one replicate worker runs)
 
-and prints wall time, the ratio to ``scipy``, the number of operator products, the 1-minute load
+and prints wall time, the ratio to the first variant, the number of operator products, the 1-minute load
 average at the start and end (the machine may be shared), whether u and s equal scipy's bit for
-bit (else the largest differences), the time spent in the operator's products (scipy's own are not timed), and the WEAT effect size d and gap of both tests with their
-differences from ``scipy``'s (tolerance: |delta d| <= 0.02, |delta gap| <= 0.002).
+bit (else the largest differences), the time spent in the operator's products (scipy's own are not timed),
+and the WEAT effect size d and gap of both tests with their differences from the first variant's (tolerance: |delta d| <= 0.02, |delta gap| <= 0.002).
 Nothing here is a pass/fail test: read the figures.
 """
 

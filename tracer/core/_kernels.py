@@ -1,5 +1,6 @@
-"""Compiled kernels (numba, nogil: threads run them in parallel): the co-occurrence counter, and
-at the end the linear influence score of :mod:`tracer.analysis.influence`.
+"""Compiled kernels (numba, nogil: threads run them in parallel): the co-occurrence counter, the
+linear influence score of :mod:`tracer.analysis.influence`, and at the end the sparse products of
+:mod:`tracer.core.sparse_products`.
 
 The window semantics (which pairs a window makes, their distance weights) are those of
 :mod:`tracer.core.counting`; the kernels take the weights from
