@@ -65,3 +65,43 @@ def test_sign_fix_against_numpy_svd():
     np.testing.assert_allclose(got_s, S[:k], rtol=1e-8)
     np.testing.assert_allclose(got_u, u[:, :k], atol=1e-6)
     np.testing.assert_allclose(got_vt, vt[:k], atol=1e-6)
+
+
+def _reference_svds(m, k, seed):
+    """scipy's svds on the CSR matrix itself (its own products), start vector and signs as truncated_svd's."""
+    from scipy.sparse.linalg import svds
+    v0 = np.random.default_rng(seed).standard_normal(min(m.shape))
+    u, s, vt = svds(sp.csr_array(m, dtype=np.float64), k=k, v0=v0, solver="arpack")
+    order = np.argsort(-s, kind="stable")
+    return fix_signs(u[:, order], vt[order]) + (s[order],)
+
+
+@pytest.mark.parametrize("threads", [1, 2])
+def test_truncated_svd_equals_scipy_svds_on_the_matrix(monkeypatch, threads):
+    # a non-symmetric matrix (as PPMI with alpha < 1 is), so a transposed product taken the wrong
+    # way round changes the answer; THREADS_FROM_NNZ at 0 cuts it into row blocks on both threads
+    from tracer.core import sparse_products
+    monkeypatch.setattr(sparse_products, "THREADS_FROM_NNZ", 0)
+    rng = np.random.default_rng(11)
+    m = sp.random_array((600, 600), density=0.05, rng=rng, format="csr")  # square: a wrong transpose still runs
+    m.data = rng.exponential(size=m.nnz)
+    u_ref, vt_ref, s_ref = _reference_svds(m, 12, seed=4)
+    u, s, vt = truncated_svd(m, 12, seed=4, threads=threads)
+    np.testing.assert_allclose(s, s_ref, rtol=0, atol=1e-10)
+    np.testing.assert_allclose(u * s, u_ref * s_ref, rtol=0, atol=1e-10)
+    np.testing.assert_allclose(vt, vt_ref, rtol=0, atol=1e-10)
+    old = truncated_svd(m, 12, seed=4, products="scipy")
+    for a, b in zip((u, s, vt), old):
+        np.testing.assert_array_equal(a, b)  # the products are scipy's bit for bit, so is the answer
+
+
+def test_separate_products_give_the_same_svd(monkeypatch):
+    from tracer.core import sparse_products
+    monkeypatch.setattr(sparse_products, "THREADS_FROM_NNZ", 0)
+    rng = np.random.default_rng(5)
+    m = sp.random_array((300, 300), density=0.1, rng=rng, format="csr")
+    m.data = rng.exponential(size=m.nnz)
+    gram = truncated_svd(m, 10, seed=1)
+    for products in ("separate", "scipy"):
+        for a, b in zip(gram, truncated_svd(m, 10, seed=1, threads=2, products=products)):
+            np.testing.assert_array_equal(a, b)

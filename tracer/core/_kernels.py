@@ -1,5 +1,6 @@
-"""Compiled kernels (numba, nogil: threads run them in parallel): the co-occurrence counter, and
-at the end the linear influence score of :mod:`tracer.analysis.influence`.
+"""Compiled kernels (numba, nogil: threads run them in parallel): the co-occurrence counter, the
+linear influence score of :mod:`tracer.analysis.influence`, and at the end the sparse products of
+:mod:`tracer.core.sparse_products`.
 
 The window semantics (which pairs a window makes, their distance weights) are those of
 :mod:`tracer.core.counting`; the kernels take the weights from
@@ -293,3 +294,69 @@ def linear_scores(tokens, starts, ends, id_map, doc_w, dist_w, cum_w, probe_row,
             for dd in range(1, min(window, n - 1 - i) + 1):
                 s_probe += dist_w[dd - 1] * row[buf[i + dd]]
         out[d] = w * (s_rows - s_probe)
+
+
+# ---- the sparse products of tracer.core.sparse_products ------------------------------------
+# ``indptr`` and ``indices`` come unsigned (uint64, and uint32 or uint64): with signed indices
+# numba checks every access for a negative index, which made the products twice as slow as scipy's.
+
+@numba.njit(nogil=True, cache=True)
+def csr_matvec_rows(indptr, indices, data, x, r0, r1, out):
+    """``out[i] = sum_k data[k] * x[indices[k]]`` over row i's entries, rows r0..r1-1.
+
+    Each row is summed from 0.0 in its stored order, as scipy's ``csr_matvec`` does, so
+    the result is the same bit for bit (no reordering, no fused multiply-add).
+    """
+    one = np.uint64(1)
+    for i in range(r0, r1):
+        s = 0.0
+        k, end = indptr[i], indptr[i + 1]
+        while k < end:
+            s += data[k] * x[indices[k]]
+            k += one
+        out[i] = s
+
+
+@numba.njit(nogil=True, cache=True)
+def csr_matmat_rows(indptr, indices, data, x, r0, r1, out):
+    """``out[i, :] = sum_k data[k] * x[indices[k], :]``, rows r0..r1-1 (``out`` zeroed there).
+
+    Each output element adds row i's entries in their stored order, as scipy's
+    ``csr_matvecs`` does (an axpy per entry), so the result is the same bit for bit.
+    """
+    one = np.uint64(1)
+    n_vec = x.shape[1]
+    for i in range(r0, r1):
+        for c in range(n_vec):
+            out[i, c] = 0.0
+        k, end = indptr[i], indptr[i + 1]
+        while k < end:
+            a = data[k]
+            j = indices[k]
+            for c in range(n_vec):
+                out[i, c] += a * x[j, c]
+            k += one
+
+
+@numba.njit(nogil=True, cache=True)
+def csr_gram_matvec(indptr, indices, data, x, out):
+    """``out = A^T (A x)`` in one pass over A's rows: ``t = a_i . x``, then ``out += t a_i``.
+
+    The same operations in the same order as scipy's ``A^T (A x)`` (``csr_matvec`` for
+    ``A x``, then ``csc_matvec`` on ``A^T``, which adds row i's entries times ``(A x)_i``
+    for i ascending), so the result is the same bit for bit; each row is read once,
+    while it is in cache, instead of twice.
+    """
+    one = np.uint64(1)
+    for c in range(out.shape[0]):
+        out[c] = 0.0
+    for i in range(indptr.shape[0] - 1):
+        s = 0.0
+        k, end = indptr[i], indptr[i + 1]
+        while k < end:
+            s += data[k] * x[indices[k]]
+            k += one
+        k = indptr[i]
+        while k < end:
+            out[indices[k]] += data[k] * s
+            k += one

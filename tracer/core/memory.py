@@ -36,7 +36,8 @@ PPMI (:func:`tracer.core.pmi.ppmi_matrix`), beside the counts it reads.
     (measured with tracemalloc on a 2M-token corpus: 41 bytes per nonzero; the bound is kept).
 
 Truncated SVD with ARPACK (:func:`tracer.core.ppmi_svd.truncated_svd`).
-    scipy's ``svds`` holds a copy of the matrix (12 bytes per nonzero) and, for ``k`` vectors,
+    the products' operator (:class:`tracer.core.sparse_products.CsrOperator`) holds the transpose
+    as its own CSR matrix (12 bytes per nonzero, as scipy's own operator's copy did) and, for ``k`` vectors,
     ARPACK's ``ncv = 2k + 1`` Lanczos vectors, their products and the returned ``u``, ``vt``
     and their reordered, sign-fixed copies: about ``5k`` float64 vectors of length ``n``::
 

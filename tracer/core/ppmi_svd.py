@@ -14,11 +14,13 @@ import functools
 
 import numpy as np
 import scipy.sparse as sp
-from scipy.sparse.linalg import svds
+import scipy.linalg
+from scipy.sparse.linalg import eigsh, svds
 from threadpoolctl import ThreadpoolController
 
 from tracer.core import memory
 from tracer.core.pmi import DEFAULT_ALPHA, ppmi_matrix
+from tracer.core.sparse_products import CsrOperator
 from tracer.errors import SettingError
 
 SVD_FIX = "lower --dim, or raise --min-count / set --max-vocab (fewer words)"
@@ -99,8 +101,28 @@ def fix_signs(u: np.ndarray, vt: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return u * flip, vt * flip[:, None]
 
 
-def truncated_svd(matrix, k: int, seed: int = 0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def truncated_svd(matrix, k: int, seed: int = 0, *, threads: int | None = None, ncv: int | None = None,
+                  products: str = "gram") -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """The k largest singular triplets, in descending order, with fixed signs.
+
+    ARPACK (scipy's ``svds``) on ``A^T A``. By default (``products="gram"``) each ``A^T A x`` is
+    one pass over ``A`` (:meth:`tracer.core.sparse_products.CsrOperator.gram`) instead of scipy's
+    two; ``"separate"`` runs ``A x`` and ``A^T y`` as row-parallel products on ``threads``
+    threads (default: 1 in a replicate worker process, else the cores this process may use);
+    ``"scipy"`` uses scipy's single-threaded products on the CSR matrix. All three compute the
+    same sums in the same order, so they give the same arrays bit for bit, whatever the threads.
+
+    Parameters
+    ----------
+    matrix : scipy sparse matrix, shape (n_rows, n_cols)
+    k : int
+    seed : int
+        Seeds ARPACK's start vector.
+    threads : int, optional
+        Threads of the row-parallel products (``"separate"``, and the final ``A V``).
+    ncv : int, optional
+        ARPACK's number of Lanczos vectors (scipy's default ``max(2k + 1, 20)``).
+    products : {"gram", "separate", "scipy"}
 
     Returns
     -------
@@ -108,17 +130,37 @@ def truncated_svd(matrix, k: int, seed: int = 0) -> tuple[np.ndarray, np.ndarray
     s : numpy.ndarray, shape (k,)
     vt : numpy.ndarray, shape (k, n_cols)
     """
+    if products not in ("gram", "separate", "scipy"):
+        raise SettingError(f"products must be gram, separate or scipy; got {products!r}")
     n = min(matrix.shape)
     if k >= n:
         raise SettingError(f"dim {k} is too large for a vocabulary of {n} words; use a dim below {n}")
     rng = np.random.default_rng(seed)
     v0 = rng.standard_normal(n)
+    csr = sp.csr_array(matrix, dtype=np.float64)
     with blas_threads_for(matrix.shape[0]):
-        u, s, vt = svds(sp.csr_array(matrix, dtype=np.float64), k=k, v0=v0, solver="arpack")
+        if products == "scipy":
+            u, s, vt = svds(csr, k=k, v0=v0, ncv=ncv, solver="arpack")
+        elif products == "separate" or csr.shape[0] < csr.shape[1]:
+            u, s, vt = svds(CsrOperator(csr, threads=threads), k=k, v0=v0, ncv=ncv, solver="arpack")
+        else:
+            u, s, vt = _gram_svds(CsrOperator(csr, threads=threads), k, v0, ncv)
     order = np.argsort(-s, kind="stable")
     u, s, vt = u[:, order], s[order], vt[order]
     u, vt = fix_signs(u, vt)
     return u, s, vt
+
+
+def _gram_svds(op: CsrOperator, k: int, v0: np.ndarray, ncv: int | None):
+    """scipy's ``svds(A, k, v0=v0, ncv=ncv, solver="arpack")`` step by step (scipy 1.17's
+    ``_svds.py``, for n_rows >= n_cols), with ``A^T A x`` as one pass over ``A`` (:meth:`CsrOperator.gram`):
+    ARPACK's eigenvectors of ``A^T A``, orthonormalized, then the SVD of ``A V``. The same
+    operations on the same values, so the same arrays bit for bit
+    (tests/core/test_ppmi_svd.py compares them with ``svds``)."""
+    _, eigvec = eigsh(op.gram(), k=k, tol=0, ncv=ncv, which="LM", v0=v0)
+    eigvec, _ = np.linalg.qr(eigvec)
+    u, s, vh = scipy.linalg.svd(op.matmat(eigvec), full_matrices=False, overwrite_a=True)
+    return u[:, ::-1], s[::-1], vh[::-1] @ eigvec.T.conj()
 
 
 def ppmi_svd_vectors(counts, settings: PpmiSvdSettings) -> tuple[np.ndarray, dict]:

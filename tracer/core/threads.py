@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import mmap
+import multiprocessing
 import os
 import threading
 from concurrent.futures import ThreadPoolExecutor
@@ -14,6 +15,16 @@ def default_workers() -> int:
     """Cores this process may use (at most 8)."""
     n = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
     return max(1, min(n, 8))
+
+
+def process_threads() -> int:
+    """Threads one compute step of this process may use: 1 in a process started by
+    :mod:`multiprocessing` (a bootstrap replicate worker of :mod:`tracer.core.replicate_pool`
+    runs beside one such worker per core, so more would only oversubscribe the cores),
+    else :func:`default_workers`."""
+    if multiprocessing.parent_process() is not None:
+        return 1
+    return default_workers()
 
 
 class ThreadPool:
