@@ -101,7 +101,7 @@ def _limits(v: dict) -> dict:
               help="Rebuild the corpus from these inputs alone (to re-read a file with other fields or settings).")
 @click.option("--no-wait", is_flag=True, help="Fail at once if another command is writing to the workspace.")
 @click.option("--jobs", type=click.IntRange(min=1), default=None,
-              help="Processes that tokenize (default: the cores available; 1: no extra process).")
+              help="Worker processes that parse, validate and tokenize (default: the cores available; 1: no extra process).")
 @output_options
 def ingest(inputs, workspace, fields, default_source, input_format, strict, tokenizer, limits, replace, no_wait,
            jobs, out):
