@@ -5,7 +5,9 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
+import numpy as np
 import pytest
+import scipy.sparse as sp
 
 from tracer.corpus.ingest import ingest
 from tracer.corpus.workspace import Workspace
@@ -77,3 +79,11 @@ def demo_ws(tmp_path_factory) -> Workspace:
     folder = tmp_path_factory.mktemp("demo")
     ingest(folder / "ws", [DEMO_CORPUS])
     return Workspace(folder / "ws")
+
+
+def random_sparse(shape: tuple[int, int], density: float, rng: np.random.Generator, format: str = "csr"):
+    """A random sparse array of uniform values (what scipy.sparse.random_array gives, which scipy
+    1.11, the lowest declared version, does not have)."""
+    n = int(round(density * shape[0] * shape[1]))
+    rows, cols = np.divmod(rng.choice(shape[0] * shape[1], n, replace=False), shape[1])
+    return sp.coo_array((rng.random(n), (rows, cols)), shape=shape).asformat(format)

@@ -7,6 +7,7 @@ from tracer.corpus.slices import slice_from_spec
 from tracer.core.ppmi_svd import PpmiSvdSettings, fix_signs, truncated_svd
 from tracer.provenance.models import train_embedding
 from tracer.errors import SettingError
+from tests.conftest import random_sparse
 
 
 def test_truncated_svd_equals_numpy_full_svd():
@@ -83,7 +84,7 @@ def test_truncated_svd_equals_scipy_svds_on_the_matrix(monkeypatch, threads):
     from tracer.core import sparse_products
     monkeypatch.setattr(sparse_products, "THREADS_FROM_NNZ", 0)
     rng = np.random.default_rng(11)
-    m = sp.random_array((600, 600), density=0.05, rng=rng, format="csr")  # square: a wrong transpose still runs
+    m = random_sparse((600, 600), 0.05, rng, "csr")  # square: a wrong transpose still runs
     m.data = rng.exponential(size=m.nnz)
     u_ref, vt_ref, s_ref = _reference_svds(m, 12, seed=4)
     u, s, vt = truncated_svd(m, 12, seed=4, threads=threads)
@@ -99,7 +100,7 @@ def test_separate_products_give_the_same_svd(monkeypatch):
     from tracer.core import sparse_products
     monkeypatch.setattr(sparse_products, "THREADS_FROM_NNZ", 0)
     rng = np.random.default_rng(5)
-    m = sp.random_array((300, 300), density=0.1, rng=rng, format="csr")
+    m = random_sparse((300, 300), 0.1, rng, "csr")
     m.data = rng.exponential(size=m.nnz)
     gram = truncated_svd(m, 10, seed=1)
     for products in ("separate", "scipy"):

@@ -11,12 +11,13 @@ from scipy.sparse.linalg import aslinearoperator
 from tracer.core import sparse_products
 from tracer.core.sparse_products import CsrOperator
 from tracer.core.threads import default_workers, process_threads
+from tests.conftest import random_sparse
 
 
 def random_csr(rows, cols, density, seed, canonical=True):
     """A random real CSR matrix; not canonical: rows' entries shuffled and some entries repeated."""
     rng = np.random.default_rng(seed)
-    m = sp.random_array((rows, cols), density=density, rng=rng, format="coo")
+    m = random_sparse((rows, cols), density, rng, "coo")
     m.data = rng.standard_normal(m.nnz) * 10.0 ** rng.uniform(-3, 3, m.nnz)  # a wide range of magnitudes
     if canonical:
         return m.tocsr()
