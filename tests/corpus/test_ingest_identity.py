@@ -163,7 +163,7 @@ def test_a_token_with_a_tab_stops_the_ingest_where_one_process_would(tmp_path, m
         run("e", [{"id": "e", "text": ""}, {"id": "t", "text": "x c\td"}], strict=True)
 
 
-@settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(max_examples=10, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(st.lists(st.dictionaries(st.integers(0, 260).map(lambda k: f"k{k}"), st.sampled_from(["", None, "v", 1]),
                                 min_size=20, max_size=60), min_size=8, max_size=30),
        st.lists(st.integers(0, 30), max_size=5))
