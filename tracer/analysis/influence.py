@@ -204,27 +204,6 @@ class Attribution:
         correction = np.bincount(d, weights=g[k, j] * (exact_step + share), minlength=n_docs)
         return self.linear(which) + correction
 
-    def estimate(self, which: str = "gap") -> np.ndarray:
-        """Estimated change of B when each document is removed on its own, shape (n_docs,).
-
-        :meth:`linear` with the joint-count term of each probe cell taken exactly: removing
-        c of a cell's count C moves its PPMI by ``max(log(1 - c / C), -M)`` (the cell's PMI,
-        floored where it falls to the threshold), not by the first-order ``-c / C``; the row-sum
-        term and the step from M to B stay first order. The difference matters for the cells a
-        document holds all or most of (c = C = 1: a probe word beside a rare word once), whose PPMI
-        falls by M, not by 1; on the demo these cells carry most of a single document's change.
-        """
-        g = np.where(self.probe_ppmi > 0, self.d_quantity_d_ppmi(which), 0.0)
-        cells = self.document_probe_counts.tocoo()
-        n_docs = self.ws.n_documents
-        k, d, j = cells.row // n_docs, cells.row % n_docs, cells.col
-        share = np.minimum(cells.data / self.probe_counts[k, j], 1.0)
-        with np.errstate(divide="ignore"):
-            exact_step = np.maximum(np.log1p(-share), -self.probe_ppmi[k, j])
-        # linear() counts each cell as -g c / C; replace that by g times the exact step
-        correction = np.bincount(d, weights=g[k, j] * (exact_step + share), minlength=n_docs)
-        return self.linear(which) + correction
-
     def _linear_pass(self, per_count: np.ndarray, per_row_sum: np.ndarray) -> np.ndarray:
         """``-<per_count, C^d> + <per_row_sum, r^d>`` for every document, threads over document ranges."""
         probe_row = np.full(len(self.row_sums), -1, np.int64)
