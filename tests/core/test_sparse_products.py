@@ -69,6 +69,22 @@ def check_products(m, threads, seed, n_vec):
     np.testing.assert_allclose(op.gram().matvec(x), dense.T @ (dense @ x), rtol=0, atol=gram_scale)
 
 
+@pytest.mark.parametrize("values", [np.float64, np.float32])
+def test_blocked_gram_product_is_the_same_on_any_threads(monkeypatch, values):
+    m = random_csr(700, 300, 0.2, 8)
+    x = np.random.default_rng(2).standard_normal(300)
+    exact = CsrOperator(m).gram().matvec(x)  # one block: scipy's sums (check_products)
+    monkeypatch.setattr(sparse_products, "THREADS_FROM_NNZ", 0)  # a large matrix's path
+    one, two = (CsrOperator(m, threads=t, values=values).gram().matvec(x) for t in (1, 2))
+    np.testing.assert_array_equal(one, two)
+    assert not np.array_equal(one, exact)  # the blocks really ran (their sums are grouped otherwise)
+    # every block counted once: against numpy's dense A^T (A x), to rounding (float32 values: 2^-23 each)
+    dense = m.toarray()
+    eps = 1e-13 if values is np.float64 else 2.0 ** -22
+    bound = (np.abs(dense).T @ (np.abs(dense) @ np.abs(x))) * eps + 1e-300
+    assert np.all(np.abs(one - dense.T @ (dense @ x)) <= bound)
+
+
 def test_blocks_cover_the_rows_once_with_even_nonzeros():
     m = random_csr(5000, 300, 0.05, 3)
     blocks = sparse_products._row_blocks(m.indptr, 8)

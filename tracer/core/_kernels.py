@@ -339,18 +339,19 @@ def csr_matmat_rows(indptr, indices, data, x, r0, r1, out):
 
 
 @numba.njit(nogil=True, cache=True)
-def csr_gram_matvec(indptr, indices, data, x, out):
-    """``out = A^T (A x)`` in one pass over A's rows: ``t = a_i . x``, then ``out += t a_i``.
+def csr_gram_matvec(indptr, indices, data, x, r0, r1, out):
+    """``out = A[r0:r1]^T (A[r0:r1] x)`` in one pass over those rows: ``t = a_i . x``, then
+    ``out += t a_i``.
 
-    The same operations in the same order as scipy's ``A^T (A x)`` (``csr_matvec`` for
-    ``A x``, then ``csc_matvec`` on ``A^T``, which adds row i's entries times ``(A x)_i``
-    for i ascending), so the result is the same bit for bit; each row is read once,
-    while it is in cache, instead of twice.
+    For the whole matrix (``r0 = 0``, ``r1`` the rows) these are the same operations in the same
+    order as scipy's ``A^T (A x)`` (``csr_matvec`` for ``A x``, then ``csc_matvec`` on ``A^T``,
+    which adds row i's entries times ``(A x)_i`` for i ascending), so the result is the same bit
+    for bit; each row is read once, while it is in cache, instead of twice.
     """
     one = np.uint64(1)
     for c in range(out.shape[0]):
         out[c] = 0.0
-    for i in range(indptr.shape[0] - 1):
+    for i in range(r0, r1):
         s = 0.0
         k, end = indptr[i], indptr[i + 1]
         while k < end:

@@ -20,6 +20,7 @@ from threadpoolctl import ThreadpoolController
 
 from tracer.core import memory
 from tracer.core.pmi import DEFAULT_ALPHA, ppmi_matrix
+from tracer.core import sparse_products
 from tracer.core.sparse_products import CsrOperator
 from tracer.errors import SettingError
 
@@ -101,6 +102,16 @@ def fix_signs(u: np.ndarray, vt: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return u * flip, vt * flip[:, None]
 
 
+# From this many nonzeros truncated_svd takes its fast path (blocked products on float32 values);
+# below it, its products are scipy's bit for bit. The blocks start at the same size.
+LARGE_NNZ = sparse_products.THREADS_FROM_NNZ
+
+# How far the fast path may move d and the gap of an association test from the exact SVD's: what
+# the tests hold it to. Measured: 4.8e-7 in d and 4.1e-8 in the gap at 20M tokens (79,644 words,
+# 62 tests), far inside the intervals.
+FAST_PATH_TOLERANCE = {"d": 1e-5, "gap": 1e-6}
+
+
 def truncated_svd(matrix, k: int, seed: int = 0, *, threads: int | None = None, ncv: int | None = None,
                   products: str = "gram") -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """The k largest singular triplets, in descending order, with fixed signs.
@@ -109,8 +120,17 @@ def truncated_svd(matrix, k: int, seed: int = 0, *, threads: int | None = None, 
     one pass over ``A`` (:meth:`tracer.core.sparse_products.CsrOperator.gram`) instead of scipy's
     two; ``"separate"`` runs ``A x`` and ``A^T y`` as row-parallel products on ``threads``
     threads (default: 1 in a replicate worker process, else the cores this process may use);
-    ``"scipy"`` uses scipy's single-threaded products on the CSR matrix. All three compute the
-    same sums in the same order, so they give the same arrays bit for bit, whatever the threads.
+    ``"scipy"`` uses scipy's single-threaded products on the CSR matrix. ``"separate"`` and
+    ``"scipy"`` compute the same sums in the same order, so they give the same arrays bit for bit,
+    whatever the threads; so does ``"gram"`` on a matrix of fewer than ``LARGE_NNZ`` nonzeros.
+
+    On a larger matrix ``"gram"`` is the fast path: its products add row blocks in a fixed order on
+    the threads, and read A's values stored in float32 (the sums stay float64). Both change the
+    products by rounding only, and the result is the same bit for bit on any number of threads.
+    It is held to the exact path (``"scipy"``) in the figures users read: in d and the gap of
+    association tests within ``FAST_PATH_TOLERANCE`` (tests/core/test_ppmi_svd.py at 20,000 words;
+    tests/benchmarks/bench_svd_threads.py at the sizes users have). The word vectors are stored in
+    float32, so the values' rounding is of the order of the vectors' own.
 
     Parameters
     ----------
@@ -144,7 +164,8 @@ def truncated_svd(matrix, k: int, seed: int = 0, *, threads: int | None = None, 
         elif products == "separate" or csr.shape[0] < csr.shape[1]:
             u, s, vt = svds(CsrOperator(csr, threads=threads), k=k, v0=v0, ncv=ncv, solver="arpack")
         else:
-            u, s, vt = _gram_svds(CsrOperator(csr, threads=threads), k, v0, ncv)
+            values = np.float32 if csr.nnz >= LARGE_NNZ else np.float64
+            u, s, vt = _gram_svds(CsrOperator(csr, threads=threads, values=values), k, v0, ncv)
     order = np.argsort(-s, kind="stable")
     u, s, vt = u[:, order], s[order], vt[order]
     u, vt = fix_signs(u, vt)

@@ -10,7 +10,8 @@ The results are those of scipy's products on the matrix, bit for bit: every outp
 summed from 0.0 in the order scipy sums it (``csr_matvec`` for ``A x``; for ``A^T y`` scipy's
 ``csc_matvec`` adds the rows of ``A`` in ascending order, which is the sorted order of the rows of
 the transposed CSR), whatever the number of threads or blocks. :meth:`CsrOperator.gram` gives
-``A^T A`` with each product one pass over ``A``, the same sums again. The memory is that of scipy's own
+``A^T A`` with each product one pass over ``A``: scipy's sums on a small matrix, and on a large one
+the sums of a fixed number of row blocks added in order (the same bits on any number of threads). The memory is that of scipy's own
 operator, which also keeps a copy of the transpose (12 bytes a nonzero more), made here only
 when a transposed product is asked for.
 """
@@ -31,6 +32,10 @@ THREADS_FROM_NNZ = 1 << 18
 # Blocks of rows per thread: more than one, so that a thread slowed by other processes on a
 # shared machine does not hold the others up at the end of each product.
 BLOCKS_PER_THREAD = 4
+
+# Blocks of rows of a large A^T A product (CsrOperator.gram): fixed, so that its sums do not
+# depend on the threads; enough for a few threads to share.
+GRAM_BLOCKS = 8
 
 
 def _row_blocks(indptr: np.ndarray, n_blocks: int) -> list[tuple[int, int]]:
@@ -97,17 +102,31 @@ class CsrOperator(LinearOperator):
         return self._at_csr
 
     def gram(self) -> LinearOperator:
-        """``A^T A`` as an operator of shape (n_cols, n_cols): one pass over ``A`` a product, on
-        one thread (:func:`tracer.core._kernels.csr_gram_matvec`), equal bit for bit to
-        scipy's ``A^T (A x)``. A product reads the matrix once instead of twice; the products
-        are limited by memory bandwidth, not by arithmetic (one thread was as fast as two on
-        the machines measured; tests/benchmarks/bench_svd_threads.py)."""
+        """``A^T A`` as an operator of shape (n_cols, n_cols), each product one pass over ``A``.
+
+        A matrix of at least ``THREADS_FROM_NNZ`` nonzeros is cut into ``GRAM_BLOCKS`` blocks of
+        rows with about the same nonzeros; each block's ``A_b^T (A_b x)``
+        (:func:`tracer.core._kernels.csr_gram_matvec`) goes to its own vector, on this operator's
+        threads, and the vectors are added in block order. The number of blocks depends on the
+        matrix only, so the result is the same bit for bit on any number of threads (a replicate
+        worker runs the blocks one after another); it differs from scipy's ``A^T (A x)`` by the
+        rounding of the regrouped sums. A smaller matrix is one block: scipy's sums, bit for bit.
+        The products are limited by memory bandwidth: a second thread gives a core's worth of
+        bandwidth more (tests/benchmarks/bench_svd_threads.py measures it).
+        """
         a, n = self._a, self.shape[1]
+        indptr = self._m.indptr
+        blocks = _row_blocks(indptr, GRAM_BLOCKS) if self._m.nnz >= THREADS_FROM_NNZ else [(0, self.shape[0])]
+        pool = ThreadPool(min(self.threads, len(blocks)))
 
         def matvec(x):
-            out = np.empty(n)
-            _kernels.csr_gram_matvec(a.indptr, a.indices, a.data, np.ascontiguousarray(np.ravel(x), dtype=np.float64),
-                                     out)
+            x = np.ascontiguousarray(np.ravel(x), dtype=np.float64)
+            parts = np.empty((len(blocks), n))
+            pool.map(lambda b, r0, r1: _kernels.csr_gram_matvec(a.indptr, a.indices, a.data, x, r0, r1, parts[b]),
+                     [(b, r0, r1) for b, (r0, r1) in enumerate(blocks)])
+            out = parts[0]
+            for part in parts[1:]:
+                out += part
             return out
         return LinearOperator((n, n), matvec=matvec, dtype=np.float64)
 
