@@ -43,7 +43,9 @@ Truncated SVD with ARPACK (:func:`tracer.core.ppmi_svd.truncated_svd`).
 
         svd = 12 * N + 8 * n * 5 * k
 
-    (measured with tracemalloc, 28,495 words: 12.2 bytes per nonzero and 5.0 k vectors.)
+    (measured with tracemalloc, 28,495 words: 12.2 bytes per nonzero and 5.0 k vectors.) The
+    default one-pass ``A^T A`` products need no transpose; on a large matrix they keep a float32
+    copy of the values instead (4 bytes per nonzero), so the bound holds with room to spare.
 
 Dense probe rows (:class:`tracer.analysis.influence.Attribution`).
     ``rows x n`` float64 arrays: the counts, the PPMI and the derivative of the probe rows,
