@@ -120,6 +120,21 @@ def train_slices(ws, slices: list[Slice], model: str, counts: CountSettings,
     (:func:`start_word2vec`). ``say`` gets a line as each slice is handed over, counted and when
     the models are stored; ``bar`` wraps the slices as they are handed over (a progress bar). Every
     slice's dimension is checked before anything is counted; nothing is stored until all are trained.
+
+    Parameters
+    ----------
+    ws : Workspace
+        With ``ws.scheduler`` set, the counts and the tasks go to that dask cluster.
+    slices : list of Slice
+    model : {"ppmi-svd", "word2vec"}
+    counts : CountSettings
+    settings : PpmiSvdSettings or Word2VecSettings
+
+    Returns
+    -------
+    list of Embedding
+        One per slice, vectors of shape (words of the slice, dim), with the card
+        :func:`trained_embedding` gives.
     """
     settings = _model_settings(model, settings)
     vocabs = [slice_vocab(ws, sl.weights, counts, sl.name) for sl in slices]
