@@ -10,10 +10,10 @@ The results are those of scipy's products on the matrix, bit for bit: every outp
 summed from 0.0 in the order scipy sums it (``csr_matvec`` for ``A x``; for ``A^T y`` scipy's
 ``csc_matvec`` adds the rows of ``A`` in ascending order, which is the sorted order of the rows of
 the transposed CSR), whatever the number of threads or blocks. :meth:`CsrOperator.gram` gives
-``A^T A`` with each product one pass over ``A``: scipy's sums on a small matrix, and on a large one
-the sums of a fixed number of row blocks added in order (the same bits on any number of threads). The memory is that of scipy's own
-operator, which also keeps a copy of the transpose (12 bytes a nonzero more), made here only
-when a transposed product is asked for.
+``A^T A`` with each product one pass over ``A``: scipy's sums on a small matrix, and on a large
+one the sums of a fixed number of row blocks added in order (the same bits on any number of
+threads). The memory is that of scipy's own operator, which also keeps a copy of the transpose
+(12 bytes a nonzero more), made here only when a transposed product is asked for.
 """
 
 from __future__ import annotations
