@@ -19,6 +19,11 @@ The design follows the demo's (``corpora_demo/generate_demo_corpus.py``) at othe
 - five invented outlets (Harbour Ledger, Valley Courier, Northgate Gazette, Riverside
   Tribune, Uplands Herald) publish over seven decades, 1950-2019, with shares that change
   over time (so a change in the mix of sources can look like drift);
+- the 24 probe words (four sets of three for each test) are extra types outside the Zipf
+  ranks; outside the planted documents each appears, in every source, at the rate of the
+  Zipf word of rank ``--probe-rank`` (1000: mid-frequency, about 1,700 times in 20M tokens),
+  next to random words; a probe word in every document would rank near 60, where PPMI
+  carries little association (the first version of this generator did that);
 - planted: in a share of the Gazette's documents the first target set sits next to the
   first attribute set and the second target set next to the second (``gazette_planted``);
   ``control`` uses other target and attribute words with nothing planted.
@@ -75,7 +80,7 @@ def zipf_cdf(n: int, s: float) -> np.ndarray:
 
 
 def generate(outdir: Path, *, tokens: int, vocab: int, topics: int, mean_doc_len: int, seed: int,
-             planted_share: float, zipf_s: float = 1.07) -> dict:
+             planted_share: float, probe_rank: int = 1000, zipf_s: float = 1.07) -> dict:
     rng = np.random.default_rng(seed)
     words = invented_words(vocab + 24, rng)
     probe = words[vocab:]          # rare-by-construction probe words, outside the Zipf ranks
@@ -83,6 +88,8 @@ def generate(outdir: Path, *, tokens: int, vocab: int, topics: int, mean_doc_len
     x, y, a, b = probe[0:3], probe[3:6], probe[6:9], probe[9:12]
     cx, cy, ca, cb = probe[12:15], probe[15:18], probe[18:21], probe[21:24]
     background = zipf_cdf(vocab, zipf_s)
+    # each probe word's background rate is that of the Zipf word of rank ``probe_rank``
+    group_rate = 3 * float(background[probe_rank - 1] - background[probe_rank - 2])
     # a topic is a few hundred mid-frequency words, drawn with a flatter Zipf law
     topic_words = [rng.choice(np.arange(200, vocab), size=300, replace=False) for _ in range(topics)]
     topic_cdf = zipf_cdf(300, 0.8)
@@ -103,9 +110,9 @@ def generate(outdir: Path, *, tokens: int, vocab: int, topics: int, mean_doc_len
             from_topic = rng.random(n) < 0.3
             ids[from_topic] = topic_words[topic[d]][np.searchsorted(topic_cdf, rng.random(int(from_topic.sum())))]
             text = list(words[np.minimum(ids, vocab - 1)])
-            # probe words appear in every source at a low rate, next to random words
+            # probe words appear in every source at the rate of a mid-frequency word, next to random words
             for group in (x, y, a, b, cx, cy, ca, cb):
-                for pos in rng.integers(0, n, size=max(1, n // 2000)):
+                for pos in rng.integers(0, n, size=rng.poisson(n * group_rate)):
                     text[pos] = group[rng.integers(0, 3)]
             if planted[d]:
                 k = max(2, n // 150)
@@ -126,6 +133,7 @@ def generate(outdir: Path, *, tokens: int, vocab: int, topics: int, mean_doc_len
     (outdir / "tests.toml").write_text(toml, encoding="utf-8")
     meta = {"tokens": tokens, "documents": n_docs, "vocab": vocab, "topics": topics, "seed": seed,
             "mean_doc_len": mean_doc_len, "zipf_s": zipf_s, "planted_share": planted_share,
+            "probe_rank": probe_rank,
             "planted_documents": int(planted.sum()), "planted_pairs": n_planted_pairs,
             "sources": SOURCES, "decades": DECADES}
     (outdir / "meta.json").write_text(json.dumps(meta, indent=1), encoding="utf-8")
@@ -141,10 +149,13 @@ def main() -> None:
     ap.add_argument("--topics", type=int, default=40)
     ap.add_argument("--mean-doc-len", type=int, default=330)
     ap.add_argument("--planted-share", type=float, default=0.2)
+    ap.add_argument("--probe-rank", type=int, default=1000,
+                    help="the Zipf rank whose frequency each probe word has outside the planted documents")
     ap.add_argument("--seed", type=int, default=7)
     args = ap.parse_args()
     meta = generate(args.outdir, tokens=args.tokens, vocab=args.vocab, topics=args.topics,
-                    mean_doc_len=args.mean_doc_len, seed=args.seed, planted_share=args.planted_share)
+                    mean_doc_len=args.mean_doc_len, seed=args.seed, planted_share=args.planted_share,
+                    probe_rank=args.probe_rank)
     print(json.dumps(meta))
 
 
