@@ -22,6 +22,11 @@ there costs about a second. ``--zipf-tokens N`` repeats the comparison on a work
 first N tokens of the Zipf corpus of reference/gen_zipf_corpus.py (five invented sources, documents dealt
 round-robin; word sets of mid-frequency words), where the SVD dominates a retrain as it
 does on real corpora. The agreement figure means little there (nothing is planted).
+``--corpus FILE --tests FILE --test NAME`` runs it on another corpus, such as the news-like one
+of gen_realistic_corpus.py, whose planted test gives the agreement figure a signal to follow:
+
+    .venv/bin/python tests/benchmarks/bench_trace.py --corpus bench-data/realistic-2000000/corpus.jsonl.gz \
+        --tests bench-data/realistic-2000000/tests.toml --test gazette_planted --repeats 1
 """
 
 from __future__ import annotations
@@ -61,7 +66,12 @@ def main():
     ap.add_argument("--zipf-tokens", type=int, default=0)
     ap.add_argument("--max-vocab", type=int, default=None)
     ap.add_argument("--dim", type=int, default=PpmiSvdSettings().dim)
+    ap.add_argument("--corpus", type=Path, help="another corpus (e.g. gen_realistic_corpus.py's corpus.jsonl.gz), "
+                    "with --tests and --test")
+    ap.add_argument("--tests", type=Path, help="the tests file of --corpus")
     args = ap.parse_args()
+    if (args.corpus is None) != (args.tests is None):
+        ap.error("--corpus and --tests go together")
     with tempfile.TemporaryDirectory() as tmp:
         if args.zipf_tokens:
             from tracer.core.association import AssociationTest
@@ -69,6 +79,9 @@ def main():
             words = [f"w{i}" for i in range(100, 132)]
             test = AssociationTest("zipf", tuple(words[:6]), tuple(words[6:12]), tuple(words[12:22]),
                                    tuple(words[22:32]), ())
+        elif args.corpus:
+            corpus = args.corpus
+            test = load_tests(args.tests)[args.test]
         else:
             corpus = ROOT / "corpora_demo" / "archive.jsonl.gz"
             test = load_tests(ROOT / "configs" / "demo_tests.toml")[args.test]
@@ -125,7 +138,7 @@ def main():
     med = {k: statistics.median(v) for k, v in times.items()}
     n_docs = int((sl.weights > 0).sum())
     what = (f"Zipf corpus, {args.zipf_tokens:,} tokens" if args.zipf_tokens
-            else f"demo archive, test {args.test}")
+            else f"{args.corpus}, test {args.test}" if args.corpus else f"demo archive, test {args.test}")
     print(f"\n{what}, slice {args.slice}: {n_docs} documents, {len(sources)} sources, {len(c.vocab)} words, "
           f"dim {args.dim}; "
           f"median of {args.repeats} rounds after one warm-up round (ingest took {t_ingest:.1f} s)\n")
@@ -144,9 +157,10 @@ def main():
     print(f"sources, estimated vs retrained change of the gap: Pearson r {stats.pearsonr(p, a).statistic:.3f}, "
           f"sign agreement {np.mean(np.sign(p) == np.sign(a)):.2f}")
     share = result.sources.set_index("source")["token_share"]
-    print(f"\n{'source':12s} {'tokens':>7s} {'estimated':>10s} {'retrained':>10s}   (the slice's gap {base:.3f})")
+    width = max(12, *map(len, sources))
+    print(f"\n{'source':{width}s} {'tokens':>7s} {'estimated':>10s} {'retrained':>10s}   (the slice's gap {base:.3f})")
     for s, pi, ai in zip(sources, p, a):
-        print(f"{s:12s} {share[s]:7.1%} {pi:+10.3f} {ai:+10.3f}")
+        print(f"{s:{width}s} {share[s]:7.1%} {pi:+10.3f} {ai:+10.3f}")
 
 
 def zipf_corpus(folder: Path, n_tokens: int) -> Path:

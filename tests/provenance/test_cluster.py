@@ -1,5 +1,8 @@
 """Counting by document partitions on a dask.distributed LocalCluster equals the local count."""
 
+import gc
+import re
+
 import numpy as np
 import pytest
 
@@ -114,6 +117,28 @@ def test_no_scheduler_at_the_address_is_one_named_error_on_the_command_line(smal
     lines = result.output.strip().splitlines()
     assert lines[-1].startswith(f"Error: cannot connect to the dask scheduler {nowhere}: "), lines
     assert "Traceback" not in result.output and sum(line.startswith("Error") for line in lines) == 1
+
+
+def _unclosed_clients() -> int:
+    from distributed import Client
+    return sum(isinstance(o, Client) and o.status != "closed" for o in gc.get_objects())
+
+
+@pytest.mark.parametrize("bad", ["nonsense://x", "tcp://x", "x", "tcp://127.0.0.1:notaport", "NOWHERE"])
+def test_a_bad_address_is_refused_without_leaving_a_half_made_client(bad):
+    """A Client that fails on a malformed address stays half-made ("connecting") while anything
+    holds the error; the garbage collector closing it inside another Client's start deadlocked
+    a whole test run on distributed's one loop lock. The address is checked before a Client is made."""
+    import dask
+    from tracer.errors import ClusterError
+    from tracer.provenance.cluster import ClusterTasks
+    bad = _free_address() if bad == "NOWHERE" else bad
+    gc.collect()
+    before = _unclosed_clients()
+    with dask.config.set({"distributed.comm.timeouts.connect": "1s"}):
+        with pytest.raises(ClusterError, match=f"cannot connect to the dask scheduler {re.escape(bad)}: ") as held:
+            ClusterTasks(bad).submit(abs, [1])()
+    assert _unclosed_clients() == before, held.value  # the error is still held here, as by a caller
 
 
 def test_a_worker_without_the_workspace_says_so(address):

@@ -48,12 +48,41 @@ def _client(scheduler):
                            "pip install 'corpus-tracer[dask]'") from None
     if isinstance(scheduler, Client):
         return scheduler, False
+    malformed = _address_problem(str(scheduler))
+    if malformed:
+        raise ClusterError(f"cannot connect to the dask scheduler {scheduler}: {malformed} "
+                           "(check --scheduler or [compute] scheduler)")
     try:
         # not the process's default client: a library user's own client stays theirs
         return Client(scheduler, set_as_default=False), True
     except (OSError, ValueError) as e:  # nothing answers there (OSError), not an address (ValueError)
         raise ClusterError(f"cannot connect to the dask scheduler {scheduler}: {e} "
                            "(check --scheduler or [compute] scheduler)") from None
+
+
+def _address_problem(address: str) -> str | None:
+    """What is wrong with a scheduler address, or None when it has a known scheme (``tcp`` when
+    none is given) and, for the network schemes, a host and a port number.
+
+    Checked before a Client is made, because a Client that fails on a malformed address is left
+    half-made (status "connecting"): the garbage collector closes it later, at any allocation,
+    and when that falls inside another Client's start the two wait forever for distributed's one
+    event-loop lock (seen as a hung test). A Client that finds nothing at a well-formed address
+    closes itself.
+    """
+    from distributed.comm.addressing import parse_address
+    from distributed.comm.registry import backends
+    try:
+        scheme, location = parse_address(address)
+    except ValueError as e:
+        return str(e)
+    if scheme not in backends:
+        return f"unknown address scheme {scheme!r} (known: {', '.join(sorted(backends))})"
+    if scheme in ("tcp", "tls", "ws", "wss"):
+        host, _, port = location.rpartition(":")
+        if not host or not port.isdigit() or not 0 < int(port) < 65536:
+            return f"a {scheme} address is {scheme}://HOST:PORT, e.g. {scheme}://10.0.0.5:8786"
+    return None
 
 
 def _cluster_failure(e: BaseException, scheduler) -> ClusterError | None:
