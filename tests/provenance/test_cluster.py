@@ -172,3 +172,35 @@ def test_which_failures_are_the_clusters():
     # a task's own bug stays itself, with its traceback
     assert _cluster_failure(ZeroDivisionError("x"), "tcp://h:1") is None
     assert _cluster_failure(ModuleNotFoundError("No module named 'other'", name="other"), "tcp://h:1") is None
+
+
+@pytest.mark.parametrize("model, options", [("ppmi-svd", ["--dim", "20"]),
+                                            ("word2vec", ["--dim", "10", "--epochs", "1", "--seed", "3"])])
+def test_train_by_source_on_the_cluster_stores_the_models_trained_here(lee_copy, address, model, options, monkeypatch):
+    """``tracer --scheduler ADDRESS train --by source``: the slices counted and their models trained
+    on the cluster's workers, stored as the same models, bit for bit, as without a scheduler (the
+    local path, itself equal to each slice trained alone: tests/provenance/test_train_slices.py)."""
+    from click.testing import CliRunner
+    import tracer.core.replicate_pool as replicate_pool
+    import tracer.provenance.counts as counts_module
+    from tests.provenance.test_train_slices import assert_same_model
+    from tracer.app.cli import cli
+    from tracer.corpus.slices import resolve_slices
+    from tracer.corpus.workspace import Workspace
+    from tracer.provenance.models import load_embedding
+    args = ["train", "-w", str(lee_copy), "--model", model, "--by", "source", *options]
+    assert CliRunner().invoke(cli, args).exit_code == 0
+    ws = Workspace(lee_copy)
+    slices = resolve_slices(ws, ["source"])
+    local = [load_embedding(ws, model, sl.name) for sl in slices]
+
+    def refuse(*a, **k):
+        raise AssertionError("ran in this process or its local workers")
+
+    monkeypatch.setattr(counts_module, "count_matrix", refuse)
+    monkeypatch.setattr(replicate_pool, "submit_replicates", refuse)
+    result = CliRunner().invoke(cli, ["--scheduler", address, *args])
+    assert result.exit_code == 0, result.output
+    assert len({len(e.words) for e in local}) == 3  # three different slices: a swap between them shows
+    for sl, here in zip(slices, local):
+        assert_same_model(load_embedding(ws, model, sl.name), here)

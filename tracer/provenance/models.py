@@ -14,14 +14,14 @@ import numpy as np
 import pandas as pd
 
 from tracer.core import memory
-from tracer.core.counting import Counts, CountSettings, ModelVocab, build_vocab
+from tracer.core.counting import Counts, CountSettings, ModelVocab
 from tracer.provenance.cluster import task_workspace, tasks_for
-from tracer.provenance.counts import count_slice
+from tracer.provenance.counts import count_slice, slice_vocab
 from tracer.versions import package_versions
 from tracer.corpus.lock import workspace_lock
 from tracer.corpus.slices import Slice
 from tracer.provenance.cache import cacheable, counts_digest
-from tracer.errors import ModelNotFound, SettingError, SliceError
+from tracer.errors import ModelNotFound, SettingError
 from tracer.core.ppmi_svd import PpmiSvdSettings, ppmi_svd_vectors, word_vectors
 from tracer.core.embedding import Embedding
 from tracer.core.word2vec import Word2VecSettings, word2vec_vectors
@@ -40,6 +40,19 @@ def model_folder(ws, model: str, slice_name: str) -> Path:
     return ws.models_dir / model / slice_folder_name(slice_name)
 
 
+def _model_settings(model: str, settings):
+    """``settings``, the model's defaults when None; refused when they are not the model's."""
+    if model not in MODELS:
+        raise SettingError(f"unknown model {model!r}; use one of {', '.join(MODELS)}")
+    if settings is None:
+        return PpmiSvdSettings() if model == "ppmi-svd" else Word2VecSettings()
+    if model == "ppmi-svd" and not isinstance(settings, PpmiSvdSettings):
+        raise SettingError("ppmi-svd takes PpmiSvdSettings")
+    if model == "word2vec" and not isinstance(settings, Word2VecSettings):
+        raise SettingError("word2vec takes Word2VecSettings")
+    return settings
+
+
 def train_embedding(ws, sl: Slice, model: str, counts: CountSettings,
                     settings: PpmiSvdSettings | Word2VecSettings | None = None, *,
                     weights: np.ndarray | None = None, save: bool = True,
@@ -55,43 +68,100 @@ def train_embedding(ws, sl: Slice, model: str, counts: CountSettings,
     counts : CountSettings
         Window, weighting, min-count and vocabulary cap; word2vec uses the same window and vocabulary.
     settings : PpmiSvdSettings or Word2VecSettings
+
+    :func:`train_slices` trains several slices as independent tasks, to the same vectors.
     """
-    if model not in MODELS:
-        raise SettingError(f"unknown model {model!r}; use one of {', '.join(MODELS)}")
-    if settings is None:
-        settings = PpmiSvdSettings() if model == "ppmi-svd" else Word2VecSettings()
-    words = ws.vocab.words
-    try:
-        vocab = build_vocab(ws.tokens, ws.doc_offsets, sl.weights, words, counts)
-    except SliceError as e:
-        raise SliceError(f"slice {sl.name}: {e}") from None
+    settings = _model_settings(model, settings)
+    vocab = slice_vocab(ws, sl.weights, counts, sl.name)
     w = sl.weights if weights is None else np.asarray(weights, dtype=np.float64)
-    extras: dict = {}
     if model == "ppmi-svd":
-        if not isinstance(settings, PpmiSvdSettings):
-            raise SettingError("ppmi-svd takes PpmiSvdSettings")
         c = count_slice(ws, w, counts, slice_name=sl.name, vocab=vocab, progress=progress)
         made = embedding_from_counts(ws, sl, c, settings, weights=w)
         vectors, extras = made.vectors, made.extras
     else:
-        if not isinstance(settings, Word2VecSettings):
-            raise SettingError("word2vec takes Word2VecSettings")
-        vectors = word2vec_vectors(ws.tokens, ws.doc_offsets, w, vocab, words, counts.window, settings)
+        vectors = word2vec_vectors(ws.tokens, ws.doc_offsets, w, vocab, ws.vocab.words, counts.window, settings)
+        extras = {}
+    return trained_embedding(ws, sl, model, counts, settings, vocab.words, vectors, extras,
+                             custom_weights=weights is not None, save=save)
+
+
+def trained_embedding(ws, sl: Slice, model: str, counts: CountSettings, settings, words, vectors: np.ndarray,
+                      extras: dict, *, custom_weights: bool = False, save: bool = True) -> Embedding:
+    """A trained model of ``sl`` with its card (what made it, when, with which versions), stored in
+    the slice's model folder (:func:`model_folder`) when ``save``; ``vectors`` has shape
+    (len(words), dim). What :func:`train_embedding` and :func:`train_slices` return."""
     card = {
         "model": model, "slice": sl.name, "settings": settings.to_dict(), "counts": counts.to_dict(),
-        "corpus_hash": ws.corpus_hash, "n_words": len(vocab), "dim": int(vectors.shape[1]),
+        "corpus_hash": ws.corpus_hash, "n_words": len(words), "dim": int(vectors.shape[1]),
         "slice_documents": sl.n_documents, "slice_tokens": sl.n_tokens,
-        "custom_weights": weights is not None,
+        "custom_weights": custom_weights,
         "trained_at": dt.datetime.now(dt.timezone.utc).isoformat(timespec="seconds"),
         "versions": package_versions(),
     }
-    emb = Embedding(list(vocab.words), vectors, card, extras)
+    emb = Embedding(list(words), vectors, card, extras)
     if save:
         # the folder is rewritten file by file: two writers of one slice at once could leave one's
         # vectors under the other's card, so the store is written under the workspace's write lock
         with workspace_lock(ws.path, command=f"store the {model} model of slice {sl.name}"):
             save_embedding(emb, model_folder(ws, model, sl.name))
     return emb
+
+
+def train_slices(ws, slices: list[Slice], model: str, counts: CountSettings,
+                 settings: PpmiSvdSettings | Word2VecSettings | None = None, *, save: bool = True,
+                 progress: bool = False, say: Callable[[str], None] = lambda s: None,
+                 bar: Callable[[list], Iterable] = iter) -> list[Embedding]:
+    """:func:`train_embedding` of each slice, the trainings as independent tasks
+    (:func:`tracer.provenance.cluster.tasks_for`: the workspace's cluster, else the local replicate
+    pool), the same vectors bit for bit; the models in the order of ``slices``, stored when ``save``.
+
+    PPMI-SVD: each slice is counted here (on the cluster when the workspace has a scheduler) as its
+    SVD is handed over (:func:`start_embeddings_from_counts`); word2vec: each training is one task
+    (:func:`start_word2vec`). ``say`` gets a line as each slice is handed over, counted and when
+    the models are stored; ``bar`` wraps the slices as they are handed over (a progress bar). Every
+    slice's dimension is checked before anything is counted; nothing is stored until all are trained.
+
+    Parameters
+    ----------
+    ws : Workspace
+        With ``ws.scheduler`` set, the counts and the tasks go to that dask cluster.
+    slices : list of Slice
+    model : {"ppmi-svd", "word2vec"}
+    counts : CountSettings
+    settings : PpmiSvdSettings or Word2VecSettings
+
+    Returns
+    -------
+    list of Embedding
+        One per slice, vectors of shape (words of the slice, dim), with the card
+        :func:`trained_embedding` gives.
+    """
+    settings = _model_settings(model, settings)
+    vocabs = [slice_vocab(ws, sl.weights, counts, sl.name) for sl in slices]
+
+    def handed(items):
+        for sl, item in zip(slices, bar(items)):
+            say(f"training {model} on slice {sl.name} ({sl.n_documents} documents, {sl.n_tokens} tokens)")
+            yield sl, item
+
+    if model == "ppmi-svd":
+        for sl, v in zip(slices, vocabs):
+            _check_dim(sl, v, counts, settings)
+
+        def made():
+            for sl, v in handed(vocabs):
+                c = count_slice(ws, sl.weights, counts, slice_name=sl.name, vocab=v, progress=progress)
+                say(f"counted slice {sl.name}: {len(v)} words, {c.matrix.nnz} nonzero cells")
+                yield sl, c
+        embs = start_embeddings_from_counts(ws, made(), settings, len(slices))()
+        trained = [(e.words, e.vectors, e.extras) for e in embs]
+    else:
+        jobs = [(sl.weights, v, settings) for sl, v in zip(slices, vocabs)]
+        vectors = start_word2vec(ws, jobs, counts, lambda items: (item for _, item in handed(items)))()
+        trained = [(v.words, vec, {}) for v, vec in zip(vocabs, vectors)]
+    if save:
+        say(f"storing {len(slices)} {model} model{'s' * (len(slices) != 1)} in {ws.models_dir / model}")
+    return [trained_embedding(ws, sl, model, counts, settings, *t, save=save) for sl, t in zip(slices, trained)]
 
 
 def load_embedding(ws, model: str, slice_name: str) -> Embedding:
@@ -136,12 +206,16 @@ def embedding_from_counts(ws, sl: Slice, c, settings: PpmiSvdSettings, *,
     return _made_embedding(ws, sl, c.vocab, c.settings, settings, key, vectors, extras)
 
 
+def _check_dim(sl: Slice, vocab: ModelVocab, counts: CountSettings, settings: PpmiSvdSettings) -> None:
+    if settings.dim >= len(vocab):
+        raise SettingError(f"slice {sl.name} has {len(vocab)} words at min count {counts.min_count}; "
+                           f"--dim {settings.dim} must be below that (lower --dim or --min-count)")
+
+
 def _cached_embedding(ws, sl: Slice, c, settings: PpmiSvdSettings, weights) -> tuple[str | None, Embedding | None]:
     """The cache key of the PPMI-SVD of ``c`` (None when not cached) and the cached embedding, if any;
     checks the dimension first."""
-    if settings.dim >= len(c.vocab):
-        raise SettingError(f"slice {sl.name} has {len(c.vocab)} words at min count {c.settings.min_count}; "
-                           f"--dim {settings.dim} must be below that (lower --dim or --min-count)")
+    _check_dim(sl, c.vocab, c.settings, settings)
     cache = getattr(ws, "cache", None)
     counted = sl.weights if weights is None else weights
     if cache is None or not cacheable(counted):

@@ -26,14 +26,15 @@ def train(workspace, slices, counts, model, out):
     """
     import pandas as pd
 
-    from tracer.provenance.models import model_folder, train_embedding
+    from tracer.provenance.models import model_folder, train_slices
     ws = open_workspace(workspace)
-    rows = []
-    for sl in steps(slices.resolve(ws), "train", "slices"):
-        say(f"training {model.name} on slice {sl.name} ({sl.n_documents} documents, {sl.n_tokens} tokens)")
-        emb = train_embedding(ws, sl, model.name, counts, model.settings, progress=progress_on())
-        rows.append({"model": model.name, "slice": sl.name, "documents": sl.n_documents, "tokens": sl.n_tokens,
-                     "words": len(emb.words), "dim": emb.dim, "folder": str(model_folder(ws, model.name, sl.name))})
+    slice_list = slices.resolve(ws)
+    # the slices' trainings are independent tasks (the cluster's, else the local worker processes)
+    embs = train_slices(ws, slice_list, model.name, counts, model.settings, progress=progress_on(), say=say,
+                        bar=lambda items: steps(items, "train", "slices"))
+    rows = [{"model": model.name, "slice": sl.name, "documents": sl.n_documents, "tokens": sl.n_tokens,
+             "words": len(emb.words), "dim": emb.dim, "folder": str(model_folder(ws, model.name, sl.name))}
+            for sl, emb in zip(slice_list, embs)]
     out.table(pd.DataFrame(rows))
 
 
