@@ -89,8 +89,8 @@ def test_measure_with_bootstrap_on_the_cluster_equals_the_local_tables(demo_ws, 
         pd.testing.assert_frame_equal(getattr(local, part), getattr(remote, part), check_exact=True)
 
 
-def _verified(ws, model="ppmi-svd", model_settings=SVD, **kw):
-    sl = slice_from_spec(ws, "all")
+def _verified(ws, model="ppmi-svd", model_settings=SVD, spec="all", **kw):
+    sl = slice_from_spec(ws, spec)
     return trace(ws, TESTS["tribune_mix"], model, sl, COUNTS, model_settings, TraceSettings(verify=3, **kw))
 
 
@@ -133,9 +133,11 @@ def test_word2vec_retrains_on_the_cluster_equal_the_local_ones(demo_ws, address,
     and a seed, a worker process trains the same vectors as this one."""
     w2v = Word2VecSettings(dim=16, epochs=1, seed=2)
     monkeypatch.setattr(replicate_pool, "submit_replicates", _in_this_process)
-    local = _verified(demo_ws, "word2vec", w2v, seeds=2, top=3, candidates=20)
+    # one decade (about a seventh of the tokens): 14 word2vec trainings a side, each a few tenths of a second
+    kw = dict(spec="time=1980..1989", seeds=2, top=3, candidates=20)
+    local = _verified(demo_ws, "word2vec", w2v, **kw)
     monkeypatch.setattr(replicate_pool, "submit_replicates", _refuse)
-    remote = _verified(open_workspace(demo_ws.path, scheduler=address), "word2vec", w2v, seeds=2, top=3, candidates=20)
+    remote = _verified(open_workspace(demo_ws.path, scheduler=address), "word2vec", w2v, **kw)
     rows = local.verification.rows
     assert rows["seed_spread"].gt(0).all()  # two seeds, two different models each
     pd.testing.assert_frame_equal(rows, remote.verification.rows, check_exact=True)
