@@ -21,7 +21,7 @@ The design follows the demo's (``corpora_demo/generate_demo_corpus.py``) at othe
   over time (so a change in the mix of sources can look like drift);
 - the 24 probe words (four sets of three for each test) are extra types outside the Zipf
   ranks; outside the planted documents each appears, in every source, at the rate of the
-  Zipf word of rank ``--probe-rank`` (1000: mid-frequency, about 1,700 times in 20M tokens),
+  Zipf word of rank ``--probe-rank`` (1000: mid-frequency, about 1,500 times in 20M tokens),
   next to random words; a probe word in every document would rank near 60, where PPMI
   carries little association (the first version of this generator did that);
 - planted: in a share of the Gazette's documents the first target set sits next to the
