@@ -48,16 +48,15 @@ def _client(scheduler):
                            "pip install 'corpus-tracer[dask]'") from None
     if isinstance(scheduler, Client):
         return scheduler, False
-    malformed = _address_problem(str(scheduler))
-    if malformed:
-        raise ClusterError(f"cannot connect to the dask scheduler {scheduler}: {malformed} "
-                           "(check --scheduler or [compute] scheduler)")
-    try:
-        # not the process's default client: a library user's own client stays theirs
-        return Client(scheduler, set_as_default=False), True
-    except (OSError, ValueError) as e:  # nothing answers there (OSError), not an address (ValueError)
-        raise ClusterError(f"cannot connect to the dask scheduler {scheduler}: {e} "
-                           "(check --scheduler or [compute] scheduler)") from None
+    why = _address_problem(str(scheduler))
+    if why is None:
+        try:
+            # not the process's default client: a library user's own client stays theirs
+            return Client(scheduler, set_as_default=False), True
+        except (OSError, ValueError) as e:  # nothing answers there (OSError), not an address (ValueError)
+            why = str(e)
+    raise ClusterError(f"cannot connect to the dask scheduler {scheduler}: {why} "
+                       "(check --scheduler or [compute] scheduler)")
 
 
 def _address_problem(address: str) -> str | None:
