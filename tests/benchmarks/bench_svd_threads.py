@@ -11,10 +11,11 @@ variant named by ``--variants`` (default: all), compared with the first one run 
 
     scipy      scipy's single-threaded products on the CSR matrix (the old default)
     gram       the default: A^T A x in one pass over A (CsrOperator.gram); on a large matrix in 8
-               fixed row blocks on the threads, with float32 values (truncated_svd's fast path)
-    gram64     the same with float64 values
+               fixed row blocks on the threads, with float32 values and ARPACK's Lanczos vectors
+               in float32, BLAS on one thread (truncated_svd's fast path)
+    gram64     the same with float64 values and Lanczos vectors
     gram1t     the default on 1 thread (what one replicate worker runs)
-    gramblas1  the default, ARPACK's dense (BLAS) work on 1 thread
+    gramblas1  the default with an explicit limit of 1 BLAS thread (now the default's own)
     t1, t2     A x and A^T y as separate row-parallel products (CsrOperator) on 1 and 2 threads
     f32        the operator on 2 threads with float32 values
     ncv3k      the operator on 2 threads with ARPACK's ncv = 3 dim (default: 2 dim + 1)
@@ -26,7 +27,7 @@ average at the start and end (the machine may be shared), whether u and s equal 
 bit (else the largest differences), the time spent in the operator's products (scipy's own are not timed),
 and the WEAT effect size d and gap of both tests with their differences from the first variant's
 (the issue's tolerance: |delta d| <= 0.02; the tests hold the fast path to ``FAST_PATH_TOLERANCE``
-of tracer.core.ppmi_svd, 1e-5 in d and 1e-6 in the gap).
+of tracer.core.ppmi_svd, 5e-4 in d and 5e-5 in the gap).
 Nothing here is a pass/fail test: read the figures.
 """
 

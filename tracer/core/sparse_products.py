@@ -81,6 +81,7 @@ class CsrOperator(LinearOperator):
     values : numpy dtype, optional
         The stored values' type (float64 by default; float32 halves their memory and gives
         products within float32 rounding of the exact ones). Products are always float64.
+        Kept as the attribute ``values`` (a numpy dtype).
     """
 
     def __init__(self, matrix, threads: int | None = None, values=np.float64):
@@ -90,7 +91,7 @@ class CsrOperator(LinearOperator):
             raise TypeError("CsrOperator takes real matrices only")
         super().__init__(np.dtype(np.float64), m.shape)
         self.threads = threads
-        self._m, self._values = m, values
+        self._m, self.values = m, np.dtype(values)
         self._a = _Csr(m, values, threads)
         self._at_csr = None
 
@@ -98,7 +99,7 @@ class CsrOperator(LinearOperator):
     def _at(self) -> _Csr:
         """``A^T`` as its own CSR, made at the first transposed product (``gram`` needs none)."""
         if self._at_csr is None:
-            self._at_csr = _Csr(self._m.T.tocsr(), self._values, self.threads)  # rows sorted: scipy's order
+            self._at_csr = _Csr(self._m.T.tocsr(), self.values, self.threads)  # rows sorted: scipy's order
         return self._at_csr
 
     def gram(self) -> LinearOperator:

@@ -15,11 +15,12 @@ Other independent tasks (bootstrap replicates and verification retrains, PPMI-SV
 cluster through :class:`ClusterTasks`, the cluster's :class:`tracer.core.replicate_pool.Tasks`;
 :func:`tasks_for` picks it for a workspace opened with a scheduler and the local replicate pool
 otherwise. Each task runs the same function on the same inputs as the local path, made by the
-caller, so the results are the same bit for bit where BLAS runs on one thread on both sides: below
-5,000 rows the SVD sets that itself (:func:`tracer.core.ppmi_svd.blas_threads_for`); above it a
+caller, so the results are the same bit for bit where BLAS runs on one thread on both sides: the
+SVD sets that itself on its default products (:func:`tracer.core.ppmi_svd.blas_threads_for`; a
+spawned process with ``OPENBLAS_NUM_THREADS=1`` gave the same vectors at 28,924 words), and a
 worker started by ``dask worker`` (or a ``LocalCluster`` with processes) runs one BLAS thread, its
 nanny setting ``OPENBLAS_NUM_THREADS=1`` and the like, while this process uses the library's own
-number, so the SVD of a larger vocabulary may agree to rounding only. The cluster's own failures
+number elsewhere, so code outside the SVD may agree to rounding only. The cluster's own failures
 (no scheduler at the address, a worker lost, workers without the package or the workspace) are
 raised as one :class:`tracer.errors.ClusterError`.
 """
