@@ -138,10 +138,9 @@ def truncated_svd(matrix, k: int, seed: int = 0, *, threads: int | None = None, 
     the threads and read A's values stored in float32 (the sums stay float64), and ARPACK keeps
     its Lanczos vectors in float32 (half the memory traffic of its orthogonalizations); the span
     they give is then orthonormalized and A V decomposed in float64, so the singular values stay
-    within about 1e-9 (relative) of the exact ones. Its BLAS runs on one thread: the products take the cores,
-    and a second BLAS thread, waiting for work between ARPACK's calls, slowed them by half (64 s
-    against 75 s for the whole SVD at 20M tokens, 79,629 words, dim 100). The result is the same bit
-    for bit on any number of threads. It is held to the exact path (``"scipy"``) in the figures
+    within about 1e-9 (relative) of the exact ones. Its BLAS runs on one thread, as on all this
+    package's products (:func:`blas_threads_for` says why). The result is the same bit for bit on
+    any number of threads. It is held to the exact path (``"scipy"``) in the figures
     users read: in d and the gap of association tests within ``FAST_PATH_TOLERANCE``
     (tests/core/test_ppmi_svd.py at 20,000 words; tests/benchmarks/bench_svd_threads.py at the
     sizes users have). The word vectors are stored in float32, so the rounding is of the order
@@ -173,14 +172,14 @@ def truncated_svd(matrix, k: int, seed: int = 0, *, threads: int | None = None, 
     rng = np.random.default_rng(seed)
     v0 = rng.standard_normal(n)
     csr = sp.csr_array(matrix, dtype=np.float64)
-    fast = products == "gram" and csr.shape[0] >= csr.shape[1] and csr.nnz >= LARGE_NNZ
     with blas_threads_for(matrix.shape[0], products):
         if products == "scipy":
             u, s, vt = svds(csr, k=k, v0=v0, ncv=ncv, solver="arpack")
         elif products == "separate" or csr.shape[0] < csr.shape[1]:
             u, s, vt = svds(CsrOperator(csr, threads=threads), k=k, v0=v0, ncv=ncv, solver="arpack")
         else:
-            u, s, vt = _gram_svds(CsrOperator(csr, threads=threads, values=np.float32 if fast else np.float64), k, v0, ncv)
+            values = np.float32 if csr.nnz >= LARGE_NNZ else np.float64
+            u, s, vt = _gram_svds(CsrOperator(csr, threads=threads, values=values), k, v0, ncv)
     order = np.argsort(-s, kind="stable")
     u, s, vt = u[:, order], s[order], vt[order]
     u, vt = fix_signs(u, vt)
@@ -202,8 +201,8 @@ def _gram_svds(op: CsrOperator, k: int, v0: np.ndarray, ncv: int | None):
     if lanczos == np.float32:
         in_float64 = gram.matvec
         gram = LinearOperator(gram.shape, dtype=np.float32, matvec=lambda x: in_float64(x).astype(np.float32))
-    _, eigvec = eigsh(gram, k=k, tol=0, ncv=ncv, which="LM", v0=v0.astype(lanczos))
-    eigvec, _ = np.linalg.qr(eigvec.astype(np.float64))
+    _, eigvec = eigsh(gram, k=k, tol=0, ncv=ncv, which="LM", v0=v0.astype(lanczos, copy=False))
+    eigvec, _ = np.linalg.qr(eigvec.astype(np.float64, copy=False))
     u, s, vh = scipy.linalg.svd(op.matmat(eigvec), full_matrices=False, overwrite_a=True)
     return u[:, ::-1], s[::-1], vh[::-1] @ eigvec.T.conj()
 
